@@ -1,0 +1,1 @@
+"""Checks: each module registers one check with :func:`auditor.checks.registry.register`."""

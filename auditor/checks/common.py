@@ -1,0 +1,70 @@
+"""Small helpers shared by checks: building results, complete pairs, formatting numbers."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pandas as pd
+
+from ..results import CheckResult, Estimate, Verdict
+from ..study import OutcomeData
+from .registry import CheckContext, NotAssessable
+
+
+def fmt(x: float | None, digits: int = 2) -> str:
+    """A number for a headline: fixed decimals for moderate values, 3 significant digits otherwise."""
+    if x is None or (isinstance(x, float) and not math.isfinite(x)):
+        return "n/a"
+    if x != 0 and (abs(x) >= 10_000 or abs(x) < 10 ** -digits):
+        return f"{x:.3g}"
+    return f"{x:.{digits}f}"
+
+
+def fmt_ci(est: float, lo: float, hi: float, digits: int = 2) -> str:
+    return f"{fmt(est, digits)} ({fmt(lo, digits)} to {fmt(hi, digits)})"
+
+
+def fmt_p(p: float | None) -> str:
+    if p is None or not math.isfinite(p):
+        return "p n/a"
+    return "p < 0.001" if p < 0.001 else f"p = {p:.3f}"
+
+
+def complete_pairs(data: OutcomeData, min_n: int = 10) -> pd.DataFrame:
+    """Participants with both a baseline and a main follow-up value (and an arm)."""
+    if "baseline" not in data.frame.columns:
+        raise NotAssessable("the outcome has no baseline visit")
+    df = data.frame.dropna(subset=["baseline", "followup", "arm"])
+    if len(df) < min_n:
+        raise NotAssessable(f"only {len(df)} participants have both a baseline and a follow-up value "
+                            f"(at least {min_n} are needed)")
+    if np.ptp(df["baseline"].to_numpy()) == 0:
+        raise NotAssessable("the baseline value is the same for every participant")
+    if np.ptp(df["followup"].to_numpy()) == 0:
+        raise NotAssessable("the follow-up value is the same for every participant")
+    return df.reset_index(drop=True)
+
+
+def arms_present(df: pd.DataFrame, data: OutcomeData, ctx: CheckContext) -> list[str]:
+    """Arms with at least 2 participants in ``df``, in metadata order; empty when blinded."""
+    if ctx.blinded or data.design == "single-arm":
+        return []
+    counts = df["arm"].value_counts()
+    return [a for a in data.arms if counts.get(a, 0) >= 2]
+
+
+def estimate(name: str, est: float, lo: float | None = None, hi: float | None = None,
+             p: float | None = None, unit: str = "", note: str = "", by_arm: bool = False) -> Estimate:
+    return Estimate(name, est, lo, hi, p, unit, note, by_arm)
+
+
+def result(check, data: OutcomeData, verdict: Verdict, headline: str, **kw) -> CheckResult:
+    return CheckResult(check_id=check.id, check_title=check.title, outcome=data.spec.param,
+                       outcome_label=data.spec.display_name, verdict=verdict, headline=headline, **kw)
+
+
+def not_assessable(check, spec, reason: str) -> CheckResult:
+    return CheckResult(check_id=check.id, check_title=check.title, outcome=spec.param,
+                       outcome_label=spec.display_name, verdict=Verdict.NOT_ASSESSABLE,
+                       headline=f"Not assessable: {reason}.", reason=reason)

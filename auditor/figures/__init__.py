@@ -1,0 +1,72 @@
+"""Figures drawn from result data: ``draw(data, ax) -> ax`` functions registered by kind.
+
+Rendering knows nothing about models: a :class:`~auditor.results.Figure` carries the numbers, a
+drawing function turns them into axes, and :func:`to_svg` produces deterministic vector SVG (fixed
+hash salt, no timestamps) that is inlined into the HTML and carried into the PDF.
+"""
+
+from __future__ import annotations
+
+import io
+from typing import Callable
+
+import matplotlib
+
+matplotlib.use("Agg")
+import matplotlib.pyplot as plt  # noqa: E402
+
+from ..results import Figure  # noqa: E402
+
+PALETTE = ("#1b4f72", "#b9770e", "#1e8449", "#6c3483", "#922b21", "#5d6d7e")
+_DRAWERS: dict[str, Callable] = {}
+
+STYLE = {
+    "svg.hashsalt": "auditor",
+    "svg.fonttype": "none",
+    "font.family": "DejaVu Sans",
+    "font.size": 8.5,
+    "axes.spines.top": False,
+    "axes.spines.right": False,
+    "axes.titlesize": 9,
+    "axes.labelsize": 8.5,
+    "legend.fontsize": 7.5,
+    "legend.frameon": False,
+    "figure.dpi": 100,
+}
+
+
+def drawer(kind: str, size: tuple[float, float] = (5.2, 3.4)):
+    """Register a drawing function for a figure kind (and its size in inches)."""
+
+    def wrap(fn):
+        fn.size = size
+        _DRAWERS[kind] = fn
+        return fn
+
+    return wrap
+
+
+def kinds() -> list[str]:
+    _load()
+    return sorted(_DRAWERS)
+
+
+def _load():
+    from . import panels  # noqa: F401
+
+
+def to_svg(fig: Figure) -> str:
+    """Draw a figure and return its SVG markup (no XML prolog), byte-identical for equal data."""
+    _load()
+    fn = _DRAWERS[fig.kind]
+    with plt.rc_context(STYLE):
+        mfig = plt.figure(figsize=fn.size)
+        try:
+            fn(fig.data, mfig)
+            buf = io.StringIO()
+            mfig.savefig(buf, format="svg", bbox_inches="tight", metadata={"Date": None, "Creator": None})
+        finally:
+            plt.close(mfig)
+    svg = buf.getvalue()
+    start = svg.find("<svg")
+    return svg[start:]

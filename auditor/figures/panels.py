@@ -1,0 +1,114 @@
+"""Drawing functions, one per figure kind. Each takes the figure's data dict and a matplotlib figure."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from . import PALETTE, drawer
+
+
+def _limits(values):
+    v = np.asarray([x for x in values if x is not None], dtype=float)
+    lo, hi = float(np.min(v)), float(np.max(v))
+    pad = 0.04 * (hi - lo or 1.0)
+    return lo - pad, hi + pad
+
+
+@drawer("scatter_identity")
+def scatter_identity(data, fig):
+    """Follow-up against baseline by group, with the identity line and an optional smooth."""
+    ax = fig.add_subplot(1, 1, 1)
+    allx = [x for g in data["groups"] for x in g["x"]]
+    ally = [y for g in data["groups"] for y in g["y"]]
+    lo, hi = _limits(allx + ally)
+    n_groups = len(data["groups"])
+    for i, g in enumerate(data["groups"]):
+        ax.scatter(g["x"], g["y"], s=9, alpha=0.55, color=PALETTE[i % len(PALETTE)], linewidths=0,
+                   label=g["label"] if n_groups > 1 else None)
+    ax.plot([lo, hi], [lo, hi], ls="--", lw=0.9, color="#555555", label="identity")
+    for j, curve in enumerate(data.get("curves", [])):
+        ax.plot(curve["x"], curve["y"], lw=1.4, color=PALETTE[(j + 3) % len(PALETTE)], label=curve["label"])
+    smooth = data.get("smooth") or {}
+    if smooth.get("x"):
+        ax.plot(smooth["x"], smooth["y"], lw=1.6, color="#222222", label="smooth")
+    ax.set_xlim(lo, hi)
+    ax.set_ylim(lo, hi)
+    ax.set_xlabel(data["xlabel"])
+    ax.set_ylabel(data["ylabel"])
+    ax.legend(loc="upper left")
+    return ax
+
+
+@drawer("scatter_xy")
+def scatter_xy(data, fig):
+    """A plain scatter by group with optional horizontal reference line and curves."""
+    ax = fig.add_subplot(1, 1, 1)
+    n_groups = len(data["groups"])
+    for i, g in enumerate(data["groups"]):
+        ax.scatter(g["x"], g["y"], s=9, alpha=0.55, color=PALETTE[i % len(PALETTE)], linewidths=0,
+                   label=g["label"] if n_groups > 1 else None)
+    if data.get("hline") is not None:
+        ax.axhline(data["hline"], ls="--", lw=0.9, color="#555555")
+    for j, curve in enumerate(data.get("curves", [])):
+        ax.plot(curve["x"], curve["y"], lw=1.4, color=PALETTE[(j + 3) % len(PALETTE)], label=curve["label"])
+    ax.set_xlabel(data["xlabel"])
+    ax.set_ylabel(data["ylabel"])
+    if n_groups > 1 or data.get("curves"):
+        ax.legend(loc="best")
+    return ax
+
+
+@drawer("histograms", size=(6.4, 2.4))
+def histograms(data, fig):
+    """Side-by-side histograms (one panel each) with optional vertical markers (bounds, cut-offs)."""
+    panels = data["panels"]
+    for i, p in enumerate(panels):
+        ax = fig.add_subplot(1, len(panels), i + 1)
+        vals = np.asarray(p["values"], dtype=float)
+        bins = p.get("bins") or min(40, max(8, int(np.sqrt(len(vals)))))
+        ax.hist(vals, bins=bins, color=PALETTE[i % len(PALETTE)], alpha=0.8)
+        for m in p.get("markers", []):
+            ax.axvline(m["x"], ls=":", lw=1.0, color="#922b21")
+        ax.set_title(p["title"])
+        ax.set_xlabel(p.get("xlabel", ""))
+        ax.set_yticks([])
+    fig.tight_layout()
+    return fig
+
+
+@drawer("curve_band")
+def curve_band(data, fig):
+    """Curves with CI bands and an optional rug of observed x values."""
+    ax = fig.add_subplot(1, 1, 1)
+    for i, c in enumerate(data["curves"]):
+        color = PALETTE[i % len(PALETTE)]
+        ax.plot(c["x"], c["y"], lw=1.5, color=color, label=c.get("label"))
+        if c.get("lower") and c.get("upper"):
+            ax.fill_between(c["x"], c["lower"], c["upper"], color=color, alpha=0.18, linewidth=0)
+    if data.get("rug"):
+        ymin = ax.get_ylim()[0]
+        ax.plot(data["rug"], np.full(len(data["rug"]), ymin), "|", color="#333333", ms=6, alpha=0.4)
+    for m in data.get("vlines", []):
+        ax.axvline(m["x"], ls=":", lw=1.0, color="#922b21")
+    ax.set_xlabel(data["xlabel"])
+    ax.set_ylabel(data["ylabel"])
+    if any(c.get("label") for c in data["curves"]):
+        ax.legend(loc="best")
+    return ax
+
+
+@drawer("interval_rows", size=(5.6, 2.6))
+def interval_rows(data, fig):
+    """Estimates with CIs as horizontal intervals, one row each, with an optional reference line."""
+    ax = fig.add_subplot(1, 1, 1)
+    rows = data["rows"]
+    ys = np.arange(len(rows))[::-1]
+    for y, r in zip(ys, rows):
+        ax.plot([r["lower"], r["upper"]], [y, y], color=PALETTE[0], lw=1.8)
+        ax.plot([r["value"]], [y], "o", color=PALETTE[0], ms=4)
+    if data.get("reference") is not None:
+        ax.axvline(data["reference"], ls="--", lw=0.9, color="#555555")
+    ax.set_yticks(ys)
+    ax.set_yticklabels([r["label"] for r in rows])
+    ax.set_xlabel(data.get("xlabel", ""))
+    return ax

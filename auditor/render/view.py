@@ -1,0 +1,157 @@
+"""The report's view: the audit turned into display strings. Templates only print what is here."""
+
+from __future__ import annotations
+
+import base64
+import math
+
+from ..checks.registry import all_checks
+from ..figures import to_svg
+from ..references import REFERENCES
+from ..results import Audit, CheckResult, Verdict
+
+VERDICT_CLASS = {
+    Verdict.SOUND: "v-sound",
+    Verdict.CAUTION: "v-caution",
+    Verdict.UNSUPPORTED: "v-unsupported",
+    Verdict.NOT_ASSESSABLE: "v-na",
+}
+
+PLANNED_TEXT = {
+    "change": "change from baseline",
+    "percent-change": "percent change from baseline",
+    "follow-up-adjusted": "follow-up adjusted for baseline",
+    "follow-up-only": "follow-up only",
+    "responder": "responder definition",
+    "repeated-with-baseline-response": "longitudinal model with baseline as a response",
+}
+
+
+def number(x, digits: int = 3) -> str:
+    """A value for display: integers with thousands separators, other numbers to 3 significant digits."""
+    if x is None:
+        return "–"
+    if isinstance(x, bool):
+        return "yes" if x else "no"
+    if isinstance(x, int):
+        return f"{x:,}"
+    if isinstance(x, float):
+        if not math.isfinite(x):
+            return "–"
+        if x.is_integer() and abs(x) < 1e9:
+            return f"{int(x):,}"
+        if abs(x) >= 1000:
+            return f"{x:,.0f}"
+        return f"{x:.{digits}g}"
+    return str(x)
+
+
+def p_text(p) -> str:
+    if p is None:
+        return "–"
+    return "< 0.001" if p < 0.001 else f"{p:.3f}"
+
+
+def _ci(lo, hi) -> str:
+    if lo is None or hi is None:
+        return "–"
+    return f"{number(lo)} to {number(hi)}"
+
+
+def _svg_data_uri(svg: str) -> str:
+    return "data:image/svg+xml;base64," + base64.b64encode(svg.encode("utf-8")).decode("ascii")
+
+
+def result_view(r: CheckResult, figure_no: list[int]) -> dict:
+    figs = []
+    for f in r.figures:
+        figure_no[0] += 1
+        figs.append({"number": figure_no[0], "title": f.title, "caption": f.caption,
+                     "src": _svg_data_uri(to_svg(f))})
+    return {
+        "check_id": r.check_id,
+        "check_title": r.check_title,
+        "verdict": r.verdict.value,
+        "verdict_class": VERDICT_CLASS[r.verdict],
+        "headline": r.headline,
+        "reason": r.reason,
+        "method": r.method,
+        "subfindings": [{"question": s.question, "verdict": s.verdict.value,
+                         "verdict_class": VERDICT_CLASS[s.verdict], "evidence": s.evidence}
+                        for s in r.subfindings],
+        "estimates": [{"name": e.name, "value": number(e.value), "ci": _ci(e.lower, e.upper),
+                       "p": p_text(e.p_value), "unit": e.unit, "note": e.note} for e in r.estimates],
+        "tables": [{"title": t.title, "columns": t.columns, "note": t.note,
+                    "rows": [[number(c) for c in row] for row in t.rows]} for t in r.tables],
+        "figures": figs,
+        "caveats": r.caveats,
+        "references": r.references,
+    }
+
+
+def audit_view(audit: Audit) -> dict:
+    """Everything the HTML template prints, as display strings."""
+    checks = [c for c in all_checks() if any(r.check_id == c.id for r in audit.results)]
+    by_key = {(r.outcome, r.check_id): r for r in audit.results}
+    grid = []
+    for o in audit.outcomes:
+        cells = []
+        for c in checks:
+            r = by_key.get((o["param"], c.id))
+            cells.append(None if r is None else {"verdict": r.verdict.value,
+                                                 "verdict_class": VERDICT_CLASS[r.verdict],
+                                                 "anchor": f"{o['param']}--{c.id}"})
+        grid.append({"param": o["param"], "label": o["label"], "cells": cells})
+    figure_no = [0]
+    sections = []
+    for o in audit.outcomes:
+        results = [result_view(r, figure_no) for r in audit.results if r.outcome == o["param"]]
+        sections.append({
+            "param": o["param"], "label": o["label"],
+            "facts": [
+                ("Scale", o["scale"] + (f" (levels {', '.join(number(v) for v in o['levels'])})"
+                                        if o["levels"] else "")),
+                ("Unit", o["unit"] or "–"),
+                ("Bounds", _ci(*o["bounds"]) if any(b is not None for b in o["bounds"]) else "none declared"),
+                ("Visits", f"baseline {o['baseline_visit'] or '–'}; follow-up {', '.join(o['followup_visits'])}"
+                           f" (main: {o['main_followup']})"
+                           + (f"; screening {o['screening_visit']}" if o["screening_visit"] else "")),
+                ("Planned analysis", PLANNED_TEXT.get(o["planned_analysis"], o["planned_analysis"])),
+                ("Entry criterion", o["entry_criterion"] or "none declared"),
+                ("Risk endpoint", o["risk_endpoint"] or "none declared"),
+            ],
+            "results": results,
+        })
+    headlines = [{"param": r.outcome, "label": r.outcome_label, "check": r.check_title,
+                  "verdict": r.verdict.value, "verdict_class": VERDICT_CLASS[r.verdict],
+                  "headline": r.headline, "anchor": f"{r.outcome}--{r.check_id}"} for r in audit.results]
+    cited = sorted({k for r in audit.results for k in r.references})
+    p = audit.provenance
+    return {
+        "study_id": audit.study_id,
+        "title": audit.title,
+        "design": "parallel-group randomised" if audit.design == "parallel" else "single-arm before-after",
+        "arms": audit.arms,
+        "control_arm": audit.control_arm,
+        "blinded": audit.blinded,
+        "checks": [{"id": c.id, "title": c.title} for c in checks],
+        "methods": [{"id": c.id, "title": c.title, "summary": c.summary,
+                     "method": next((r.method for r in audit.results if r.check_id == c.id and r.method), "")}
+                    for c in checks],
+        "grid": grid,
+        "headlines": headlines,
+        "sections": sections,
+        "references": [{"key": k, "text": REFERENCES[k]} for k in cited],
+        "cautions": audit.cautions,
+        "provenance": {
+            "analysis_date": p.analysis_date,
+            "tool_version": p.tool_version,
+            "libraries": sorted(p.library_versions.items()),
+            "metadata_sha256": p.metadata_sha256,
+            "files": [{"role": f.role, "path": f.path, "sha256": f.sha256, "rows": number(f.rows)} for f in p.files],
+            "options": sorted((k, str(v)) for k, v in p.options.items()),
+            "seed": p.seed,
+            "platform": p.platform,
+        },
+        "schema_version": audit.schema_version,
+    }

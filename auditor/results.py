@@ -1,0 +1,214 @@
+"""The one record every output renders from.
+
+A check returns a :class:`CheckResult`; an audit is a list of them plus the provenance of the inputs.
+JSON, CSV, HTML and PDF are all produced from these records and nothing else, so a number shown in a
+report is always a number that is also in ``findings.json``.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass, field
+from enum import Enum
+from typing import Any
+
+SCHEMA_VERSION = "1.0"
+
+
+class Verdict(str, Enum):
+    """How far the trial's own data support the planned analysis, for one outcome and one check.
+
+    Ordered from best to worst by :attr:`rank`; ``--fail-on`` compares ranks.
+    """
+
+    SOUND = "sound"
+    """The assumptions this check examines hold in the data."""
+    CAUTION = "caution"
+    """Some assumption is doubtful or a consequence is material; read the finding."""
+    UNSUPPORTED = "unsupported"
+    """The data contradict the planned analysis; an alternative is recommended."""
+    NOT_ASSESSABLE = "not assessable"
+    """The check could not be computed (too little data, a model that would not fit, blinding)."""
+
+    @property
+    def rank(self) -> int:
+        return _VERDICT_RANK[self]
+
+
+_VERDICT_RANK = {Verdict.SOUND: 0, Verdict.NOT_ASSESSABLE: 1, Verdict.CAUTION: 2, Verdict.UNSUPPORTED: 3}
+
+
+def _clean(value: Any) -> Any:
+    """Make a value JSON-safe and stable: numpy scalars to Python, NaN/inf to None, floats rounded.
+
+    Rounding to 12 significant digits keeps outputs byte-identical across BLAS builds that differ
+    in the last bits, while keeping far more precision than any report shows.
+    """
+    if value is None or isinstance(value, (bool, str)):
+        return value
+    if isinstance(value, Enum):
+        return value.value
+    if hasattr(value, "item") and not isinstance(value, (list, tuple, dict)):
+        try:
+            value = value.item()
+        except (ValueError, AttributeError):
+            pass
+    if isinstance(value, int):
+        return value
+    if isinstance(value, float):
+        if not math.isfinite(value):
+            return None
+        return float(f"{value:.12g}")
+    if isinstance(value, dict):
+        return {str(k): _clean(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_clean(v) for v in value]
+    if hasattr(value, "tolist"):
+        return _clean(value.tolist())
+    return str(value)
+
+
+@dataclass(frozen=True)
+class Estimate:
+    """One estimated quantity with its uncertainty: a tidy row of a result."""
+
+    name: str
+    value: float | None
+    lower: float | None = None
+    upper: float | None = None
+    p_value: float | None = None
+    unit: str = ""
+    note: str = ""
+    by_arm: bool = False
+    """True when the number describes an arm or a contrast between arms (dropped in blinded audits)."""
+
+
+@dataclass(frozen=True)
+class Table:
+    """A small table: column headers and rows of plain values."""
+
+    id: str
+    title: str
+    columns: list[str]
+    rows: list[list[Any]]
+    note: str = ""
+    by_arm: bool = False
+
+
+@dataclass(frozen=True)
+class Figure:
+    """The data a figure is drawn from, plus the name of the drawing function that draws it.
+
+    ``data`` holds only JSON-serialisable lists and numbers; :mod:`auditor.figures` turns it into SVG.
+    """
+
+    id: str
+    kind: str
+    title: str
+    data: dict[str, Any]
+    caption: str = ""
+    by_arm: bool = False
+
+
+@dataclass(frozen=True)
+class SubFinding:
+    """One assumption or question examined inside a check, with its own verdict and evidence."""
+
+    id: str
+    question: str
+    verdict: Verdict
+    evidence: str
+    by_arm: bool = False
+
+
+@dataclass(frozen=True)
+class CheckResult:
+    """Everything one check says about one outcome."""
+
+    check_id: str
+    check_title: str
+    outcome: str
+    outcome_label: str
+    verdict: Verdict
+    headline: str
+    subfindings: list[SubFinding] = field(default_factory=list)
+    estimates: list[Estimate] = field(default_factory=list)
+    tables: list[Table] = field(default_factory=list)
+    figures: list[Figure] = field(default_factory=list)
+    caveats: list[str] = field(default_factory=list)
+    references: list[str] = field(default_factory=list)
+    method: str = ""
+    reason: str = ""
+    """Why the check is not assessable, when it is not."""
+
+    def to_dict(self) -> dict[str, Any]:
+        return _clean(asdict(self))
+
+
+@dataclass(frozen=True)
+class InputFile:
+    """An input file and its content hash, for the provenance block."""
+
+    role: str
+    path: str
+    sha256: str
+    rows: int | None = None
+
+
+@dataclass(frozen=True)
+class Provenance:
+    """What the audit was computed from and with: enough to reproduce it byte for byte."""
+
+    tool_version: str
+    library_versions: dict[str, str]
+    metadata_sha256: str
+    files: list[InputFile]
+    options: dict[str, Any]
+    analysis_date: str
+    seed: int
+    platform: str
+
+
+@dataclass(frozen=True)
+class Audit:
+    """A whole audit of one study: what the report, JSON and CSV are rendered from."""
+
+    study_id: str
+    title: str
+    design: str
+    arms: list[str]
+    control_arm: str | None
+    blinded: bool
+    outcomes: list[dict[str, Any]]
+    results: list[CheckResult]
+    provenance: Provenance
+    cautions: list[str]
+    schema_version: str = SCHEMA_VERSION
+
+    def to_dict(self) -> dict[str, Any]:
+        return _clean(asdict(self))
+
+    def findings_frame(self):
+        """One row per outcome and check, as a pandas DataFrame (for notebooks)."""
+        import pandas as pd
+
+        rows = [
+            {
+                "study_id": self.study_id,
+                "outcome": r.outcome,
+                "outcome_label": r.outcome_label,
+                "check_id": r.check_id,
+                "check_title": r.check_title,
+                "verdict": r.verdict.value,
+                "headline": r.headline,
+                "reason": r.reason,
+            }
+            for r in self.results
+        ]
+        return pd.DataFrame(rows, columns=["study_id", "outcome", "outcome_label", "check_id",
+                                           "check_title", "verdict", "headline", "reason"])
+
+    def worst_verdict(self) -> Verdict | None:
+        if not self.results:
+            return None
+        return max((r.verdict for r in self.results), key=lambda v: v.rank)

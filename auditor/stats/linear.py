@@ -1,0 +1,85 @@
+"""Least-squares fits on explicit design matrices, and nested-model tests.
+
+Thin, well-defined wrappers over statsmodels OLS so that checks speak of named coefficients, their
+CIs and F tests, never of a fitted-model object.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import statsmodels.api as sm
+from scipy import stats
+
+
+@dataclass(frozen=True)
+class LinearFit:
+    names: tuple[str, ...]
+    coef: np.ndarray
+    se: np.ndarray
+    df_resid: float
+    rss: float
+    n: int
+    fitted: np.ndarray
+    resid: np.ndarray
+    loglik: float
+
+    def index(self, name: str) -> int:
+        return self.names.index(name)
+
+    def ci(self, name: str, level: float = 0.95) -> tuple[float, float, float]:
+        """(estimate, lower, upper) from the t distribution on the residual df."""
+        i = self.index(name)
+        q = stats.t.ppf(0.5 + level / 2, self.df_resid)
+        return float(self.coef[i]), float(self.coef[i] - q * self.se[i]), float(self.coef[i] + q * self.se[i])
+
+    def p_value(self, name: str) -> float:
+        i = self.index(name)
+        t = self.coef[i] / self.se[i]
+        return float(2 * stats.t.sf(abs(t), self.df_resid))
+
+    @property
+    def sigma(self) -> float:
+        return float(np.sqrt(self.rss / self.df_resid))
+
+
+def fit_ols(y, columns: dict[str, np.ndarray], intercept: bool = True) -> LinearFit:
+    """Ordinary least squares of ``y`` on named columns (an intercept is added first)."""
+    y = np.asarray(y, dtype=float)
+    names = (["(intercept)"] if intercept else []) + list(columns)
+    parts = ([np.ones(len(y))] if intercept else []) + [np.asarray(c, dtype=float) for c in columns.values()]
+    X = np.column_stack(parts)
+    if np.linalg.matrix_rank(X) < X.shape[1]:
+        raise ValueError("the design matrix is singular (a covariate is constant or collinear)")
+    if len(y) <= X.shape[1]:
+        raise ValueError(f"{len(y)} observations are too few for {X.shape[1]} parameters")
+    res = sm.OLS(y, X).fit()
+    return LinearFit(tuple(names), np.asarray(res.params), np.asarray(res.bse), float(res.df_resid),
+                     float(res.ssr), len(y), np.asarray(res.fittedvalues), np.asarray(res.resid),
+                     float(res.llf))
+
+
+@dataclass(frozen=True)
+class NestedTest:
+    statistic: float
+    df_num: int
+    df_den: float
+    p_value: float
+
+
+def f_test(reduced: LinearFit, full: LinearFit) -> NestedTest:
+    """F test of a reduced model nested in a full one: ((RSS0 - RSS1)/q) / (RSS1/df1)."""
+    q = int(round(reduced.df_resid - full.df_resid))
+    if q <= 0:
+        raise ValueError("the full model must have more parameters than the reduced one")
+    f = ((reduced.rss - full.rss) / q) / (full.rss / full.df_resid)
+    f = max(f, 0.0)
+    return NestedTest(float(f), q, full.df_resid, float(stats.f.sf(f, q, full.df_resid)))
+
+
+def arm_indicators(arm: np.ndarray, arms: list[str], control: str | None) -> dict[str, np.ndarray]:
+    """0/1 columns for each non-control arm (treatment coding against the control)."""
+    arm = np.asarray(arm, dtype=object)
+    ref = control if control is not None else arms[0]
+    return {f"arm[{a}]": (arm == a).astype(float) for a in arms if a != ref}
