@@ -38,6 +38,14 @@ REFERENCES: dict[str, str] = {
 }
 
 
+def add_reference(key: str, text: str) -> str:
+    """Register a reference from a check module (the same key must always carry the same text)."""
+    if key in REFERENCES and REFERENCES[key] != text:
+        raise ValueError(f"reference key '{key}' registered with two different texts")
+    REFERENCES[key] = text
+    return key
+
+
 def cite(keys) -> list[str]:
     """The keys, checked against the registry (a typo fails loudly in tests, never in a report)."""
     out = []

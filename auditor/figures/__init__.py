@@ -52,7 +52,12 @@ def kinds() -> list[str]:
 
 
 def _load():
-    from . import panels  # noqa: F401
+    """Import every drawing module in this package (each registers its kinds with @drawer)."""
+    import importlib
+    import pkgutil
+
+    for info in sorted(pkgutil.iter_modules(__path__), key=lambda m: m.name):
+        importlib.import_module(f"{__name__}.{info.name}")
 
 
 def to_svg(fig: Figure) -> str:
