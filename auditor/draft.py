@@ -99,7 +99,7 @@ def draft_metadata(data_files: list[Path], folder: Path) -> str:
         lines.append(f"control_arm = {_q(control)}  {CHECK} guessed from the labels")
     lines += [
         "blinded = false  # CHECK: true for a pooled report that shows nothing by arm",
-        '# analysis_date = "YYYY-MM-DD"',
+        '# analysis_date = 2026-01-31  # CHECK: the date to print on the report',
         "",
         "[files]",
         f"visits = {_q(rel(visits_path))}",

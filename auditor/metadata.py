@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import datetime as dt
 import hashlib
+import math
 import sys
 from pathlib import Path
 from typing import Literal, Optional, Union
@@ -162,13 +163,15 @@ class OutcomeSpec(_Strict):
 
     @property
     def lower_bound(self) -> Optional[float]:
-        if self.bounds is not None and self.bounds[0] is not None:
+        """The declared lower bound (``-inf`` counts as none), else the lowest ordinal level."""
+        if self.bounds is not None and self.bounds[0] is not None and math.isfinite(self.bounds[0]):
             return self.bounds[0]
         return self.levels[0] if self.levels else None
 
     @property
     def upper_bound(self) -> Optional[float]:
-        if self.bounds is not None and self.bounds[1] is not None:
+        """The declared upper bound (``inf`` counts as none), else the highest ordinal level."""
+        if self.bounds is not None and self.bounds[1] is not None and math.isfinite(self.bounds[1]):
             return self.bounds[1]
         return self.levels[-1] if self.levels else None
 

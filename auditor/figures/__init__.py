@@ -22,7 +22,7 @@ _DRAWERS: dict[str, Callable] = {}
 
 STYLE = {
     "svg.hashsalt": "auditor",
-    "svg.fonttype": "none",
+    "svg.fonttype": "path",
     "font.family": "DejaVu Sans",
     "font.size": 8.5,
     "axes.spines.top": False,

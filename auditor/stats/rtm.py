@@ -97,9 +97,14 @@ def sd_of_mean(sigma, rho, m: int = 1):
 
 def _mills(z):
     """``C(z) = phi(z) / (1 - Phi(z))``, the inverse Mills ratio, computed on the log scale so that
-    it stays accurate far in the upper tail."""
+    it stays accurate in the upper tail; beyond z = 1000, where the two logs cancel badly, from the
+    asymptotic series ``C(z) = z / (1 - z^-2 + 3 z^-4 - 15 z^-6 + ...)``."""
     z = np.asarray(z, dtype=float)
-    return np.exp(-0.5 * z * z - _HALF_LOG_2PI - special.log_ndtr(-z))
+    far = z > 1e3
+    safe = np.where(far, 0.0, z)
+    direct = np.exp(-0.5 * safe * safe - _HALF_LOG_2PI - special.log_ndtr(-safe))
+    w = 1.0 / np.where(far, z, 1.0) ** 2
+    return np.where(far, np.where(far, z, 0.0) / (1.0 - w + 3.0 * w * w - 15.0 * w**3), direct)
 
 
 def _selection_shift(mu, sd, cutoff, direction: str):
@@ -279,6 +284,11 @@ def _draw_on_truncation_scale(mu, sigma, cutoff, direction, spread: _Spread, rng
     ``C'(z) = C(z)(C(z) - z)``."""
     above = direction == "above"
     z = (cutoff - mu) / sigma if above else (mu - cutoff) / sigma
+    if z < -30:  # practically no one is excluded, delta underflows: draw (mu, log sigma) instead
+        cov = np.array([[spread.mu_sd**2, spread.mu_sigma_cov / sigma],
+                        [spread.mu_sigma_cov / sigma, (spread.sigma_sd / sigma) ** 2]])
+        draws = rng.standard_normal((n_draws, 2)) @ _psd_factor(cov).T
+        return mu + draws[:, 0], sigma * np.exp(draws[:, 1])
     c_z = float(_mills(z))
     dc_z = c_z * (c_z - z)
     delta = sigma * c_z
@@ -314,14 +324,15 @@ def _delta_se_log(mu, sigma, rho, cutoff, direction, m, spread: _Spread) -> floa
     """Delta-method SE of ``log|RTM|``: gradient by central differences, times the covariance of
     (mu, sigma, rho) on the natural scale with ``var(rho) = (rho_z_sd (1 - rho^2))^2``."""
     point = np.array([mu, sigma, rho], dtype=float)
-    steps = np.array([1e-5 * sigma, 1e-5 * sigma, 1e-6])
+    lowest = -1.0 if m == 1 else 0.0
+    # rho's steps stay inside its range; the difference is one-sided at a boundary
+    steps_up = np.array([1e-5 * sigma, 1e-5 * sigma, min(1e-6, 0.5 * (1.0 - rho))])
+    steps_down = np.array([1e-5 * sigma, 1e-5 * sigma, min(1e-6, 0.5 * (rho - lowest))])
     grad = np.empty(3)
     for i in range(3):
         up, down = point.copy(), point.copy()
-        up[i] += steps[i]
-        down[i] -= steps[i]
-        if i == 2:  # keep rho inside its admissible range
-            up[i], down[i] = min(up[i], 1.0), max(down[i], -1.0 if m == 1 else 0.0)
+        up[i] += steps_up[i]
+        down[i] -= steps_down[i]
         f_up = np.log(abs(_signed_rtm(*up, cutoff, direction, m)))
         f_down = np.log(abs(_signed_rtm(*down, cutoff, direction, m)))
         grad[i] = (f_up - f_down) / (up[i] - down[i])
@@ -350,9 +361,15 @@ def rtm_with_ci(mu: float, sigma: float, rho: float, cutoff: float, direction: s
 
     ``method="bootstrap"``: ``n_draws`` parametric draws of (mu, sigma, rho) from those
     distributions with ``seed``; the CI is the percentile interval of the RTM formula over the
-    draws. When SEs are supplied for mu and sigma the pair is drawn jointly normal on the
-    (mu, log sigma) scale, which keeps sigma positive. ``method="delta"``: estimate +/- z SE, with
-    the SE from the numerical gradient of the formula and the same covariance on the natural scale.
+    draws. When SEs are supplied for mu and sigma, the pair is drawn jointly normal on the
+    ``(log delta, log sigma)`` scale, ``delta = sigma C(z)`` the distance of the selected group's
+    mean from ``mu``, where ML estimates from a truncated sample are close to normal (on the
+    (mu, sigma) scale they are markedly skewed and a normal draw there under-covers).
+    ``method="delta"``: a symmetric interval for ``log|RTM|``, ``log|est| +/- z SE``, mapped back;
+    the SE comes from the numerical gradient of the formula and the covariance of
+    (mu, sigma, rho) on the natural scale.
+    For ``m > 1`` the inputs are single-reading ``mu`` and ``sigma``; a truncated fit to screening
+    means estimates ``sigma_m``, to be converted with ``sigma = sigma_m / sqrt(rho + (1 - rho)/m)``.
     The point estimate is always the formula at the supplied point values.
     """
     _check_common(mu, sigma, rho, cutoff, direction, m)
@@ -387,7 +404,7 @@ def rtm_with_ci(mu: float, sigma: float, rho: float, cutoff: float, direction: s
 
 _ALPHA_HI = 30.0
 _GRID = 241
-_GOLDEN_STEPS = 64
+_GOLDEN_STEPS = 40
 
 
 def _profile_tau(alpha, m1, m2):
