@@ -515,7 +515,8 @@ def fit_truncated_normal(values, lower: float | None = None, upper: float | None
     mu = sign * mu_reflected
     loglik = float(np.sum(-0.5 * u * u) - len(x) * (np.log(sigma) + _HALF_LOG_2PI + special.log_ndtr(-alpha)))
     return TruncatedNormalFit(float(mu), float(sigma), float(np.sqrt(cov[0, 0])), float(np.sqrt(cov[1, 1])),
-                              float(sign * cov[0, 1]), float(loglik), len(x), lower, upper,
+                              float(sign * cov[0, 1]), float(loglik), len(x),
+                              None if lower is None else float(lower), None if upper is None else float(upper),
                               bool(info_ok and not at_bound))
 
 

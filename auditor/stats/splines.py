@@ -29,6 +29,8 @@ class SplinePlan:
     """``spline`` or ``quadratic``."""
     knots: tuple[float, ...]
     reason: str
+    center: float = 0.0
+    """For a quadratic: the value the square is centred on (the sample mean), fixed with the plan."""
 
     @property
     def nonlinear_df(self) -> int:
@@ -56,12 +58,12 @@ def choose_knots(x: np.ndarray, n_knots: int | None = None) -> SplinePlan:
     x = x[np.isfinite(x)]
     distinct = np.unique(x)
     if len(distinct) < 6:
-        return SplinePlan("quadratic", (), f"{len(distinct)} distinct values: quadratic term")
+        return SplinePlan("quadratic", (), f"{len(distinct)} distinct values: quadratic term", float(np.mean(x)))
     k = n_knots or knot_count(len(x), len(distinct))
     knots = np.quantile(x, KNOT_QUANTILES[k], method="linear")
     knots = np.unique(knots)
     if len(knots) < 3:
-        return SplinePlan("quadratic", (), "quantile knots coincide: quadratic term")
+        return SplinePlan("quadratic", (), "quantile knots coincide: quadratic term", float(np.mean(x)))
     return SplinePlan("spline", tuple(float(v) for v in knots),
                       f"{len(knots)} knots at quantiles of {len(x)} values")
 
@@ -98,5 +100,5 @@ def flexible_basis(x: np.ndarray, plan: SplinePlan) -> np.ndarray:
     """Columns for a baseline under ``plan``: the spline basis, or x and a centred x squared."""
     x = np.asarray(x, dtype=float)
     if plan.kind == "quadratic":
-        return np.column_stack([x, (x - np.nanmean(x)) ** 2])
+        return np.column_stack([x, (x - plan.center) ** 2])
     return rcs_basis(x, plan.knots)
