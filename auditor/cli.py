@@ -164,6 +164,127 @@ def init(
     _guard(body)
 
 
+@app.command()
+def batch(
+    inputs: List[Path] = typer.Argument(..., help="Study folders, or text files listing one study folder per line."),
+    output: Path = typer.Option(..., "-o", "--output", help="Folder for the batch (one sub-folder per study)."),
+    jobs: int = typer.Option(0, "--jobs", "-j", help="Parallel processes (default: the number of cores)."),
+    force: bool = typer.Option(False, "--force", help="Replace a batch already in the output folder."),
+    fail_on: Optional[str] = typer.Option(None, "--fail-on",
+                                          help="Exit 3 if any study failed or any verdict is at least this bad: "
+                                               "failed, not assessable, caution or unsupported."),
+    blinded: Optional[bool] = typer.Option(None, "--blinded/--unblinded",
+                                           help="Force pooled (blinded) or by-arm audits for every study."),
+    analysis_date: Optional[str] = typer.Option(None, "--analysis-date", help="Date printed on every report."),
+    seed: Optional[int] = typer.Option(None, "--seed", help="Seed for every resampling (default: each study's)."),
+    paper: str = typer.Option("A4", "--paper", help="PDF page size: A4 or letter."),
+):
+    """Audit many studies in parallel: OUT/<study>/, OUT/index.html and OUT/summary.csv."""
+    from .batch import default_jobs, expand_inputs, gate_reached, index_view, run_batch, summary_csv
+    from .pipeline import CAUTIONS
+    from .render.html import render_view
+    from .render.output import write_file_atomically
+
+    levels = ("failed", "not assessable", "caution", "unsupported")
+
+    def body():
+        if fail_on is not None and fail_on not in levels:
+            err.print(f"--fail-on: '{fail_on}' is not a level. Fix: use one of {', '.join(levels)}.", markup=False)
+            raise typer.Exit(EXIT_INPUT)
+        if output.exists() and (output / "index.html").exists() and not force:
+            err.print(f"{output} already holds a batch. Fix: use --force or another folder.", markup=False)
+            raise typer.Exit(EXIT_INPUT)
+        folders = expand_inputs(inputs)
+        missing = [f for f in folders if not f.is_dir()]
+        if missing:
+            for f in missing:
+                err.print(f"{f}: is not a folder. Fix: give study folders or a manifest listing them.", markup=False)
+            raise typer.Exit(EXIT_INPUT)
+        options = {"blinded": blinded, "analysis_date": analysis_date, "seed": seed}
+        n_jobs = jobs or default_jobs()
+        results = _run_with_progress(folders, output, options, n_jobs, paper)
+        view = {**index_view(results, {**options, "paper": paper}), "cautions": CAUTIONS}
+        write_file_atomically(output / "index.html", render_view("batch_index.html.j2", view).encode("utf-8"))
+        write_file_atomically(output / "summary.csv", summary_csv(results).encode("utf-8"))
+        table = Table(title=f"batch: {len(results)} studies")
+        table.add_column("Study")
+        table.add_column("Status")
+        table.add_column("Findings")
+        for s in results:
+            table.add_row(s.study_id or s.name, s.status, s.error if s.status != "ok" else str(len(s.rows)))
+        out.print(table)
+        out.print(str(output / "index.html"), markup=False)
+        if fail_on is not None and gate_reached(results, fail_on):
+            raise typer.Exit(3)
+
+    _guard(body)
+
+
+def _run_with_progress(folders, output, options, n_jobs, paper):
+    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn, TimeRemainingColumn
+
+    from .batch import run_batch
+
+    outcomes_done = [0]
+    with Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), TextColumn("{task.fields[extra]}"),
+                  TimeElapsedColumn(), TimeRemainingColumn(), console=err, transient=False) as progress:
+        task = progress.add_task("studies", total=len(folders), extra="")
+
+        def tick(result):
+            outcomes_done[0] += result.n_outcomes
+            progress.update(task, advance=1, extra=f"{outcomes_done[0]} outcomes")
+
+        return run_batch(folders, output, options, n_jobs, paper=paper, progress=tick)
+
+
+@app.command()
+def compare(
+    old: Path = typer.Argument(..., help="findings.json of the earlier audit."),
+    new: Path = typer.Argument(..., help="findings.json of the later audit."),
+    html: Optional[Path] = typer.Option(None, "--html", help="Also write the comparison as an HTML page here."),
+    tolerance: float = typer.Option(1e-6, "--tolerance", help="Relative change below which a number has not moved."),
+):
+    """What changed between two audits of a study: verdicts, numbers, outcomes and checks."""
+    from .compare import compare_findings, comparison_view, load_findings
+    from .errors import ProblemLog
+    from .render.html import render_view
+
+    def body():
+        log = ProblemLog()
+        a, b = load_findings(old, log), load_findings(new, log)
+        log.raise_if_errors()
+        cmp = compare_findings(a, b, tolerance)
+        if cmp.unchanged:
+            out.print(f"No differences beyond a relative tolerance of {tolerance:g}.", markup=False)
+        for label, items in (("outcome added", cmp.outcomes_added), ("outcome removed", cmp.outcomes_removed)):
+            for o in items:
+                out.print(f"{label}: {o}", markup=False)
+        for label, items in (("check added", cmp.checks_added), ("check removed", cmp.checks_removed)):
+            for o, c in items:
+                out.print(f"{label}: {o} / {c}", markup=False)
+        if cmp.verdicts_moved:
+            t = Table(title="verdicts that moved")
+            for col in ("Outcome", "Check", "Before", "After"):
+                t.add_column(col)
+            for row in cmp.verdicts_moved:
+                t.add_row(*row)
+            out.print(t)
+        if cmp.numbers_moved:
+            from .render.view import number
+
+            t = Table(title=f"numbers that moved (relative tolerance {tolerance:g})")
+            for col in ("Outcome", "Check", "Quantity", "Part", "Before", "After"):
+                t.add_column(col)
+            for m in cmp.numbers_moved:
+                t.add_row(m.outcome, m.check_id, m.name, m.field, number(m.old), number(m.new))
+            out.print(t)
+        if html is not None:
+            html.write_text(render_view("compare.html.j2", comparison_view(cmp)), encoding="utf-8")
+            out.print(str(html), markup=False)
+
+    _guard(body)
+
+
 def main():  # console-script entry point
     app()
 

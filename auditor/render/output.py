@@ -73,6 +73,19 @@ def write_files_atomically(files: dict[str, bytes], out_dir: Path, force: bool =
     return [out_dir / name for name in files]
 
 
+def write_file_atomically(path: Path, content: bytes) -> None:
+    """Write one file through a temporary sibling and an atomic rename."""
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.partial-", dir=path.parent)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(content)
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+
+
 def write_audit(audit: Audit, out_dir: Path, force: bool = False, paper: str = "A4") -> list[Path]:
     check_target(Path(out_dir), force)
     return write_files_atomically(render_all(audit, paper), Path(out_dir), force)

@@ -1,0 +1,172 @@
+"""Audits of many studies at once, in parallel processes, one failing study never stopping the rest.
+
+Each study is audited and rendered in a worker process; results come back in input order, so no
+output depends on the number of jobs. The batch writes OUT/<study folder name>/ for each study,
+OUT/index.html (links and a cross-study summary) and OUT/summary.csv.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import os
+import re
+import time
+from concurrent.futures import ProcessPoolExecutor
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Callable
+
+from .errors import StudyInputError
+from .results import Verdict
+
+
+@dataclass(frozen=True)
+class StudyOutcome:
+    """What happened to one study of a batch."""
+
+    folder: str
+    name: str
+    status: str
+    """``ok`` or ``failed``."""
+    study_id: str = ""
+    error: str = ""
+    n_outcomes: int = 0
+    rows: list[dict] = field(default_factory=list)
+    """One row per outcome and check: outcome, check_id, verdict, headline."""
+
+
+def read_manifest(path: Path) -> list[Path]:
+    """Study folders listed one per line (blank lines and # comments ignored), relative to the file."""
+    out = []
+    for line in path.read_text(encoding="utf-8").splitlines():
+        line = line.split("#", 1)[0].strip()
+        if line:
+            p = Path(line)
+            out.append(p if p.is_absolute() else path.parent / p)
+    return out
+
+
+def expand_inputs(items: list[Path]) -> list[Path]:
+    """Folders as given; a file is read as a manifest of folders."""
+    out: list[Path] = []
+    for item in items:
+        out.extend(read_manifest(item) if item.is_file() else [item])
+    return out
+
+
+def output_names(folders: list[Path]) -> list[str]:
+    """A safe, unique sub-folder name per study (the folder's name; _2, _3 for repeats)."""
+    seen: dict[str, int] = {}
+    names = []
+    for f in folders:
+        base = re.sub(r"[^A-Za-z0-9._-]+", "_", Path(f).resolve().name or "study").strip("._") or "study"
+        seen[base] = seen.get(base, 0) + 1
+        names.append(base if seen[base] == 1 else f"{base}_{seen[base]}")
+    return names
+
+
+def audit_one(args: tuple) -> StudyOutcome:
+    """Worker: audit one study folder into ``target`` (all four files or none)."""
+    folder, name, target, options, paper = args
+    from .pipeline import AuditOptions, audit_study
+    from .render.output import write_audit
+    from .study import load_study
+
+    try:
+        study = load_study(folder)
+        audit = audit_study(study, AuditOptions(**options))
+        write_audit(audit, Path(target), force=True, paper=paper)
+    except StudyInputError as exc:
+        first = exc.problems[0].one_line()
+        more = f" (and {len(exc.problems) - 1} more)" if len(exc.problems) > 1 else ""
+        return StudyOutcome(str(folder), name, "failed", error=f"invalid input: {first}{more}")
+    except Exception as exc:  # a model or rendering failure confined to this study
+        return StudyOutcome(str(folder), name, "failed", error=f"{type(exc).__name__}: {exc}")
+    rows = [{"outcome": r.outcome, "check_id": r.check_id, "verdict": r.verdict.value, "headline": r.headline}
+            for r in audit.results]
+    return StudyOutcome(str(folder), name, "ok", audit.study_id, n_outcomes=len(audit.outcomes), rows=rows)
+
+
+def run_batch(folders: list[Path], out_dir: Path, options: dict, jobs: int, paper: str = "A4",
+              progress: Callable[[StudyOutcome], None] | None = None) -> list[StudyOutcome]:
+    """Audit every folder; results in input order whatever the number of jobs."""
+    out_dir.mkdir(parents=True, exist_ok=True)
+    names = output_names(folders)
+    tasks = [(str(f), n, str(out_dir / n), options, paper) for f, n in zip(folders, names)]
+    results: list[StudyOutcome | None] = [None] * len(tasks)
+    if jobs <= 1:
+        for i, t in enumerate(tasks):
+            results[i] = audit_one(t)
+            if progress:
+                progress(results[i])
+    else:
+        with ProcessPoolExecutor(max_workers=jobs) as pool:
+            futures = {pool.submit(audit_one, t): i for i, t in enumerate(tasks)}
+            from concurrent.futures import as_completed
+
+            for fut in as_completed(futures):
+                i = futures[fut]
+                results[i] = fut.result()
+                if progress:
+                    progress(results[i])
+    return [r for r in results if r is not None]
+
+
+SUMMARY_COLUMNS = ["study", "folder_name", "status", "outcome", "check_id", "verdict", "headline", "error"]
+
+
+def summary_csv(results: list[StudyOutcome]) -> str:
+    from .render.csvout import neutralise
+
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(SUMMARY_COLUMNS)
+    for s in results:
+        if s.status != "ok":
+            w.writerow([neutralise(c) for c in [s.study_id, s.name, s.status, "", "", "", "", s.error]])
+        for r in s.rows:
+            w.writerow([neutralise(c) for c in [s.study_id, s.name, s.status, r["outcome"], r["check_id"],
+                                                r["verdict"], r["headline"], ""]])
+    return buf.getvalue()
+
+
+def index_view(results: list[StudyOutcome], options: dict) -> dict:
+    """Display strings for OUT/index.html: one row per study, verdict counts by check."""
+    checks = sorted({r["check_id"] for s in results for r in s.rows})
+    verdicts = [v.value for v in Verdict]
+    studies = []
+    for s in results:
+        cells = []
+        for c in checks:
+            counts = {v: 0 for v in verdicts}
+            for r in s.rows:
+                if r["check_id"] == c:
+                    counts[r["verdict"]] += 1
+            cells.append(", ".join(f"{n} {v}" for v, n in counts.items() if n) or "–")
+        studies.append({"name": s.name, "study_id": s.study_id or "–", "status": s.status, "error": s.error,
+                        "link": f"{s.name}/audit.html" if s.status == "ok" else "", "cells": cells,
+                        "n_outcomes": s.n_outcomes})
+    totals = {v: sum(1 for s in results for r in s.rows if r["verdict"] == v) for v in verdicts}
+    return {"studies": studies, "checks": checks, "totals": list(totals.items()),
+            "n_ok": sum(s.status == "ok" for s in results), "n_failed": sum(s.status != "ok" for s in results),
+            "options": sorted((k, str(v)) for k, v in options.items())}
+
+
+def gate_reached(results: list[StudyOutcome], level: str) -> bool:
+    """True when any study failed (level 'failed' or any verdict level) or any verdict is at least
+    as bad as ``level`` (ranks: sound < not assessable < caution < unsupported)."""
+    if any(s.status != "ok" for s in results):
+        return True
+    if level == "failed":
+        return False
+    threshold = Verdict(level).rank
+    return any(Verdict(r["verdict"]).rank >= threshold for s in results for r in s.rows)
+
+
+def default_jobs() -> int:
+    return max(1, os.cpu_count() or 1)
+
+
+def elapsed_since(t0: float) -> float:
+    return time.monotonic() - t0
