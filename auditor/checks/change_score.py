@@ -21,7 +21,7 @@ from ..stats.efficiency import compare_with_ci, empirical_ratio
 from ..stats.linear import arm_indicators, fit_ols
 from ..stats.rtm import truncation_edge_test
 from ..stats.splines import choose_knots
-from .common import arms_present, complete_pairs, estimate, fmt, fmt_ci, fmt_p, result
+from .common import arms_present, complete_pairs, estimate, fmt, fmt_ci, fmt_p, result, thin
 from .prepost import baseline_slope
 from .registry import CheckContext, register
 
@@ -294,12 +294,13 @@ def repeated_caveat_and_fit(data, ctx, arms):
 # ----------------------------------------------------------------------------- figures
 
 
-def _figures(data, df, arms, flex_fit, plan, control):
+def _figures(data, df, arms, flex_fit, plan, seed):
     spec = data.spec
+    shown, note = thin(df.assign(fitted=flex_fit.fitted, resid=flex_fit.resid), seed)
     unit = f" ({spec.unit})" if spec.unit else ""
     b, f = df["baseline"].to_numpy(), df["followup"].to_numpy()
     grid = np.linspace(b.min(), b.max(), 80)
-    groups_fu = _groups(df, arms, "baseline", "followup")
+    groups_fu = _groups(shown, arms, "baseline", "followup")
     basis = spline_columns(grid, plan)
     names = flex_fit.names[1:]
     curves = []
@@ -317,15 +318,16 @@ def _figures(data, df, arms, flex_fit, plan, control):
                {"groups": groups_fu, "curves": curves, "smooth": {},
                 "xlabel": f"Baseline{unit}", "ylabel": f"Follow-up{unit}"},
                caption="Dashed: identity (the line a change score assumes, shifted by the effect). Solid: "
-                       "ANCOVA with a flexible baseline.", by_arm=by_arm),
+                       "ANCOVA with a flexible baseline." + note, by_arm=by_arm),
         Figure("change-vs-baseline", "scatter_xy", f"{spec.display_name}: change against baseline",
-               {"groups": _groups(df.assign(change=f - b), arms, "baseline", "change"), "hline": 0,
-                "xlabel": f"Baseline{unit}", "ylabel": f"Change{unit}"},
-               caption="A downward trend in both arms is expected from regression to the mean.", by_arm=by_arm),
+               {"groups": _groups(shown.assign(change=shown["followup"] - shown["baseline"]), arms, "baseline",
+                                  "change"), "hline": 0, "xlabel": f"Baseline{unit}", "ylabel": f"Change{unit}"},
+               caption="A downward trend in both arms is expected from regression to the mean." + note,
+               by_arm=by_arm),
         Figure("residuals", "scatter_xy", f"{spec.display_name}: residuals against fitted values",
-               {"groups": [{"label": "all", "x": flex_fit.fitted.tolist(), "y": flex_fit.resid.tolist()}],
+               {"groups": [{"label": "all", "x": shown["fitted"].tolist(), "y": shown["resid"].tolist()}],
                 "hline": 0, "xlabel": "Fitted follow-up (flexible ANCOVA)", "ylabel": "Residual"},
-               caption="A funnel shape suggests the wrong scale; a curve, a missed nonlinearity."),
+               caption="A funnel shape suggests the wrong scale; a curve, a missed nonlinearity." + note),
     ]
     markers = [{"x": v} for v in (spec.lower_bound, spec.upper_bound) if v is not None]
     figs.append(Figure("distributions", "histograms", f"{spec.display_name}: distributions",
@@ -429,7 +431,7 @@ def run(data, ctx: CheckContext):
             tables.append(repeated_caveat_and_fit(data, ctx, arms))
     verdict, headline = decide(data.spec.planned_analysis, parts, r)
     return result(check, data, verdict, headline, subfindings=[p.sub for p in parts.values()],
-                  estimates=estimates, tables=tables, figures=_figures(data, df, arms, flex_fit, plan, control),
+                  estimates=estimates, tables=tables, figures=_figures(data, df, arms, flex_fit, plan, ctx.seed),
                   caveats=caveats,
                   references=cite(["frison-pocock-1992", "clifton-2019", "vickers-altman-2001", "senn-2006",
                                    "harrell-2015", "box-cox-1964", "glejser-1969", "mchorney-tarlov-1995",

@@ -54,6 +54,19 @@ def arms_present(df: pd.DataFrame, data: OutcomeData, ctx: CheckContext) -> list
     return [a for a in data.arms if counts.get(a, 0) >= 2]
 
 
+MAX_FIGURE_POINTS = 2000
+"""Scatter figures draw at most this many participants (a seeded random subset beyond it), so that
+reports of large trials stay readable and quick to render; every statistic uses all participants."""
+
+
+def thin(df: pd.DataFrame, seed: int, limit: int = MAX_FIGURE_POINTS) -> tuple[pd.DataFrame, str]:
+    """A reproducible random subset of rows for drawing, and a caption note when one was taken."""
+    if len(df) <= limit:
+        return df, ""
+    idx = np.sort(np.random.default_rng(seed).choice(len(df), size=limit, replace=False))
+    return df.iloc[idx], f" Points: a random {limit:,} of {len(df):,} participants."
+
+
 def estimate(name: str, est: float, lo: float | None = None, hi: float | None = None,
              p: float | None = None, unit: str = "", note: str = "", by_arm: bool = False) -> Estimate:
     return Estimate(name, est, lo, hi, p, unit, note, by_arm)

@@ -18,7 +18,7 @@ from ..references import cite
 from ..results import Figure, SubFinding, Table, Verdict
 from ..stats.correlation import pearson, spearman
 from ..stats.linear import arm_indicators, fit_ols
-from .common import arms_present, complete_pairs, estimate, fmt, fmt_ci, result
+from .common import arms_present, complete_pairs, estimate, fmt, fmt_ci, result, thin
 from .registry import CheckContext, register
 
 CHECK_ID = "pre-post"
@@ -118,17 +118,18 @@ def run(data, ctx: CheckContext):
             why.append(f"r {fmt(pr.r)} is below 0.5")
         headline = f"Pre-post relationship departs from what a change score needs: {'; '.join(why)}."
 
+    shown, note = thin(df, ctx.seed)
     if arms:
-        groups = [{"label": a, "x": df.loc[df["arm"] == a, "baseline"].tolist(),
-                   "y": df.loc[df["arm"] == a, "followup"].tolist()} for a in arms]
+        groups = [{"label": a, "x": shown.loc[shown["arm"] == a, "baseline"].tolist(),
+                   "y": shown.loc[shown["arm"] == a, "followup"].tolist()} for a in arms]
     else:
-        groups = [{"label": "All participants", "x": b.tolist(), "y": f.tolist()}]
+        groups = [{"label": "All participants", "x": shown["baseline"].tolist(), "y": shown["followup"].tolist()}]
     sx, sy = smooth_curve(b, f)
     figure = Figure("prepost-scatter", "scatter_identity",
                     f"{data.spec.display_name}: follow-up against baseline",
                     {"groups": groups, "smooth": {"x": sx, "y": sy},
                      "xlabel": _axis(data.spec, "Baseline"), "ylabel": _axis(data.spec, "Follow-up")},
-                    caption="Dashed: identity line (follow-up = baseline). Solid: LOWESS smooth, pooled.",
+                    caption="Dashed: identity line (follow-up = baseline). Solid: LOWESS smooth, pooled." + note,
                     by_arm=bool(arms))
     return result(check, data, verdict, headline, subfindings=subs, estimates=estimates, tables=tables,
                   figures=[figure],

@@ -8,11 +8,11 @@ from matplotlib.path import Path
 
 from . import PALETTE, drawer
 
-_OCTAGON = np.linspace(0, 2 * np.pi, 9)[:-1]
+_DIAMOND = np.linspace(0, 2 * np.pi, 5)[:-1]
 
 
-def dots(ax, x, y, color, label=None, radius_pt: float = 1.7, alpha: float = 0.55):
-    """Scatter points drawn as one compound path of small octagons.
+def dots(ax, x, y, color, label=None, radius_pt: float = 2.0, alpha: float = 0.55):
+    """Scatter points drawn as one compound path of small diamonds.
 
     One SVG path with many sub-paths renders several times faster in the PDF engine than one
     element per point, and stays vector. Call after the axis limits are final.
@@ -29,11 +29,11 @@ def dots(ax, x, y, color, label=None, radius_pt: float = 1.7, alpha: float = 0.5
     n = len(x)
     if n == 0:
         return
-    verts = np.empty((n, 9, 2))
-    verts[:, :8, 0] = x[:, None] + rx * np.cos(_OCTAGON)
-    verts[:, :8, 1] = y[:, None] + ry * np.sin(_OCTAGON)
-    verts[:, 8] = verts[:, 0]
-    codes = np.tile([Path.MOVETO] + [Path.LINETO] * 7 + [Path.CLOSEPOLY], n)
+    verts = np.empty((n, 5, 2))
+    verts[:, :4, 0] = x[:, None] + rx * np.cos(_DIAMOND)
+    verts[:, :4, 1] = y[:, None] + ry * np.sin(_DIAMOND)
+    verts[:, 4] = verts[:, 0]
+    codes = np.tile([Path.MOVETO] + [Path.LINETO] * 3 + [Path.CLOSEPOLY], n)
     ax.add_patch(PathPatch(Path(verts.reshape(-1, 2), codes), facecolor=color, edgecolor="none",
                            alpha=alpha, label=label))
 
