@@ -285,6 +285,42 @@ def compare(
     _guard(body)
 
 
+@app.command()
+def selfcheck(
+    output: Path = typer.Option(..., "-o", "--output", help="Folder for the validation report."),
+    full: bool = typer.Option(False, "--full", help="At least 200 replicates per simulation (slow); default: quick."),
+    seed: int = typer.Option(20261201, "--seed", help="Base seed of the simulations."),
+    date: Optional[str] = typer.Option(None, "--date", help="Date printed on the report (default: today)."),
+    only: str = typer.Option("", "--only", help="Run only the cases whose id starts with this."),
+    force: bool = typer.Option(False, "--force", help="Replace a report already in the output folder."),
+):
+    """Run the validation suite on the installed tool: validation.html, validation.pdf, validation.json."""
+    from .render.html import render_view
+    from .render.output import OutputExists, write_files_atomically
+    from .render.pdf import html_to_pdf
+    from .selfcheck import run_selfcheck, selfcheck_view
+
+    def body():
+        if (output / "validation.json").exists() and not force:
+            raise OutputExists(f"{output} already holds a validation report; use --force to replace it")
+        with err.status("running validation cases") as status:
+            rep = run_selfcheck(full=full, seed=seed, date=date, only=only,
+                                progress=lambda cid: status.update(f"done: {cid}"))
+        html = render_view("selfcheck.html.j2", selfcheck_view(rep))
+        write_files_atomically({"validation.html": html.encode("utf-8"), "validation.pdf": html_to_pdf(html),
+                                "validation.json": rep.to_json().encode("utf-8")}, output, force=True)
+        n_pass = sum(c.passed for c in rep.reference + rep.simulation)
+        out.print(f"{n_pass} of {len(rep.reference) + len(rep.simulation)} cases pass ({rep.mode} mode).", markup=False)
+        for c in rep.reference + rep.simulation:
+            if not c.passed:
+                out.print(f"FAIL {c.id}: expected {c.expected}, obtained {c.obtained} ({c.detail})", markup=False)
+        out.print(str(output / "validation.html"), markup=False)
+        if not rep.passed:
+            raise typer.Exit(3)
+
+    _guard(body)
+
+
 def main():  # console-script entry point
     app()
 

@@ -1,0 +1,28 @@
+"""The validation cases shared with `auditor selfcheck`: every reference case passes, and the
+self-check command runs in quick mode."""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+from typer.testing import CliRunner
+
+from auditor.cli import app
+from auditor.validation.cases import reference_cases, run_reference
+
+
+@pytest.mark.parametrize("case", reference_cases(), ids=lambda c: c.id)
+def test_reference_case(case):
+    out = run_reference(case)
+    assert out.passed, out
+
+
+def test_selfcheck_quick_writes_report(tmp_path):
+    res = CliRunner().invoke(app, ["selfcheck", "-o", str(tmp_path / "v"), "--date", "2026-01-01",
+                                   "--only", "change-score/null/slope"])
+    assert res.exit_code in (0, 3), res.output
+    d = json.loads((tmp_path / "v" / "validation.json").read_text())
+    assert d["mode"] == "quick" and d["date"] == "2026-01-01"
+    assert [c["id"] for c in d["simulation"]] == ["change-score/null/slope"]
+    assert (tmp_path / "v" / "validation.pdf").read_bytes().startswith(b"%PDF")
