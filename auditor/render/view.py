@@ -62,6 +62,18 @@ def _svg_data_uri(svg: str) -> str:
     return "data:image/svg+xml;base64," + base64.b64encode(svg.encode("utf-8")).decode("ascii")
 
 
+def _is_p_column(name: str) -> bool:
+    return name.strip().lower() in ("p", "p value", "p-value") or name.strip().lower().startswith("p (")
+
+
+def table_view(t) -> dict:
+    """A table's cells as display strings; columns headed p are shown as p-values."""
+    fmt = [p_text if _is_p_column(c) else number for c in t.columns]
+    rows = [[fmt[i](c) if i < len(fmt) and isinstance(c, (int, float)) and not isinstance(c, bool) else number(c)
+             for i, c in enumerate(row)] for row in t.rows]
+    return {"title": t.title, "columns": t.columns, "note": t.note, "rows": rows}
+
+
 def result_view(r: CheckResult, figure_no: list[int]) -> dict:
     figs = []
     for f in r.figures:
@@ -81,8 +93,7 @@ def result_view(r: CheckResult, figure_no: list[int]) -> dict:
                         for s in r.subfindings],
         "estimates": [{"name": e.name, "value": number(e.value), "ci": _ci(e.lower, e.upper),
                        "p": p_text(e.p_value), "unit": e.unit, "note": e.note} for e in r.estimates],
-        "tables": [{"title": t.title, "columns": t.columns, "note": t.note,
-                    "rows": [[number(c) for c in row] for row in t.rows]} for t in r.tables],
+        "tables": [table_view(t) for t in r.tables],
         "figures": figs,
         "caveats": r.caveats,
         "references": r.references,
