@@ -34,7 +34,7 @@ from dataclasses import dataclass, field
 from typing import Sequence
 
 import numpy as np
-from scipy import linalg, optimize, sparse, special, stats
+from scipy import linalg, optimize, special, stats
 
 __all__ = [
     "OrdinalFitError",
@@ -59,14 +59,16 @@ __all__ = [
 
 _LN2 = math.log(2.0)
 _MAX_HALVINGS = 40
-# Standardised slope beyond which the iteration stops to test for separation:
-# an odds ratio of exp(50) per standard deviation of a covariate.
-_DIVERGENT_SLOPE = 50.0
-# Post-fit triggers for the exact separation test (screening thresholds, not
-# verdicts; the linear programme decides).
+# Screens that send a fit to the exact separation test (thresholds for running
+# the test, not verdicts: the linear programme decides).
 _SUSPECT_SLOPE = 10.0
 _SUSPECT_SE = 100.0
 _SUSPECT_LOG_PROB = -1e-8
+# Exact separation test: rounds of constraint generation and its tolerances
+# (the linear-programme solver's own feasibility tolerance is 1e-7).
+_SEPARATION_ROUNDS = 60
+_SEPARATION_FEASIBILITY = 1e-6
+_SEPARATION_OBJECTIVE = 1e-6
 
 
 class OrdinalFitError(ValueError):
@@ -216,7 +218,7 @@ class _Curvature:
         a_inv_h = self._solve_a(h_a)
         if self.s_chol is None:
             return a_inv_h, np.zeros(0)
-        x_b = linalg.cho_solve((self.s_chol, True), h_b - self.w.T @ a_inv_h)
+        x_b = linalg.cho_solve((self.s_chol, True), h_b - self.w.T @ h_a)
         return a_inv_h - self.w @ x_b, x_b
 
     def quad_form(self, g_alpha: np.ndarray, g_beta: np.ndarray) -> float:
@@ -227,25 +229,30 @@ class _Curvature:
         x_a, x_b = self._solve_internal(h_a, h_b)
         return float(h_a @ x_a + h_b @ x_b)
 
-    def beta_cov(self) -> np.ndarray:
-        p = self.scale.size
+    def slope_cov_internal(self) -> np.ndarray:
+        """S^{-1}, the slope block of J^{-1} on the internal scale."""
         if self.s_chol is None:
             return np.zeros((0, 0))
-        s_inv = linalg.cho_solve((self.s_chol, True), np.eye(p))
-        return s_inv / np.outer(self.scale, self.scale)
+        return _schur_inverse(self.s_chol)
+
+    def beta_cov(self) -> np.ndarray:
+        return self.slope_cov_internal() / np.outer(self.scale, self.scale)
 
     def linear_predictor_var(self, x: np.ndarray) -> np.ndarray:
-        """Var(alpha_j + x'beta) for every j, O(k p^2): diag(A^{-1}) + |L^{-1}(W_j - z)|^2."""
+        """Var(alpha_j + x'beta) for every j, O(k p^2): diag(A^{-1})_j + (W_j - z)' S^{-1} (W_j - z)."""
         if self.s_chol is None:
             return self.a_inv_diag.copy()
         z = (np.asarray(x, float) - self.center) / self.scale
-        m = linalg.solve_triangular(self.s_chol, (self.w - z).T, lower=True)
-        return self.a_inv_diag + np.einsum("ij,ij->j", m, m)
+        r = self.w - z
+        return self.a_inv_diag + np.einsum("ij,jk,ik->i", r, self.slope_cov_internal(), r)
 
 
 @dataclass(frozen=True, eq=False)
 class OrdinalFit:
-    """A converged proportional-odds fit, P(Y >= levels[j] | x) = expit(alpha[j-1] + x'beta).
+    """A proportional-odds fit, P(Y >= levels[j] | x) = expit(alpha[j-1] + x'beta).
+
+    Always converged unless the caller passed raise_on_nonconvergence=False
+    (then see ``converged`` and ``message``).
 
     ``alpha`` has k - 1 strictly decreasing entries (cut points in the
     logit P(Y <= y) = zeta - x'beta form are ``-alpha``). ``loglik`` is the
@@ -275,7 +282,7 @@ class OrdinalFit:
 
     @property
     def deviance(self) -> float:
-        """-2 loglik (relative to the saturated model for individual rows)."""
+        """-2 loglik."""
         return -2.0 * self.loglik
 
     @property
@@ -349,7 +356,21 @@ class _Data:
         return self.z.shape[1]
 
 
-def _as_outcome(y) -> np.ndarray:
+def _as_outcome(y) -> tuple[np.ndarray, np.ndarray | None]:
+    """Validated outcome values, plus the category labels when y is an ordered categorical.
+
+    An ordered (pandas) categorical is represented by its integer codes so that
+    its declared order, not the alphabetical order of its labels, ranks the
+    levels. Any other input is ranked by the natural sort of its values.
+    """
+    dtype = getattr(y, "dtype", None)
+    if getattr(dtype, "name", None) == "category":
+        if not dtype.ordered:
+            raise OrdinalFitError("y is an unordered categorical, so the order of its levels is undefined; make it ordered.")
+        codes = np.asarray(y.cat.codes if hasattr(y, "cat") else y.codes)
+        if np.any(codes < 0):
+            raise OrdinalFitError("y contains missing categories; remove them before fitting.", "nonfinite")
+        return codes, np.asarray(dtype.categories)
     y = np.asarray(y)
     if y.ndim != 1:
         raise OrdinalFitError(f"y must be one-dimensional, got shape {y.shape}.")
@@ -360,7 +381,18 @@ def _as_outcome(y) -> np.ndarray:
         missing = [v is None or (isinstance(v, float) and not math.isfinite(v)) for v in y]
         if any(missing):
             raise OrdinalFitError("y contains missing (None/NaN) values; remove them before fitting.", "nonfinite")
-    return y
+    return y, None
+
+
+def _encode_outcome(values: np.ndarray, categories: np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
+    """Sorted distinct observed levels and each row's 0-based level index (no empty categories)."""
+    try:
+        levels, codes = np.unique(values, return_inverse=True)
+    except TypeError as exc:
+        raise OrdinalFitError(f"y values cannot be sorted: {exc}.") from exc
+    if categories is not None:
+        levels = categories[levels]
+    return levels, codes.reshape(-1)
 
 
 def _as_design(X, n: int) -> np.ndarray:
@@ -442,18 +474,14 @@ def _check_rank(x: np.ndarray, names: tuple[str, ...]) -> tuple[np.ndarray, np.n
 
 
 def _prepare(y, X, weights, names) -> _Data:
-    y = _as_outcome(y)
-    n_all = y.size
+    values, categories = _as_outcome(y)
+    n_all = values.size
     x = _as_design(X, n_all)
     w = _as_weights(weights, n_all)
     names = _resolve_names(names, X, x.shape[1])
     keep = w > 0
-    y, x, w = y[keep], x[keep], w[keep]
-    try:
-        levels, codes = np.unique(y, return_inverse=True)
-    except TypeError as exc:
-        raise OrdinalFitError(f"y values cannot be sorted: {exc}.") from exc
-    codes = codes.reshape(-1)
+    x, w = x[keep], w[keep]
+    levels, codes = _encode_outcome(values[keep], categories)
     if levels.size < 2:
         raise OrdinalFitError(
             f"y has {levels.size} distinct value(s) among rows with positive weight; at least 2 are needed.", "levels"
@@ -488,7 +516,7 @@ def _prepare(y, X, weights, names) -> _Data:
 
 
 def _log1mexp(d: np.ndarray) -> np.ndarray:
-    """log(1 - exp(-d)) for d > 0, switching at log 2 (Maechler 2012, CRAN Rmpfr note)."""
+    """log(1 - exp(-d)) for d > 0, switching at log 2 (Maechler 2012, "Accurately computing log(1 - exp(-|a|))", Rmpfr vignette)."""
     d = np.asarray(d, dtype=float)
     out = np.empty_like(d)
     small = d <= _LN2
@@ -545,6 +573,16 @@ class _Evaluation:
     d_block: np.ndarray
 
 
+def _sum_by_category(data: _Data, *columns: np.ndarray) -> list[np.ndarray]:
+    """Sums within each outcome category of 1-d and 2-d per-row arrays (rows sorted by category)."""
+    if data.k == data.n:  # one row per category, as for a continuous outcome without ties
+        return list(columns)
+    widths = [1 if c.ndim == 1 else c.shape[1] for c in columns]
+    summed = np.add.reduceat(np.column_stack(columns), data.starts, axis=0)
+    edges = np.cumsum([0] + widths)
+    return [summed[:, lo] if c.ndim == 1 else summed[:, lo:hi] for c, lo, hi in zip(columns, edges[:-1], edges[1:])]
+
+
 def _evaluate(data: _Data, alpha: np.ndarray, b: np.ndarray) -> _Evaluation:
     """Log-likelihood, score and observed information (intercept block tridiagonal).
 
@@ -571,23 +609,17 @@ def _evaluate(data: _Data, alpha: np.ndarray, b: np.ndarray) -> _Evaluation:
     score_eta[up] = np.exp(log_f_neg_u)
     score_eta[lo] -= np.exp(log_f_v)
 
-    w = data.w
-    by_cat = lambda values: np.add.reduceat(values, data.starts, axis=0)  # noqa: E731
-    sum_a, sum_b = by_cat(w * a), by_cat(w * bb)
-    sum_fu, sum_fv, sum_ab = by_cat(w * f_u), by_cat(w * f_v), by_cat(w * a * bb)
-
+    w, z, p = data.w, data.z, data.p
+    wf_u, wf_v = w * f_u, w * f_v
+    sum_a, sum_b, sum_fu, sum_fv, sum_ab, sum_zfu, sum_zfv = _sum_by_category(
+        data, w * a, w * bb, wf_u, wf_v, w * a * bb, z * wf_u[:, None], z * wf_v[:, None]
+    )
     g_alpha = sum_a[1:] - sum_b[:-1]
     a_diag = (sum_fu + sum_ab)[1:] + (sum_fv + sum_ab)[:-1]
     a_off = -sum_ab[1:-1]
-    if data.p:
-        z = data.z
-        b_block = by_cat(z * (w * f_u)[:, None])[1:] + by_cat(z * (w * f_v)[:, None])[:-1]
-        g_beta = z.T @ (w * score_eta)
-        d_block = (z * (w * (f_u + f_v))[:, None]).T @ z
-    else:
-        b_block = np.zeros((data.k - 1, 0))
-        g_beta = np.zeros(0)
-        d_block = np.zeros((0, 0))
+    b_block = sum_zfu[1:] + sum_zfv[:-1]
+    g_beta = z.T @ (w * score_eta)
+    d_block = (z * (wf_u + wf_v)[:, None]).T @ z
     return _Evaluation(
         loglik=float(w @ t.logp),
         max_logp=float(t.logp.max()),
@@ -625,6 +657,11 @@ def _factorise(ev: _Evaluation) -> tuple[np.ndarray, np.ndarray, np.ndarray | No
     except linalg.LinAlgError as exc:
         raise _SingularInformation(str(exc)) from exc
     return a_chol, w, s_chol
+
+
+def _schur_inverse(s_chol: np.ndarray) -> np.ndarray:
+    """S^{-1} from its lower Cholesky factor (p x p, p small)."""
+    return linalg.cho_solve((s_chol, True), np.eye(s_chol.shape[0]), check_finite=False)
 
 
 def _newton_step(
@@ -666,49 +703,77 @@ def _tridiagonal_inverse_diagonal(a_chol: np.ndarray) -> np.ndarray:
 # --------------------------------------------------------------------------
 
 
-def _separation_direction(data: _Data) -> np.ndarray | None:
-    """Return a recession direction (da, db) of the log-likelihood, or None if none exists.
+def _separation_direction(data: _Data, hint: np.ndarray | None = None) -> np.ndarray | None:
+    """Return a slope direction d != 0 along which the log-likelihood never falls, or None.
 
-    Row i's term log(F(u_i) - F(v_i)) never decreases along d exactly when
-    du_i = da_c + z_i'db >= 0 and dv_i = da_{c+1} + z_i'db <= 0. With X of full
-    rank and every category observed, the only such direction with all
-    du_i = dv_i = 0 is d = 0, so the maximum-likelihood estimate is infinite
-    (complete or quasi-complete separation) iff max sum_i (du_i - dv_i) over the
-    box |d| <= 1 is positive (the linear-programming test of Konis 2007, DPhil
-    thesis, Oxford, extended here to cumulative links).
+    Row i's term log(F(u_i) - F(v_i)) never decreases along (da, db) exactly
+    when da_c + z_i'db >= 0 >= da_{c+1} + z_i'db. Eliminating da, such a
+    direction exists iff the score s = Z db satisfies
+    max_{i in category j-1} s_i <= min_{l in category j} s_l at every boundary j,
+    i.e. s is weakly ordered like Y; with X of full rank any db != 0 then
+    gives a strictly increasing likelihood, so the estimate is infinite
+    (complete or quasi-complete separation; Albert and Anderson 1984,
+    Biometrika 71:1-10, for the binary case). Existence is decided by the
+    linear programme max c'd over |d| <= 1 subject to (z_l - z_i)'d >= 0 for
+    adjacent-category pairs, where c sums z_l - z_i over all such pairs (so
+    c'd > 0 for every nonzero feasible d). The pair constraints are generated
+    lazily: solve with the pairs found so far, add the most violated pair at
+    every boundary the solution breaks, repeat. Each programme has only p
+    variables.
     """
-    m, p = data.k - 1, data.p
-    up_rows = np.arange(data.n)[data.upper]
-    lo_rows = np.arange(data.n)[data.lower]
-    n_up, n_lo = up_rows.size, lo_rows.size
-    rows = np.arange(n_up + n_lo)
-    cols = np.concatenate([data.upper_index, data.lower_index])
-    vals = np.concatenate([-np.ones(n_up), np.ones(n_lo)])
-    a_alpha = sparse.csr_matrix((vals, (rows, cols)), shape=(n_up + n_lo, m))
-    zz = np.vstack([-data.z[up_rows], data.z[lo_rows]])
-    a_ub = sparse.hstack([a_alpha, sparse.csr_matrix(zz)], format="csr")
-    # objective: maximise sum(du) - sum(dv) = -sum of the constraint rows
-    objective = np.asarray(a_ub.sum(axis=0)).ravel()
-    res = optimize.linprog(objective, A_ub=a_ub, b_ub=np.zeros(n_up + n_lo), bounds=(-1.0, 1.0), method="highs")
-    if res.status != 0:
+    if data.p == 0:
         return None
-    d = res.x
-    slack = a_ub @ d  # every entry should be <= 0
-    if slack.max() > 1e-6 or -slack.min() <= 1e-4:
+    z, starts, k = data.z, data.starts, data.k
+    counts = np.diff(np.append(starts, data.n)).astype(float)
+    sums = np.add.reduceat(z, starts, axis=0)
+    objective = (counts[:-1, None] * sums[1:] - counts[1:, None] * sums[:-1]).sum(axis=0)
+    scale = np.abs(objective).sum()
+    if scale == 0:
         return None
-    return d
+    objective = objective / scale
+    d = objective.copy() if hint is None else np.asarray(hint, float)
+    rows: list[np.ndarray] = []
+    for _ in range(_SEPARATION_ROUNDS):
+        s = z @ d
+        top = np.maximum.reduceat(s, starts)
+        bottom = np.minimum.reduceat(s, starts)
+        tol = _SEPARATION_FEASIBILITY * max(1.0, float(np.abs(s).max()))
+        violated = np.flatnonzero(top[:-1] - bottom[1:] > tol)
+        if rows and violated.size == 0:
+            return d if float(objective @ d) > _SEPARATION_OBJECTIVE else None
+        arg_top = _first_index_where(s == top[data.codes], data.codes, k)
+        arg_bottom = _first_index_where(s == bottom[data.codes], data.codes, k)
+        boundary = violated if violated.size else np.arange(k - 1)
+        rows.append(z[arg_bottom[boundary + 1]] - z[arg_top[boundary]])
+        res = optimize.linprog(
+            -objective, A_ub=-np.vstack(rows), b_ub=np.zeros(sum(r.shape[0] for r in rows)),
+            bounds=(-1.0, 1.0), method="highs",
+        )
+        if res.status != 0 or -res.fun <= _SEPARATION_OBJECTIVE:
+            return None
+        d = res.x
+    return None
 
 
-def _raise_if_separated(data: _Data) -> None:
-    d = _separation_direction(data)
+def _first_index_where(mask: np.ndarray, codes: np.ndarray, k: int) -> np.ndarray:
+    """For each category, the first row index (rows sorted by category) where mask holds."""
+    hits = np.flatnonzero(mask)
+    out = np.zeros(k, dtype=int)
+    cats, first = np.unique(codes[hits], return_index=True)
+    out[cats] = hits[first]
+    return out
+
+
+def _raise_if_separated(data: _Data, hint: np.ndarray | None = None) -> None:
+    d = _separation_direction(data, hint)
     if d is None:
         return
-    slopes = d[data.k - 1 :]
-    involved = [data.names[j] for j in np.flatnonzero(np.abs(slopes) > 1e-6)]
-    which = ", ".join(repr(s) for s in involved) if involved else "the intercepts"
+    involved = [data.names[j] for j in np.flatnonzero(np.abs(d) > 1e-6 * np.abs(d).max())]
+    which = ", ".join(repr(s) for s in involved)
     raise OrdinalFitError(
-        f"complete or quasi-complete separation: a combination of {which} orders the outcome perfectly for some "
-        "rows, so the likelihood has no finite maximum and at least one slope is infinite.",
+        f"complete or quasi-complete separation: a linear combination of {which} orders the outcome perfectly "
+        "(no row of a lower category scores above any row of the next), so the likelihood has no finite "
+        "maximum and at least one slope is infinite.",
         "separation",
     )
 
@@ -746,17 +811,86 @@ def _converged(rel_change: float, decrement: float, loglik: float, tol: float) -
 
 
 def _suspicious(ev: _Evaluation, b: np.ndarray, factors) -> bool:
-    """Cheap screens that send a converged fit to the exact separation test."""
+    """Cheap screens, applied to every iterate and to the final fit, that trigger the exact separation test."""
     if ev.max_logp > _SUSPECT_LOG_PROB:
         return True
     if b.size and np.max(np.abs(b)) > _SUSPECT_SLOPE:
         return True
     s_chol = factors[2]
     if s_chol is not None:
-        s_inv_diag = np.sum(linalg.solve_triangular(s_chol, np.eye(b.size), lower=True) ** 2, axis=0)
-        if np.max(np.sqrt(s_inv_diag)) > _SUSPECT_SE:
+        if np.max(np.sqrt(np.diag(_schur_inverse(s_chol)))) > _SUSPECT_SE:
             return True
     return False
+
+
+class _SeparationGuard:
+    """Runs the exact separation test at most once per data set (it depends on the data only)."""
+
+    def __init__(self, data: _Data) -> None:
+        self.data = data
+        self.checked = False
+
+    def check(self, hint: np.ndarray) -> None:
+        if not self.checked:
+            self.checked = True
+            _raise_if_separated(self.data, hint)
+
+
+@dataclass
+class _NewtonState:
+    alpha: np.ndarray
+    b: np.ndarray
+    ev: _Evaluation
+    factors: tuple
+    n_iter: int
+    converged: bool
+    message: str
+
+
+def _plural(count: int, word: str) -> str:
+    return f"{count} {word}" + ("" if count == 1 else "s")
+
+
+def _newton(data: _Data, max_iter: int, tol: float, guard: _SeparationGuard) -> _NewtonState:
+    """Newton-Raphson with step halving from the null-model estimate (alpha = empirical logits, b = 0)."""
+    alpha, b = _start_alpha(data), np.zeros(data.p)
+    rel_change = math.inf
+    n_iter = 0
+    while True:
+        ev = _evaluate(data, alpha, b)
+        try:
+            factors = _factorise(ev)
+        except _SingularInformation:
+            guard.check(b)
+            raise OrdinalFitError(
+                f"the information matrix became numerically singular after {_plural(n_iter, 'iteration')}, "
+                "so the Newton system cannot be solved.",
+                "nonconvergence",
+            ) from None
+        da, db, decrement = _newton_step(ev, factors)
+        state = _NewtonState(alpha, b, ev, factors, n_iter, False, "")
+        if _converged(rel_change, decrement, ev.loglik, tol):
+            state.converged, state.message = True, f"converged in {_plural(n_iter, 'iteration')}"
+            return state
+        if n_iter >= max_iter:
+            state.message = (
+                f"no convergence within {_plural(max_iter, 'Newton-Raphson iteration')} (relative log-likelihood "
+                f"change {rel_change:.2g}, Newton decrement {decrement:.2g})"
+            )
+            return state
+        if _suspicious(ev, b, factors):
+            guard.check(b)
+        step = _line_search(data, alpha, b, da, db, ev.loglik)
+        if step is None:
+            if decrement <= tol * (1.0 + abs(ev.loglik)):
+                state.converged = True
+                state.message = f"converged in {_plural(n_iter, 'iteration')} (no further increase possible)"
+            else:
+                state.message = f"step halving could not increase the log-likelihood at iteration {n_iter + 1}"
+            return state
+        alpha, b, new_loglik = step
+        rel_change = abs(new_loglik - ev.loglik) / (1.0 + abs(ev.loglik))
+        n_iter += 1
 
 
 def fit_proportional_odds(
@@ -787,58 +921,19 @@ def fit_proportional_odds(
     if not tol > 0:
         raise OrdinalFitError("tol must be positive.")
     data = _prepare(y, X, weights, names)
-    alpha = _start_alpha(data)
-    b = np.zeros(data.p)
-    loglik = _loglik(data, alpha, b)
-    rel_change = math.inf
-    n_iter = 0
-    converged = False
-    message = ""
-    while True:
-        ev = _evaluate(data, alpha, b)
-        loglik = ev.loglik
-        try:
-            factors = _factorise(ev)
-        except _SingularInformation:
-            _raise_if_separated(data)
-            raise OrdinalFitError(
-                f"the information matrix became singular at iteration {n_iter}, so the Newton system cannot be solved.",
-                "nonconvergence",
-            ) from None
-        da, db, decrement = _newton_step(ev, factors)
-        if _converged(rel_change, decrement, loglik, tol):
-            converged = True
-            message = f"converged in {n_iter} iterations"
-            break
-        if n_iter >= max_iter:
-            message = (
-                f"no convergence within {max_iter} Newton iterations (relative loglik change {rel_change:.2g}, "
-                f"Newton decrement {decrement:.2g})"
-            )
-            break
-        if b.size and np.max(np.abs(b)) > _DIVERGENT_SLOPE:
-            _raise_if_separated(data)
-        step = _line_search(data, alpha, b, da, db, loglik)
-        if step is None:
-            if decrement <= tol * (1.0 + abs(loglik)):
-                converged = True
-                message = f"converged in {n_iter} iterations (no further increase possible)"
-                break
-            message = f"step halving could not increase the log-likelihood at iteration {n_iter + 1}"
-            break
-        alpha, b, new_loglik = step
-        rel_change = abs(new_loglik - loglik) / (1.0 + abs(loglik))
-        n_iter += 1
-
-    if not converged or _suspicious(ev, b, factors):
-        _raise_if_separated(data)
-    if not converged and raise_on_nonconvergence:
-        raise OrdinalFitError(f"the proportional-odds fit did not converge: {message}.", "nonconvergence")
-    return _assemble(data, alpha, b, ev, factors, n_iter, converged, message)
+    guard = _SeparationGuard(data)
+    state = _newton(data, max_iter, tol, guard)
+    if not state.converged or _suspicious(state.ev, state.b, state.factors):
+        guard.check(state.b)
+    if not state.converged and raise_on_nonconvergence:
+        raise OrdinalFitError(f"the proportional-odds fit did not converge: {state.message}.", "nonconvergence")
+    return _assemble(data, state)
 
 
-def _assemble(data, alpha_c, b_c, ev, factors, n_iter, converged, message) -> OrdinalFit:
-    a_chol, w, s_chol = factors
+def _assemble(data: _Data, state: _NewtonState) -> OrdinalFit:
+    """Map the internal estimate and its factorised information to the reported scale."""
+    ev = state.ev
+    a_chol, w, s_chol = state.factors
     curvature = _Curvature(
         a_chol=a_chol,
         w=w,
@@ -847,13 +942,13 @@ def _assemble(data, alpha_c, b_c, ev, factors, n_iter, converged, message) -> Or
         center=data.center,
         scale=data.scale,
     )
-    beta = b_c / data.scale if data.p else np.zeros(0)
-    alpha = alpha_c - float(data.center @ beta)
+    beta = state.b / data.scale if data.p else np.zeros(0)
+    alpha = state.alpha - float(data.center @ beta)
     beta_cov = curvature.beta_cov()
     alpha_se = np.sqrt(curvature.linear_predictor_var(np.zeros(data.p)))
     g_beta = data.center * ev.g_alpha.sum() + data.scale * ev.g_beta if data.p else np.zeros(0)
     gradient_norm = float(np.max(np.abs(np.concatenate([ev.g_alpha, g_beta]))))
-    _, _, decrement = _newton_step(ev, factors)
+    _, _, decrement = _newton_step(ev, state.factors)
     return OrdinalFit(
         levels=data.levels,
         alpha=alpha,
@@ -863,13 +958,13 @@ def _assemble(data, alpha_c, b_c, ev, factors, n_iter, converged, message) -> Or
         beta_cov=beta_cov,
         names=data.names,
         loglik=ev.loglik,
-        n_iter=n_iter,
-        converged=converged,
+        n_iter=state.n_iter,
+        converged=state.converged,
         n=data.n,
         weight_total=float(data.w.sum()),
         gradient_norm=gradient_norm,
         newton_decrement=decrement,
-        message=message,
+        message=state.message,
         _curvature=curvature,
     )
 
@@ -1116,13 +1211,14 @@ def proportional_odds_check(
     if fit is None:
         fit = fit_proportional_odds(y, X, weights, names=names)
     j_arm = fit._index(arm_column)
-    y_arr = _as_outcome(y)
-    n_all = y_arr.size
+    values, categories = _as_outcome(y)
+    n_all = values.size
     w_arr = _as_weights(weights, n_all)
     x_arr = _as_design(X, n_all)
     keep = w_arr > 0
-    levels = fit.levels
-    codes = np.searchsorted(levels, y_arr[keep])
+    levels, codes = _encode_outcome(values[keep], categories)
+    if not np.array_equal(levels, fit.levels):
+        raise ValueError("the supplied fit does not have the levels of y.")
     per_level = np.bincount(codes, weights=w_arr[keep], minlength=levels.size)
     total = per_level.sum()
     po_log_or, po_se = float(fit.beta[j_arm]), float(fit.beta_se[j_arm])
