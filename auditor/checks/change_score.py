@@ -231,29 +231,56 @@ def analyses_table(df, arms, control, plan):
     return table, ests, ratio_anc, fits
 
 
-def ordinal_rows(df, arms, control, plan):
-    """Proportional-odds ANCOVA of follow-up on the flexible baseline plus arm, if the fitter is available."""
-    try:
-        from ..stats.ordinal import OrdinalFitError, fit_proportional_odds
-    except ImportError:
-        return [], "the proportional-odds fitter is not available"
+def ordinal_alternative(df, arms, control, plan):
+    """Proportional-odds ANCOVA of follow-up on the flexible baseline plus arm (McCullagh 1980).
+
+    Returns (rows for the analyses table, a table of clinician-scale translations, a reason when it
+    could not be fitted). Translations are taken at the median baseline: mean and median follow-up by
+    arm, the probability of exceeding the follow-up quartiles, the concordance probability, and the
+    descriptive proportional-odds check against binary fits at cut points.
+    """
+    from ..stats import ordinal as po
+
     cols = {**spline_columns(df["baseline"].to_numpy(), plan), **arm_indicators(df["arm"].to_numpy(), arms, control)}
     names = list(cols)
     X = np.column_stack([cols[k] for k in names])
+    y = df["followup"].to_numpy()
     try:
-        fit = fit_proportional_odds(df["followup"].to_numpy(), X, names=names)
-    except OrdinalFitError as exc:
-        return [], f"the proportional-odds ANCOVA could not be fitted: {exc}"
-    rows = []
-    for i, name in enumerate(names):
-        if name.startswith("arm["):
-            lo, hi = fit.beta[i] - 1.959964 * fit.beta_se[i], fit.beta[i] + 1.959964 * fit.beta_se[i]
-            z = fit.beta[i] / fit.beta_se[i]
-            from scipy import stats
+        fit = po.fit_proportional_odds(y, X, names=names)
+    except po.OrdinalFitError as exc:
+        return [], None, f"the proportional-odds ANCOVA could not be fitted: {exc.reason}"
+    ref = {k: v[0] for k, v in spline_columns(np.array([float(np.median(df["baseline"]))]), plan).items()}
+    rows, trans = [], []
+    quartiles = sorted(set(np.quantile(y, [0.25, 0.5, 0.75]).tolist()))
+    for arm_name in [k for k in names if k.startswith("arm[")]:
+        w = fit.wald(arm_name)
+        rows.append(["proportional-odds ANCOVA (log odds ratio)", arm_name[4:-1], w.estimate, w.se, w.lower, w.upper,
+                     w.p_value])
+        conc = po.concordance_exact(fit, _vector(names, ref, None), arm_name)
+        trans.append([f"{arm_name[4:-1]} vs {control}", "concordance probability", conc.estimate, conc.lower,
+                      conc.upper])
+        check = po.proportional_odds_check(y, X, arm_name, names=names, fit=fit)
+        trans.append([f"{arm_name[4:-1]} vs {control}", "proportional-odds check: heterogeneity chi-square "
+                      f"on {check.df} df (p {check.p_value:.3f}, approximate)", check.heterogeneity_chi2, None, None])
+    for arm in arms:
+        x = _vector(names, ref, arm)
+        mean, med = po.predicted_mean(fit, x), po.predicted_median(fit, x)
+        trans.append([arm, "mean follow-up at median baseline", mean.estimate, mean.lower, mean.upper])
+        trans.append([arm, "median follow-up at median baseline", med.estimate, med.lower, med.upper])
+        ex = po.prob_exceeds(fit, x, quartiles)
+        for t, pr, lo, hi in zip(ex.thresholds, ex.probability, ex.lower, ex.upper):
+            trans.append([arm, f"P(follow-up > {fmt(float(t))}) at median baseline", pr, lo, hi])
+    table = Table("ordinal-translation", "Proportional-odds ANCOVA on the outcome's own scale",
+                  ["Group", "Quantity", "Estimate", "lower", "upper"], trans,
+                  note="Model: P(follow-up >= y) = expit(alpha_y + s(baseline) + d arm); a positive log odds ratio "
+                       "means higher follow-up values on the active arm. Intervals by the delta method.",
+                  by_arm=True)
+    return rows, table, ""
 
-            rows.append(["proportional-odds ANCOVA (log odds ratio)", name[4:-1], float(fit.beta[i]),
-                         float(fit.beta_se[i]), float(lo), float(hi), float(2 * stats.norm.sf(abs(z)))])
-    return rows, ""
+
+def _vector(names, ref, arm):
+    return np.array([ref[k] if not k.startswith("arm[") else float(arm is not None and k == f"arm[{arm}]")
+                     for k in names])
 
 
 def heterogeneity_part(df, arms, control):
@@ -409,13 +436,17 @@ def run(data, ctx: CheckContext):
     tables, caveats = [], []
     if len(arms) > 1:
         table, ests, ratio_anc, _ = analyses_table(df, arms, control, plan)
-        awkward = any(parts[k].sub.verdict != Verdict.SOUND for k in ("bounds", "interval", "scale"))
+        awkward = (any(parts[k].sub.verdict != Verdict.SOUND for k in ("bounds", "interval", "scale"))
+                   or abs(skewness(df["followup"])) > SKEW_FOR_LOG)
+        po_table = None
         if awkward or data.spec.scale == "ordinal":
-            rows, why = ordinal_rows(df, arms, control, plan)
+            rows, po_table, why = ordinal_alternative(df, arms, control, plan)
             table.rows.extend(rows)
             if why:
                 caveats.append(why[0].upper() + why[1:] + ".")
         tables.append(table)
+        if po_table is not None:
+            tables.append(po_table)
         estimates += ests
         het_table, het_est, het_caveat = heterogeneity_part(df, arms, control)
         tables.append(het_table)
@@ -435,7 +466,7 @@ def run(data, ctx: CheckContext):
                   caveats=caveats,
                   references=cite(["frison-pocock-1992", "clifton-2019", "vickers-altman-2001", "senn-2006",
                                    "harrell-2015", "box-cox-1964", "glejser-1969", "mchorney-tarlov-1995",
-                                   "terwee-2007", "barnett-2005"]),
+                                   "terwee-2007", "barnett-2005", "mccullagh-1980"]),
                   method="Restricted cubic spline (Harrell knots) or quadratic for discrete baselines, F test against "
                          "linear; Glejser-type trend of absolute residuals and a Box-Cox profile likelihood (each at "
                          "2.5%); shares at bounds (15% threshold); slope CI against 1; Frison-Pocock efficiency with "
