@@ -1,0 +1,989 @@
+"""Regression to the mean: was the group selected on this outcome, and how much change does that alone produce?
+
+When participants enter because one reading lay beyond a cutoff, their mean on any later reading is
+expected to move back toward the population mean even with no treatment (Barnett, van der Pols and
+Dobson 2005). The check finds the selection (the entry criterion in study.toml, or a truncation edge
+in the screening or baseline distribution), chooses the scale on which the reading is close to
+normal, estimates the unselected population's mean and SD by the truncated-normal MLE and the
+reliability of one reading, computes the expected change with a confidence interval, and sets it
+beside the change actually observed (control arm; all participants in a single-arm audit; both arms
+pooled in a blinded one). The formulas live in :mod:`auditor.stats.rtm`; the rules and thresholds are
+module constants documented in docs/methods/regression-to-mean.md.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy import stats
+
+from ..references import REFERENCES, add_reference, cite
+from ..results import Estimate, Figure, SubFinding, Verdict
+from ..stats.diagnostics import skewness
+from ..stats.linear import fit_ols
+from ..stats.rtm import (bias_after_second_baseline, expected_rtm, fit_truncated_normal, icc_oneway,
+                         rtm_with_ci, shrunk_values, truncation_edge_test)
+from .common import estimate, fmt, fmt_p, result
+from .registry import CheckContext, NotAssessable, register
+
+CHECK_ID = "regression-to-mean"
+TITLE = "Regression to the mean"
+
+ALPHA = 0.05
+"""Family-wise level of the truncation-edge tests when no criterion is declared, split equally
+(Bonferroni) over the readings tested (convention)."""
+EDGE_MIN_DISTINCT = 20
+"""An edge test is run only on a reading with at least this many distinct values (as in the
+change-score check; convention of this tool)."""
+SKEW_FOR_LOG = 1.0
+"""Positive readings with skewness above this are searched for an edge on the log scale (the
+change-score check's rule, so both checks test the same values; convention of this tool)."""
+LOG_MARGIN = 2.0
+"""For sizing, the log scale is chosen only when its truncated-normal log-likelihood (with the
+Jacobian) beats the raw one by more than this, a likelihood ratio above e^2 = 7.4; near-ties stay on
+the raw scale, where the two give practically the same answer (convention of this tool)."""
+MIN_SELECTED = 20
+"""Fewest participants with the reading that decided entry for the truncated-normal fit (convention)."""
+MIN_PAIRS = 10
+"""Fewest complete pairs for a slope, an ICC or an observed mean change (convention)."""
+MATERIAL_SHARE = 0.10
+"""Expected RTM of at least this share of the observed change is material (convention of this tool)."""
+MATERIAL_SD = 0.10
+"""Expected RTM of at least this many population SDs is material (convention of this tool)."""
+VIOLATION_SHARE = 0.05
+"""More than this share of entry readings on the wrong side of the criterion is reported as the
+criterion not being honoured (convention of this tool)."""
+RHO_CAP = 0.99
+"""A reliability estimate above this (possible by chance when it is near 1) is capped here."""
+DRAWS_FULL, DRAWS_QUICK = 4000, 1000
+"""Parametric bootstrap draws for the CI of the expected RTM."""
+NULL_FULL, NULL_QUICK = 999, 499
+"""Null samples for the Monte Carlo p-value of the edge test."""
+CHANGE_PLANS = ("change", "percent-change", "responder")
+"""Planned analyses whose within-participant change carries the RTM bias directly."""
+
+_READINGS = ("screening", "entry_value", "baseline", "followup")
+
+def _reference(key: str, text: str) -> str:
+    """Use a reference already registered under ``key`` (by any module), else register it."""
+    return key if key in REFERENCES else add_reference(key, text)
+
+
+_reference("pearson-1903", "Pearson K. Mathematical contributions to the theory of evolution. XI. On the "
+           "influence of natural selection on the variability and correlation of organs. Philos Trans R Soc "
+           "Lond A 1903;200:1-66.")
+_reference("cohen-1991", "Cohen AC. Truncated and Censored Samples: Theory and Applications. Marcel Dekker, "
+           "1991.")
+_reference("goodman-1960", "Goodman LA. On the exact variance of products. J Am Stat Assoc 1960;55:708-713.")
+_reference("kelley-1947", "Kelley TL. Fundamentals of Statistics. Harvard University Press, 1947.")
+
+
+def _applies(spec, design) -> bool:
+    return spec.baseline_visit is not None
+
+
+# ----------------------------------------------------------------------------- records
+
+
+@dataclass(frozen=True)
+class Readings:
+    """One row per participant: each reading as a float array (NaN where missing), and the arm only
+    when the audit may read it (unblinded, parallel-group)."""
+
+    cols: dict[str, np.ndarray]
+    arm: np.ndarray | None
+
+    @classmethod
+    def of(cls, data, ctx) -> "Readings":
+        frame = data.frame
+        cols = {c: frame[c].to_numpy(float) for c in _READINGS if c in frame.columns}
+        arm = None if ctx.blinded or data.design == "single-arm" else frame["arm"].to_numpy(object)
+        return cls(cols, arm)
+
+    def has(self, column: str) -> bool:
+        return column in self.cols
+
+    def present(self, column: str) -> np.ndarray:
+        v = self.cols.get(column, np.array([]))
+        return v[np.isfinite(v)]
+
+    def subset(self, keep: np.ndarray) -> "Readings":
+        return Readings({c: v[keep] for c, v in self.cols.items()}, None if self.arm is None else self.arm[keep])
+
+    def complete(self, *columns: str, rows: np.ndarray | None = None) -> list[np.ndarray]:
+        """The named readings of participants who have all of them (within ``rows``)."""
+        ok = np.ones(len(next(iter(self.cols.values()))), bool) if rows is None else rows.copy()
+        for c in columns:
+            ok &= np.isfinite(self.cols[c])
+        return [self.cols[c][ok] for c in columns]
+
+
+@dataclass(frozen=True)
+class EdgeFinding:
+    """One truncation-edge test of one pre-treatment reading."""
+
+    column: str
+    visit: str
+    log: bool
+    test: object
+    level: float
+    edge: float
+    """The edge on the original scale (the sample minimum or maximum itself)."""
+
+    @property
+    def flagged(self) -> bool:
+        return self.test.p_value < self.level
+
+
+@dataclass(frozen=True)
+class Selection:
+    """The reading that decided entry, its cutoff (original scale) and the side that was kept."""
+
+    column: str
+    visit: str
+    cutoff: float
+    direction: str
+    source: str
+    """``criterion`` (declared in study.toml) or ``edge`` (found in the data)."""
+    operator: str
+
+
+@dataclass(frozen=True)
+class Scale:
+    """The analysis scale (log or raw), the reason for it and the truncated-normal fit on it."""
+
+    log: bool
+    reason: str
+    fit: object
+
+    def to(self, x):
+        x = np.asarray(x, dtype=float)
+        return np.log(x) if self.log else x
+
+
+@dataclass(frozen=True)
+class Reliability:
+    """Reliability of one reading used for the expected RTM, with where it came from."""
+
+    value: float
+    se: float | None
+    lower: float | None
+    upper: float | None
+    source: str
+    evidence: str
+    lower_bound: bool
+    by_arm: bool
+    other: str | None = None
+    """The second pre-treatment reading it was estimated from, if any."""
+    icc: object = None
+
+
+@dataclass(frozen=True)
+class Change:
+    """A mean change on the analysis scale with its t interval."""
+
+    mean: float
+    lower: float
+    upper: float
+    se: float
+    n: int
+    where: str
+    by_arm: bool
+
+
+@dataclass(frozen=True)
+class Interval:
+    """An expected change with its interval, on the analysis scale."""
+
+    estimate: float
+    lower: float
+    upper: float
+
+
+@dataclass(frozen=True)
+class Group:
+    """The participants whose change is compared: a row mask, how to name them, whether by arm."""
+
+    rows: np.ndarray
+    where: str
+    by_arm: bool
+
+
+@dataclass
+class Out:
+    """What the sections of the check accumulate."""
+
+    subfindings: list[SubFinding] = field(default_factory=list)
+    estimates: list[Estimate] = field(default_factory=list)
+    figures: list[Figure] = field(default_factory=list)
+    caveats: list[str] = field(default_factory=list)
+
+    def sub(self, id_, question, verdict, evidence, by_arm=False):
+        self.subfindings.append(SubFinding(id_, question, verdict, evidence, by_arm))
+
+
+# ----------------------------------------------------------------------------- selection
+
+
+def _visit_of(spec, column: str) -> str:
+    visit = {"screening": spec.screening_visit, "baseline": spec.baseline_visit,
+             "entry_value": spec.entry_criterion.visit if spec.entry_criterion else None}[column]
+    return str(visit)
+
+
+def criterion_column(spec) -> str:
+    """The column holding the reading the entry criterion was applied to (as study.outcome_data names it)."""
+    visit = spec.entry_criterion.visit
+    if visit == spec.baseline_visit:
+        return "baseline"
+    if spec.screening_visit is not None and visit == spec.screening_visit:
+        return "screening"
+    return "entry_value"
+
+
+def _edge_log(values: np.ndarray, spec) -> bool:
+    """Search for an edge on the log scale: as declared, else when positive with skewness > 1."""
+    if not np.all(values > 0):
+        return False
+    if spec.log_scale is not None:
+        return bool(spec.log_scale)
+    return bool(skewness(values) > SKEW_FOR_LOG)
+
+
+def _testable(values: np.ndarray) -> bool:
+    return len(values) >= MIN_PAIRS and len(np.unique(values)) >= EDGE_MIN_DISTINCT
+
+
+def edge_finding(values, column, spec, side, level, ctx) -> EdgeFinding | None:
+    """The truncation-edge likelihood-ratio test of one reading (None with too few distinct values)."""
+    if not _testable(values):
+        return None
+    use_log = _edge_log(values, spec)
+    test = truncation_edge_test(np.log(values) if use_log else values, side=side,
+                                n_null=NULL_QUICK if ctx.quick else NULL_FULL, seed=ctx.seed)
+    edge = float(np.min(values) if test.edge_side == "lower" else np.max(values))
+    return EdgeFinding(column, _visit_of(spec, column), use_log, test, level, edge)
+
+
+def _declared_selection(spec, rd: Readings, ctx) -> tuple[Selection, list[EdgeFinding]]:
+    """The declared criterion, with an edge test of the kept readings as corroboration."""
+    ec = spec.entry_criterion
+    column = criterion_column(spec)
+    values = rd.present(column)
+    if len(values) < MIN_SELECTED:
+        raise NotAssessable(f"only {len(values)} participants have the {_visit_of(spec, column)} reading the "
+                            f"entry criterion was applied to (at least {MIN_SELECTED} are needed)")
+    kept = values[values >= ec.value] if ec.direction == "above" else values[values <= ec.value]
+    side = "lower" if ec.direction == "above" else "upper"
+    found = edge_finding(kept, column, spec, side, ALPHA, ctx)
+    sel = Selection(column, _visit_of(spec, column), float(ec.value), ec.direction, "criterion", ec.operator)
+    return sel, [found] if found else []
+
+
+def find_selection(spec, rd: Readings, ctx) -> tuple[Selection | None, list[EdgeFinding]]:
+    """The declared entry criterion; else the pre-treatment reading with a significant truncation edge
+    (smallest p), each testable reading of screening and baseline tested at ALPHA / (number tested)."""
+    if spec.entry_criterion is not None:
+        return _declared_selection(spec, rd, ctx)
+    n_base = len(rd.present("baseline"))
+    if n_base < MIN_SELECTED:
+        raise NotAssessable(f"only {n_base} participants have a baseline value (at least {MIN_SELECTED} "
+                            f"are needed)")
+    columns = [c for c in ("screening", "baseline") if _testable(rd.present(c))]
+    level = ALPHA / max(len(columns), 1)
+    found = [edge_finding(rd.present(c), c, spec, "either", level, ctx) for c in columns]
+    flagged = sorted((f for f in found if f.flagged), key=lambda f: f.test.p_value)
+    if not flagged:
+        return None, found
+    f = flagged[0]
+    direction = "above" if f.test.edge_side == "lower" else "below"
+    return Selection(f.column, f.visit, f.edge, direction, "edge", ">=" if direction == "above" else "<="), found
+
+
+def selected(rd: Readings, sel: Selection) -> tuple[Readings, int]:
+    """Participants whose entry reading is on the kept side of the cutoff (a reading equal to the cutoff
+    counts as kept, since readings are rounded), and how many lie on the excluded side."""
+    s = rd.cols[sel.column]
+    has = np.isfinite(s)
+    ok = has & ((s >= sel.cutoff) if sel.direction == "above" else (s <= sel.cutoff))
+    work = rd.subset(ok)
+    if ok.sum() < MIN_SELECTED:
+        raise NotAssessable(f"only {int(ok.sum())} participants meet the entry cutoff (at least {MIN_SELECTED} "
+                            f"are needed)")
+    if np.ptp(work.cols[sel.column]) == 0:
+        raise NotAssessable("the entry reading is the same for every participant")
+    return work, int((has & ~ok).sum())
+
+
+# ----------------------------------------------------------------------------- scale and population
+
+
+def _fit(values_t: np.ndarray, cutoff_t: float, direction: str):
+    if direction == "above":
+        return fit_truncated_normal(values_t, lower=cutoff_t)
+    return fit_truncated_normal(values_t, upper=cutoff_t)
+
+
+def _positive(rd: Readings) -> bool:
+    return all(bool(np.all(rd.present(c) > 0)) for c in rd.cols)
+
+
+def choose_scale(spec, rd: Readings, sel: Selection) -> Scale:
+    """Log or raw scale for the normal model, and the truncated-normal fit of the entry reading on it.
+
+    Declared ``log_scale`` wins. Otherwise, when every reading and the cutoff are positive, the
+    truncated normal is fitted to the raw and to the log readings and compared on the original
+    scale: ``l_log - sum(log x)`` (the Jacobian of the log) against ``l_raw``; the log scale needs a
+    lead of more than LOG_MARGIN. Skewness alone cannot decide, because truncation skews a normal
+    sample (a normal cut at its mean has skewness 1.0).
+    """
+    s = rd.cols[sel.column]
+    can_log = _positive(rd) and sel.cutoff > 0
+    if spec.log_scale is not None:
+        if spec.log_scale and not can_log:
+            raise NotAssessable("log_scale is set but some readings or the cutoff are not positive")
+        scale = Scale(bool(spec.log_scale), "declared in study.toml", None)
+        return Scale(scale.log, scale.reason, _fit(scale.to(s), float(scale.to(sel.cutoff)), sel.direction))
+    raw = _fit(s, sel.cutoff, sel.direction)
+    if not can_log:
+        return Scale(False, "raw scale (not every reading is positive)", raw)
+    logged = _fit(np.log(s), math.log(sel.cutoff), sel.direction)
+    l_log = logged.loglik - float(np.sum(np.log(s)))
+    if logged.converged and (not raw.converged or l_log > raw.loglik + LOG_MARGIN):
+        why = ("the truncated normal fits only on the log scale" if not raw.converged else
+               f"log-likelihood {fmt(l_log, 1)} on the log scale against {fmt(raw.loglik, 1)} raw")
+        return Scale(True, why, logged)
+    why = (f"log-likelihood {fmt(raw.loglik, 1)} raw against {fmt(l_log, 1)} on the log scale"
+           if logged.converged else "the truncated normal fits only on the raw scale")
+    return Scale(False, why, raw)
+
+
+# ----------------------------------------------------------------------------- reliability
+
+
+def slope(y, x) -> tuple[float, float, float, float, int]:
+    """Least-squares slope of ``y`` on ``x``: (estimate, SE, lower, upper, n), t-based 95% CI.
+
+    Under a bivariate normal with equal SDs the slope of one reading on another is their correlation,
+    and selection on the regressor leaves the regression of the other reading on it unchanged
+    (Pearson 1903), so the slope is an unbiased reliability even in a selected sample, where the
+    correlation itself is attenuated.
+    """
+    fit = fit_ols(np.asarray(y, float), {"x": np.asarray(x, float)})
+    est, lo, hi = fit.ci("x")
+    return est, float(fit.se[fit.index("x")]), lo, hi, fit.n
+
+
+def other_reading(rd: Readings, sel: Selection) -> str | None:
+    """A pre-treatment reading other than the one that decided entry, nearest the analysis baseline."""
+    order = {"baseline": ("screening",), "screening": ("baseline",), "entry_value": ("baseline", "screening")}
+    for column in order[sel.column]:
+        if rd.has(column) and len(rd.complete(column, sel.column)[0]) >= MIN_PAIRS:
+            return column
+    return None
+
+
+def comparison_group(data, ctx, rd: Readings) -> Group:
+    """Participants whose change is compared with the expected RTM: the control arm (parallel,
+    unblinded; by arm), both arms pooled (blinded; the arm is not read) or everyone (single-arm)."""
+    everyone = np.ones(len(rd.cols["baseline"]), bool)
+    if data.design == "single-arm":
+        return Group(everyone, "in all participants", False)
+    if ctx.blinded:
+        return Group(everyone, "in both arms pooled", False)
+    return Group(rd.arm == data.control_arm, f"on {data.control_arm}", True)
+
+
+def _pair_reliability(rd, scale, sel, other, spec, level) -> Reliability:
+    s, o = (scale.to(v) for v in rd.complete(sel.column, other))
+    est, se, lo, hi, n = slope(o, s)
+    icc = icc_oneway(s, o, level=level)
+    evidence = (f"slope of {_visit_of(spec, other)} on {sel.visit} in {n} selected participants "
+                f"{fmt(est)} ({fmt(lo)} to {fmt(hi)}), unbiased under selection on {sel.visit}; "
+                f"ICC(1) of the same pairs {fmt(icc.estimate)} ({fmt(icc.lower)} to {fmt(icc.upper)}), "
+                f"a lower bound because selection narrows the range")
+    return Reliability(est, se, lo, hi, "pre-treatment pair", evidence, False, False, other, icc)
+
+
+def _followup_reliability(data, ctx, rd, scale, sel) -> Reliability:
+    group = comparison_group(data, ctx, rd)
+    s, f = rd.complete(sel.column, "followup", rows=group.rows)
+    if len(s) < MIN_PAIRS:
+        raise NotAssessable(f"no second pre-treatment reading, no declared reliability, and only {len(s)} "
+                            f"participants {group.where} with a follow-up value to estimate it from")
+    est, se, lo, hi, n = slope(scale.to(f), scale.to(s))
+    extra = "" if group.by_arm else " and any variation between participants in the response to treatment"
+    evidence = (f"slope of follow-up on {sel.visit} {group.where} ({n} participants) {fmt(est)} ({fmt(lo)} to "
+                f"{fmt(hi)}): a lower bound for the reliability, since it also includes true change over "
+                f"follow-up{extra}")
+    return Reliability(est, se, lo, hi, f"follow-up {group.where}", evidence, True, group.by_arm)
+
+
+def choose_reliability(data, ctx, rd, scale, sel) -> Reliability:
+    """A second pre-treatment reading (selection-corrected slope), else the declared value, else the
+    slope of follow-up on the entry reading (a lower bound)."""
+    spec = data.spec
+    other = other_reading(rd, sel)
+    if other is not None:
+        rel = _pair_reliability(rd, scale, sel, other, spec, ctx.level)
+    elif spec.reliability is not None:
+        rel = Reliability(float(spec.reliability), None, None, None, "declared",
+                          f"declared in study.toml: {fmt(spec.reliability)} (treated as known)", False, False)
+    else:
+        rel = _followup_reliability(data, ctx, rd, scale, sel)
+    if rel.value <= 0:
+        raise NotAssessable(f"the reliability estimate is {fmt(rel.value)}: the readings share no stable "
+                            f"level, so the normal model of regression to the mean does not apply")
+    return rel
+
+
+def _capped(rel: Reliability, out: Out) -> float:
+    if rel.value > RHO_CAP:
+        out.caveats.append(f"The reliability estimate {fmt(rel.value, 3)} was capped at {RHO_CAP} for the "
+                           f"expected change and its interval.")
+        return RHO_CAP
+    return rel.value
+
+
+# ----------------------------------------------------------------------------- expected and observed
+
+
+def expected_change(fit, rho: float, rho_se: float | None, cutoff_t: float, direction: str, ctx):
+    """Barnett et al. (2005) expected change with a parametric-bootstrap CI carrying the uncertainty
+    of the truncated-normal fit (mu, sigma and their covariance) and of the reliability."""
+    kw = {} if rho_se is None else {"rho_se": rho_se}
+    return rtm_with_ci(fit.mu, fit.sigma, rho, cutoff_t, direction, mu_se=fit.se_mu, sigma_se=fit.se_sigma,
+                       mu_sigma_cov=fit.cov_mu_sigma, level=ctx.level,
+                       n_draws=DRAWS_QUICK if ctx.quick else DRAWS_FULL, seed=ctx.seed, **kw)
+
+
+def mean_change(d, where: str, by_arm: bool, level: float) -> Change:
+    """Mean of the differences ``d`` with its t interval."""
+    d = np.asarray(d, dtype=float)
+    n = len(d)
+    se = float(np.std(d, ddof=1) / np.sqrt(n))
+    q = stats.t.ppf(0.5 + level / 2, n - 1)
+    m = float(np.mean(d))
+    return Change(m, m - q * se, m + q * se, se, n, where, by_arm)
+
+
+def observed_change(data, ctx, rd, scale) -> Change:
+    group = comparison_group(data, ctx, rd)
+    b, f = rd.complete("baseline", "followup", rows=group.rows)
+    if len(b) < MIN_PAIRS:
+        raise NotAssessable(f"only {len(b)} participants {group.where} have a baseline and a follow-up value "
+                            f"(at least {MIN_PAIRS} are needed)")
+    d = scale.to(f) - scale.to(b)
+    if np.ptp(d) == 0:
+        raise NotAssessable("the change from baseline is the same for every participant")
+    return mean_change(d, group.where, group.by_arm, ctx.level)
+
+
+def pre_treatment_change(rd, scale, sel, rel, spec, level) -> Change | None:
+    """Mean of (other pre-treatment reading - entry reading): RTM with no treatment at all. Not
+    independent of the slope-based reliability; it checks the fitted population mean."""
+    if rel.other is None:
+        return None
+    s, o = rd.complete(sel.column, rel.other)
+    return mean_change(scale.to(o) - scale.to(s), f"{_visit_of(spec, rel.other)} minus {sel.visit}", False, level)
+
+
+def selection_shift_se(fit, cutoff_t: float, direction: str) -> tuple[float, float]:
+    """``e = E[S - mu | selected]`` at the fit (signed) and its delta-method SE from the fit's
+    covariance; ``e`` is minus the expected RTM at reliability 0."""
+    def e(mu, sigma):
+        return -expected_rtm(mu, sigma, 0.0, cutoff_t, direction)
+
+    h = 1e-5 * fit.sigma
+    grad = np.array([(e(fit.mu + h, fit.sigma) - e(fit.mu - h, fit.sigma)) / (2 * h),
+                     (e(fit.mu, fit.sigma + h) - e(fit.mu, fit.sigma - h)) / (2 * h)])
+    cov = np.array([[fit.se_mu ** 2, fit.cov_mu_sigma], [fit.cov_mu_sigma, fit.se_sigma ** 2]])
+    return e(fit.mu, fit.sigma), float(np.sqrt(max(grad @ cov @ grad, 0.0)))
+
+
+def residual_bias(data, ctx, rd, scale, sel) -> tuple[Interval, Group]:
+    """Expected bias of change from a baseline taken after the entry reading S.
+
+    ``E[F - B | S selected] = (rho_SF - rho_SB) e`` (bias_after_second_baseline, m = 1), with the two
+    correlations estimated as slopes on S (unbiased under selection on S); their difference is the
+    slope of ``F - B`` on S, with its OLS SE. The CI is normal with the product variance
+    ``e^2 var(b) + b^2 var(e) + var(b) var(e)`` (Goodman 1960).
+    """
+    group = comparison_group(data, ctx, rd)
+    s, b, f = (scale.to(v) for v in rd.complete(sel.column, "baseline", "followup", rows=group.rows))
+    if len(s) < MIN_PAIRS:
+        raise NotAssessable(f"only {len(s)} participants {group.where} have the entry reading, a baseline and a "
+                            f"follow-up value (at least {MIN_PAIRS} are needed)")
+    rho_sb, rho_sf = slope(b, s)[0], slope(f, s)[0]
+    diff, diff_se = slope(f - b, s)[:2]
+    fit, cut = scale.fit, float(scale.to(sel.cutoff))
+    bias = bias_after_second_baseline(fit.mu, fit.sigma, cut, rho_screen_second=float(np.clip(rho_sb, -1, 1)),
+                                      rho_screen_followup=float(np.clip(rho_sf, -1, 1)),
+                                      direction=sel.direction).second_baseline_bias
+    e, e_se = selection_shift_se(fit, cut, sel.direction)
+    se = math.sqrt(e ** 2 * diff_se ** 2 + diff ** 2 * e_se ** 2 + diff_se ** 2 * e_se ** 2)
+    q = stats.norm.ppf(0.5 + ctx.level / 2)
+    return Interval(bias, bias - q * se, bias + q * se), group
+
+
+def second_baseline_share(data, ctx, rd, scale, sel, rel, rho, out: Out) -> float | None:
+    """Share of the RTM bias a second, later baseline would remove (bias_after_second_baseline): all of
+    it under stable true levels; ``(1 - rho) / (1 - rho_BF)`` when the follow-up correlates less with
+    the entry reading than a repeat reading does (rho_BF: slope of follow-up on it in the comparison
+    group)."""
+    if sel.column != "baseline":
+        return None
+    fit, cut = scale.fit, float(scale.to(sel.cutoff))
+    stable = bias_after_second_baseline(fit.mu, fit.sigma, cut, rho_screen_second=rho, direction=sel.direction)
+    share, by_arm = stable.share_removed, rel.by_arm
+    note = "true levels stable between the entry reading and follow-up"
+    group = comparison_group(data, ctx, rd)
+    b, f = rd.complete("baseline", "followup", rows=group.rows)
+    if not rel.lower_bound and len(b) >= MIN_PAIRS:
+        rho_bf = slope(scale.to(f), scale.to(b))[0]
+        if 0 < rho_bf < rho:
+            decay = bias_after_second_baseline(fit.mu, fit.sigma, cut, rho_screen_second=rho,
+                                               rho_screen_followup=rho_bf, direction=sel.direction)
+            out.estimates.append(estimate("Share of the bias a second baseline removes, true levels stable",
+                                          100 * stable.share_removed, unit="%", by_arm=rel.by_arm))
+            share, by_arm = decay.share_removed, rel.by_arm or group.by_arm
+            note = (f"with the slope of follow-up on {sel.visit} {group.where}, {fmt(rho_bf)}, below the "
+                    f"reliability {fmt(rho)}: part of the selection carries over to a second baseline")
+    out.estimates.append(estimate("Share of the bias a second, later baseline would remove", 100 * share,
+                                  unit="%", note=note, by_arm=by_arm))
+    return float(share)
+
+
+# ----------------------------------------------------------------------------- formatting
+
+
+def _pct(x: float) -> float:
+    return 100.0 * (math.exp(x) - 1.0)
+
+
+def amount(x: float, lo: float, hi: float, scale: Scale, unit: str) -> str:
+    """'a fall of 13% (7% to 29%)' on the log scale, 'a rise of 2.10 mmHg (1.20 to 3.00)' on the raw
+    one; an interval that includes no change is written signed."""
+    conv = _pct if scale.log else float
+    v, a, b = conv(x), conv(lo), conv(hi)
+    u = "" if scale.log or not unit else f" {unit}"
+    if a <= 0 <= b:
+        if scale.log:
+            return f"a change of {v:+.0f}% ({a:+.0f}% to {b:+.0f}%)"
+        return f"a change of {fmt(v)}{u} ({fmt(a)} to {fmt(b)})"
+    word = "fall" if v < 0 else "rise"
+    m1, m2 = sorted((abs(a), abs(b)))
+    if scale.log:
+        return f"a {word} of {abs(v):.0f}% ({m1:.0f}% to {m2:.0f}%)"
+    return f"a {word} of {fmt(abs(v))}{u} ({fmt(m1)} to {fmt(m2)})"
+
+
+def value_text(x: float, scale: Scale, unit: str) -> str:
+    """A signed change for prose: a percentage on the log scale, else the value and unit."""
+    if scale.log:
+        return f"{_pct(x):+.0f}%"
+    return f"{x:+.3g}" + (f" {unit}" if unit else "")
+
+
+def _criterion_text(spec, sel: Selection, finds: list[EdgeFinding]) -> str:
+    unit = f" {spec.unit}" if spec.unit else ""
+    if sel.source == "criterion":
+        where = ", the analysis baseline" if sel.column == "baseline" else ""
+        return f"Entry required {spec.param} {sel.operator} {sel.cutoff:g}{unit} at {sel.visit}{where}"
+    f = next(x for x in finds if x.column == sel.column)
+    return (f"{sel.visit} has a sharp {f.test.edge_side} edge at {fmt(sel.cutoff)}{unit} "
+            f"({fmt_p(f.test.p_value)}), as if entry required {spec.param} {sel.operator} {fmt(sel.cutoff)}")
+
+
+def _unit_label(spec, visit) -> str:
+    return f"{visit}{f' ({spec.unit})' if spec.unit else ''}"
+
+
+# ----------------------------------------------------------------------------- sections
+
+
+def selection_section(sel, finds, n_kept, n_excluded, out: Out) -> None:
+    q = "Were participants selected on this outcome?"
+    tests = "; ".join(f"{f.visit}{' (log scale)' if f.log else ''}: edge LR {fmt(f.test.statistic)}, "
+                      f"{fmt_p(f.test.p_value)}, {f.test.edge_side} edge at {fmt(f.edge)}" for f in finds)
+    for f in finds:
+        out.estimates.append(estimate(f"Truncation-edge test of {f.visit}{' (log scale)' if f.log else ''}, "
+                                      f"likelihood-ratio statistic", f.test.statistic, p=f.test.p_value,
+                                      note=f"{f.test.edge_side} edge at {fmt(f.edge)}; tested at level "
+                                           f"{f.level:g}"))
+    if sel is None:
+        out.sub("selection", q, Verdict.SOUND,
+                f"no entry criterion declared; no truncation edge ({tests or 'too few distinct values to test'})")
+        return
+    if sel.source == "criterion":
+        ev = f"entry criterion {sel.visit} {sel.operator} {sel.cutoff:g}" + (f"; in the data: {tests}" if tests else "")
+    else:
+        ev = f"no entry criterion declared, but {tests}"
+    out.sub("selection", q, Verdict.CAUTION, ev)
+    out.estimates.append(estimate(f"Participants with the entry reading ({sel.visit}) meeting the cutoff",
+                                  float(n_kept)))
+    if n_excluded:
+        share = n_excluded / (n_excluded + n_kept)
+        out.estimates.append(estimate("Entry readings on the excluded side of the cutoff (left out)",
+                                      float(n_excluded)))
+        out.sub("criterion-honoured", "Do the entry readings honour the criterion?",
+                Verdict.CAUTION if share > VIOLATION_SHARE else Verdict.SOUND,
+                f"{n_excluded} of {n_excluded + n_kept} ({share:.0%}) lie on the excluded side; they are left "
+                f"out of this check")
+
+
+def population_section(spec, scale, sel, out: Out) -> None:
+    fit = scale.fit
+    q = stats.norm.ppf(0.975)
+    lo, hi = fit.mu - q * fit.se_mu, fit.mu + q * fit.se_mu
+    s_lo, s_hi = fit.sigma - q * fit.se_sigma, fit.sigma + q * fit.se_sigma
+    if scale.log:
+        out.estimates += [
+            estimate("Geometric mean of the unselected population (truncated-normal MLE)", math.exp(fit.mu),
+                     math.exp(lo), math.exp(hi), unit=spec.unit, note="Wald interval on the log scale"),
+            estimate("SD of log values in the unselected population", fit.sigma, s_lo, s_hi)]
+    else:
+        out.estimates += [
+            estimate("Mean of the unselected population (truncated-normal MLE)", fit.mu, lo, hi, unit=spec.unit,
+                     note="Wald interval"),
+            estimate("SD of the unselected population", fit.sigma, s_lo, s_hi, unit=spec.unit)]
+    cut = float(scale.to(sel.cutoff))
+    kept = stats.norm.sf(cut, fit.mu, fit.sigma) if sel.direction == "above" else stats.norm.cdf(cut, fit.mu, fit.sigma)
+    out.estimates.append(estimate("Share of the unselected population meeting the cutoff (fitted)",
+                                  100 * float(kept), unit="%"))
+    out.sub("scale", "On which scale is the reading close to normal?", Verdict.SOUND,
+            f"{'log' if scale.log else 'raw'} scale: {scale.reason}")
+
+
+def reliability_section(spec, rel: Reliability, out: Out) -> None:
+    out.estimates.append(estimate(f"Reliability of one reading used ({rel.source})", rel.value, rel.lower,
+                                  rel.upper, note="a lower bound" if rel.lower_bound else "", by_arm=rel.by_arm))
+    if rel.icc is not None:
+        out.estimates.append(estimate("ICC(1) of the same selected pairs (attenuated by selection)",
+                                      rel.icc.estimate, rel.icc.lower, rel.icc.upper,
+                                      note="one-way random effects (Shrout and Fleiss 1979); a lower bound"))
+    if spec.reliability is not None and rel.source != "declared":
+        out.estimates.append(estimate("Reliability declared in study.toml", float(spec.reliability)))
+    out.sub("reliability", "How reliable is one reading?", Verdict.CAUTION if rel.lower_bound else Verdict.SOUND,
+            rel.evidence, by_arm=rel.by_arm)
+
+
+def expected_section(spec, scale, rtm, rel, sel, out: Out) -> None:
+    unit = "" if scale.log else spec.unit
+    out.estimates.append(estimate(f"Expected change from regression to the mean "
+                                  f"({'log scale' if scale.log else 'analysis scale'})", rtm.estimate, rtm.lower,
+                                  rtm.upper, unit=unit, note=f"Barnett et al. formula; parametric bootstrap, "
+                                                            f"{rtm.n_draws} draws, seed {rtm.seed}",
+                                  by_arm=rel.by_arm))
+    if scale.log:
+        out.estimates.append(estimate("Expected ratio later / entry reading from regression to the mean",
+                                      math.exp(rtm.estimate), math.exp(rtm.lower), math.exp(rtm.upper),
+                                      note=f"{_pct(rtm.estimate):+.1f}% on the original scale", by_arm=rel.by_arm))
+    if spec.reliability is not None and rel.source != "declared":
+        alt = expected_rtm(scale.fit.mu, scale.fit.sigma, float(spec.reliability), float(scale.to(sel.cutoff)),
+                           sel.direction)
+        out.estimates.append(estimate("Expected change with the declared reliability instead (sensitivity)",
+                                      alt, unit=unit))
+
+
+def shrinkage_section(spec, rd, scale, rho, sel, rel, out: Out) -> None:
+    """Shrunk entry readings ``mu + rho (x - mu)`` (Kelley 1947); their mean shift is the expected RTM."""
+    x = np.sort(scale.to(rd.present(sel.column)))
+    shrunk = shrunk_values(x, scale.fit.mu, rho)
+    out.estimates.append(estimate("Mean shrinkage of the entry reading toward the population mean",
+                                  float(np.mean(shrunk - x)), unit="" if scale.log else spec.unit,
+                                  note="equals the expected change at the maximum-likelihood fit",
+                                  by_arm=rel.by_arm))
+    label = _unit_label(spec, sel.visit)
+    out.figures.append(Figure(
+        "rtm-shrinkage", "rtm_shrinkage", f"{spec.display_name}: observed entry reading against its shrunk value",
+        {"observed": x.tolist(), "shrunk": shrunk.tolist(), "mu": scale.fit.mu,
+         "cutoff": float(scale.to(sel.cutoff)), "log": scale.log, "xlabel": f"Observed {label}",
+         "ylabel": f"Shrunk {label} (estimated true level)"},
+        caption=f"One point per participant, in order of value. Each reading is pulled toward the population "
+                f"mean by 1 - reliability = {fmt(1 - rho)}: the further beyond the cutoff, the more the reading "
+                f"overstates the true level. The gap between the two red markers (the group's mean before and "
+                f"after shrinkage) is its expected regression to the mean.",
+        by_arm=rel.by_arm))
+
+
+def pairs_figure(spec, rd, scale, sel, rel) -> Figure | None:
+    """Screening against baseline with the cutoff, when the entry reading is one of them."""
+    if not rd.has("screening") or sel.column not in ("screening", "baseline"):
+        return None
+    xs, ys = rd.complete("screening", "baseline")
+    if len(xs) < MIN_PAIRS:
+        return None
+    order = np.lexsort((ys, xs))
+    xs, ys = scale.to(xs[order]), scale.to(ys[order])
+    data = {"x": xs.tolist(), "y": ys.tolist(), "cutoff": float(scale.to(sel.cutoff)),
+            "cutoff_axis": "x" if sel.column == "screening" else "y", "log": scale.log,
+            "xlabel": _unit_label(spec, spec.screening_visit), "ylabel": _unit_label(spec, spec.baseline_visit)}
+    if rel.other in ("screening", "baseline"):
+        s, o = (xs, ys) if sel.column == "screening" else (ys, xs)
+        grid = np.array([s.min(), s.max()])
+        fitted = float(np.mean(o)) + rel.value * (grid - float(np.mean(s)))
+        line_x, line_y = (grid, fitted) if sel.column == "screening" else (fitted, grid)
+        data["line"] = {"x": line_x.tolist(), "y": line_y.tolist(),
+                        "label": f"regression on {sel.visit} (slope {fmt(rel.value)})"}
+    return Figure("rtm-screening-baseline", "rtm_pairs",
+                  f"{spec.display_name}: {spec.baseline_visit} against {spec.screening_visit}", data,
+                  caption=f"Dotted: the entry cutoff on {sel.visit}. Dashed: identity. Solid (when shown): the "
+                          f"regression of the other reading on {sel.visit}, whose slope is the reliability. "
+                          f"Participants selected on one reading sit, on average, nearer the population mean on "
+                          f"the other.")
+
+
+def truncation_figure(spec, rd, scale, sel) -> Figure:
+    v = np.sort(scale.to(rd.present(sel.column)))
+    return Figure("rtm-entry-distribution", "rtm_truncation",
+                  f"{spec.display_name}: distribution of the entry reading ({sel.visit})",
+                  {"values": v.tolist(), "mu": scale.fit.mu, "sigma": scale.fit.sigma,
+                   "cutoff": float(scale.to(sel.cutoff)), "direction": sel.direction, "log": scale.log,
+                   "xlabel": _unit_label(spec, sel.visit)},
+                  caption="Dotted: the cutoff. Solid curve: the truncated normal fitted by maximum likelihood; "
+                          "dashed: the unselected population it implies"
+                          f"{' (log scale, labelled in original units)' if scale.log else ''}.")
+
+
+def comparison_figure(spec, scale, rows: list[dict], by_arm: bool) -> Figure:
+    conv = _pct if scale.log else float
+    data_rows = [{"label": r["label"], "value": conv(r["value"]), "lower": conv(r["lower"]),
+                  "upper": conv(r["upper"])} for r in rows]
+    xlabel = "Change (%)" if scale.log else f"Change{f' ({spec.unit})' if spec.unit else ''}"
+    return Figure("rtm-expected-observed", "interval_rows",
+                  f"{spec.display_name}: change expected from regression to the mean and change observed",
+                  {"rows": data_rows, "reference": 0.0, "xlabel": xlabel},
+                  caption="Points and 95% intervals. An observed change inside the expected interval could be "
+                          "produced by regression to the mean alone.", by_arm=by_arm)
+
+
+def figure_rows(sel, rtm, target, obs, pre) -> list[dict]:
+    def row(label, x):
+        return {"label": label, "value": x.mean if isinstance(x, Change) else x.estimate,
+                "lower": x.lower, "upper": x.upper}
+
+    rows = [row("expected from RTM" if sel.column == "baseline" else f"expected from RTM, from {sel.visit}", rtm)]
+    if pre is not None:
+        rows.append(row(f"observed, {pre.where}", pre))
+    if sel.column != "baseline":
+        rows.append(row("expected bias of change", target))
+    rows.append(row(f"observed change, {obs.where.split(' ', 1)[1]}", obs))
+    return rows
+
+
+def observed_section(spec, scale, target: Interval, obs: Change, pre, by_arm, ctx, out: Out) -> None:
+    """The observed mean change beside the change expected in it, their difference and the share."""
+    what = "pooled over arms (blinded)" if ctx.blinded and obs.where == "in both arms pooled" else obs.where
+    unit = "" if scale.log else spec.unit
+    log = " (log scale)" if scale.log else ""
+    out.estimates.append(estimate(f"Observed mean change from baseline {what}{log}", obs.mean, obs.lower,
+                                  obs.upper, unit=unit, note=f"{obs.n} participants; t interval",
+                                  by_arm=obs.by_arm))
+    if pre is not None:
+        out.estimates.append(estimate(f"Observed mean {pre.where}{log} (before treatment)", pre.mean, pre.lower,
+                                      pre.upper, unit=unit, note=f"{pre.n} participants; t interval"))
+    q = stats.norm.ppf(0.5 + ctx.level / 2)
+    diff = obs.mean - target.estimate
+    se = math.hypot(obs.se, (target.upper - target.lower) / (2 * q))
+    out.estimates.append(estimate(f"Observed change {what} not explained by regression to the mean", diff,
+                                  diff - q * se, diff + q * se, unit=unit, note="normal approximation",
+                                  by_arm=by_arm))
+    if obs.mean != 0:
+        out.estimates.append(estimate(f"Share of the observed change {what} that regression to the mean "
+                                      f"predicts", 100 * target.estimate / obs.mean, unit="%", by_arm=by_arm))
+    within = target.lower <= obs.mean <= target.upper
+
+    def t(v):
+        return value_text(v, scale, spec.unit)
+
+    out.sub("observed", "How much of the observed change would regression to the mean alone produce?",
+            Verdict.CAUTION if abs(target.estimate) >= MATERIAL_SHARE * abs(obs.mean) else Verdict.SOUND,
+            f"observed {t(obs.mean)} {what} ({t(obs.lower)} to {t(obs.upper)}); expected from regression to "
+            f"the mean {t(target.estimate)} ({t(target.lower)} to {t(target.upper)}); the observed change lies "
+            f"{'inside' if within else 'outside'} that interval", by_arm=by_arm)
+
+
+def model_check_sub(spec, scale, rtm, pre: Change | None, out: Out) -> None:
+    """Set the change between the two pre-treatment readings (no treatment possible) beside the
+    expected RTM: a direct check of the normal model and of the fitted population mean."""
+    if pre is None:
+        return
+
+    def t(v):
+        return value_text(v, scale, spec.unit)
+
+    inside = rtm.lower <= pre.mean <= rtm.upper
+    out.sub("model-check", "Does the change between the two pre-treatment readings agree with the model?",
+            Verdict.SOUND if inside else Verdict.CAUTION,
+            f"{pre.where}: {t(pre.mean)} ({t(pre.lower)} to {t(pre.upper)}), before any treatment; expected from "
+            f"regression to the mean {t(rtm.estimate)} ({t(rtm.lower)} to {t(rtm.upper)})"
+            + ("" if inside else "; outside it, so the fitted population mean or the normal model is doubtful"))
+
+
+def expected_in_change(data, ctx, rd, scale, sel, rtm, rel, out: Out) -> tuple[Interval, bool]:
+    """The change expected in the analysed change from baseline: the whole RTM when baseline decided
+    entry, else the residual bias of the later baseline."""
+    if sel.column == "baseline":
+        return Interval(rtm.estimate, rtm.lower, rtm.upper), rel.by_arm
+    target, group = residual_bias(data, ctx, rd, scale, sel)
+    out.estimates.append(estimate(f"Expected bias of change from {data.spec.baseline_visit} (entry decided at "
+                                  f"{sel.visit}), {group.where}", target.estimate, target.lower, target.upper,
+                                  unit="" if scale.log else data.spec.unit,
+                                  note="(rho_SF - rho_SB) e, both correlations as slopes on the entry reading",
+                                  by_arm=group.by_arm))
+    return target, group.by_arm
+
+
+# ----------------------------------------------------------------------------- verdict and headline
+
+
+def is_material(target: Interval, observed: float, sigma: float) -> bool:
+    """CI excludes 0 and the size is at least MATERIAL_SHARE of the observed change or MATERIAL_SD
+    population SDs."""
+    excludes = target.lower > 0 or target.upper < 0
+    size = abs(target.estimate)
+    return bool(excludes and (size >= MATERIAL_SHARE * abs(observed) or size >= MATERIAL_SD * sigma))
+
+
+def decide(spec, design, material: bool) -> Verdict:
+    if material and (spec.planned_analysis in CHANGE_PLANS or design == "single-arm"):
+        return Verdict.UNSUPPORTED
+    return Verdict.CAUTION
+
+
+def bias_sub(spec, sel, target: Interval, scale, material: bool, verdict: Verdict, by_arm: bool, out: Out) -> None:
+    def t(v):
+        return value_text(v, scale, spec.unit)
+
+    size = f"{t(target.estimate)} ({t(target.lower)} to {t(target.upper)})"
+    rule = (f"material: a CI excluding 0 and at least {MATERIAL_SHARE:.0%} of the observed change or "
+            f"{MATERIAL_SD:g} population SD")
+    judged = f"{'material' if material else 'not material'} ({rule}); planned analysis: {spec.planned_analysis}"
+    if sel.column == "baseline":
+        out.sub("bias", "Is the analysis baseline the reading that decided entry?", verdict,
+                f"yes: the change from baseline carries the whole expected regression to the mean, {size}: {judged}",
+                by_arm=by_arm)
+    else:
+        out.sub("bias", "Does the change from baseline still carry the selection?", verdict,
+                f"entry was decided at {sel.visit}, the analysis baseline is {spec.baseline_visit}: expected bias "
+                f"of the change {size}: {judged}", by_arm=by_arm)
+
+
+def share_clause(value: float, obs: Change) -> str:
+    """'64% of the fall seen on Placebo' (or the opposite-sign wording)."""
+    if obs.mean == 0 or np.sign(obs.mean) != np.sign(value):
+        return f"while the change seen {obs.where} was the other way"
+    return f"{100 * value / obs.mean:.0f}% of the {'fall' if obs.mean < 0 else 'rise'} seen {obs.where}"
+
+
+def recommendation(spec, design, second_share: float | None) -> str:
+    second = (f"a second, later baseline would remove about {100 * second_share:.0f}% of it"
+              if second_share is not None else "")
+    if design == "single-arm":
+        return ("without a control arm it cannot be told apart from a treatment effect; "
+                + (f"{second}, or add a concurrent control" if second else "add a concurrent control"))
+    if spec.planned_analysis in CHANGE_PLANS:
+        return f"{second}, or compare arms by ANCOVA" if second else "compare arms by ANCOVA"
+    return ("the planned comparison between arms does not subtract baseline and is not biased by it, but "
+            "within-arm changes are" + (f"; {second}" if second else ""))
+
+
+def headline(spec, design, sel, finds, scale, rtm, target, obs, second, ctx) -> str:
+    lead = _criterion_text(spec, sel, finds)
+    size = amount(rtm.estimate, rtm.lower, rtm.upper, scale, spec.unit)
+    inside = "inside" if target.lower <= obs.mean <= target.upper else "outside"
+    seen = ("blinded audit: " if ctx.blinded else "") + value_text(obs.mean, scale, spec.unit)
+    if sel.column == "baseline":
+        share = share_clause(rtm.estimate, obs)
+        return (f"{lead}: regression to the mean alone predicts {size} from baseline, {share} ({seen}, {inside} "
+                f"that interval); {recommendation(spec, design, second)}.")
+    left = amount(target.estimate, target.lower, target.upper, scale, spec.unit)
+    share = share_clause(target.estimate, obs)
+    return (f"{lead}: regression to the mean alone predicts {size} from {sel.visit}; the analysis baseline "
+            f"({spec.baseline_visit}) is a later reading, which leaves {left} in the change from baseline, "
+            f"{share} ({seen}, {inside} that interval).")
+
+
+def caveats(ctx, rel, out: Out) -> None:
+    if ctx.blinded:
+        out.caveats.append("Blinded audit: the observed change is pooled over arms, so it includes any treatment "
+                           "effect; the share attributed to regression to the mean is a share of that pooled change.")
+    if rel.lower_bound:
+        out.caveats.append("The reliability comes from the entry reading and follow-up, which also differ by true "
+                           "change over follow-up: it is a lower bound, so the expected regression to the mean is "
+                           "an upper bound for measurement error alone.")
+
+
+_METHOD = ("Selection: the declared entry criterion, else a truncation-edge likelihood-ratio test with a Monte "
+           "Carlo null on screening and baseline (Bonferroni). Scale: raw or log by the truncated-normal "
+           "likelihood with the Jacobian. Population mean and SD: truncated-normal MLE of the entry reading. "
+           "Reliability: slope of a second pre-treatment reading on the entry reading (unbiased under "
+           "selection), else the declared value, else the slope of follow-up on it (a lower bound). Expected "
+           "change: Barnett et al. (2005) formula with a parametric-bootstrap CI, set beside the observed mean "
+           "change (t interval); second-baseline bias from the trivariate-normal relation; Kelley shrinkage.")
+
+
+# ----------------------------------------------------------------------------- the check
+
+
+def no_selection_result(check, data, finds, out: Out):
+    tested = ", ".join(f"{f.visit} {fmt_p(f.test.p_value)}" for f in finds)
+    why = (f"no entry criterion declared; no truncation edge: {tested}" if finds else
+           "no entry criterion declared; too few distinct values to look for a truncation edge")
+    return result(check, data, Verdict.SOUND,
+                  f"No selection on this outcome: regression to the mean is not expected to bias the comparison "
+                  f"({why}).", subfindings=out.subfindings, estimates=out.estimates,
+                  references=cite(["barnett-2005"]), method=_METHOD)
+
+
+@register(CHECK_ID, TITLE, _applies, order=30, needs_arms=False,
+          summary="Whether entry on this outcome selected an extreme group, how much change regression to "
+                  "the mean alone would produce, and how that compares with the change observed.")
+def run(data, ctx: CheckContext):
+    from .registry import get_check
+
+    check = get_check(CHECK_ID)
+    spec = data.spec
+    if "baseline" not in data.frame.columns:
+        raise NotAssessable("the outcome has no baseline visit")
+    out = Out()
+    everyone = Readings.of(data, ctx)
+    sel, finds = find_selection(spec, everyone, ctx)
+    if sel is None:
+        selection_section(None, finds, 0, 0, out)
+        return no_selection_result(check, data, finds, out)
+    rd, n_excluded = selected(everyone, sel)
+    selection_section(sel, finds, len(rd.present(sel.column)), n_excluded, out)
+    scale = choose_scale(spec, rd, sel)
+    if not scale.fit.converged:
+        raise NotAssessable(f"the truncated-normal fit of {sel.visit} did not converge (the selected values are "
+                            f"more skewed than a truncated normal allows)")
+    population_section(spec, scale, sel, out)
+    rel = choose_reliability(data, ctx, rd, scale, sel)
+    reliability_section(spec, rel, out)
+    rho = _capped(rel, out)
+    rtm = expected_change(scale.fit, rho, rel.se, float(scale.to(sel.cutoff)), sel.direction, ctx)
+    expected_section(spec, scale, rtm, rel, sel, out)
+    obs = observed_change(data, ctx, rd, scale)
+    pre = pre_treatment_change(rd, scale, sel, rel, spec, ctx.level)
+    target, target_by_arm = expected_in_change(data, ctx, rd, scale, sel, rtm, rel, out)
+    by_arm = obs.by_arm or target_by_arm
+    observed_section(spec, scale, target, obs, pre, by_arm, ctx, out)
+    model_check_sub(spec, scale, rtm, pre, out)
+    shrinkage_section(spec, rd, scale, rho, sel, rel, out)
+    second = second_baseline_share(data, ctx, rd, scale, sel, rel, rho, out)
+    material = is_material(target, obs.mean, scale.fit.sigma)
+    verdict = decide(spec, data.design, material)
+    bias_sub(spec, sel, target, scale, material, verdict, target_by_arm, out)
+    figures = [f for f in (pairs_figure(spec, rd, scale, sel, rel), truncation_figure(spec, rd, scale, sel)) if f]
+    out.figures = figures + out.figures + [
+        comparison_figure(spec, scale, figure_rows(sel, rtm, target, obs, pre), by_arm)]
+    caveats(ctx, rel, out)
+    return result(check, data, verdict, headline(spec, data.design, sel, finds, scale, rtm, target, obs, second, ctx),
+                  subfindings=out.subfindings, estimates=out.estimates, figures=out.figures, caveats=out.caveats,
+                  references=cite(["barnett-2005", "shrout-fleiss-1979", "pearson-1903", "cohen-1991",
+                                   "kelley-1947"] + (["goodman-1960"] if sel.column != "baseline" else [])),
+                  method=_METHOD)
