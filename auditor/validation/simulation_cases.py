@@ -51,3 +51,76 @@ simulation(SimulationCase(
     "percent-change/gmr-coverage", "percent-change", "95% CI of the ratio of geometric means covers the "
     "simulated ratio 0.7 (log-normal, multiplicative effect)", ">= 0.90", _gmr_coverage, "coverage", 0.90,
     quick_replicates=40))
+
+
+def _rtm_coverage(replicates: int, seed: int) -> float:
+    """Coverage of the regression-to-the-mean CI with mu and sigma from the truncated-normal MLE of the
+    selected screening values and rho from 100 test-retest pairs (true: mu 140, sigma 18, rho 0.6,
+    selection above the 70th percentile)."""
+    import numpy as np
+    from scipy import stats
+
+    from ..stats.rtm import expected_rtm, fit_truncated_normal, icc_oneway, rtm_with_ci
+
+    rng = np.random.default_rng(seed)
+    mu, sigma, rho = 140.0, 18.0, 0.6
+    cutoff = mu + sigma * stats.norm.ppf(0.7)
+    truth = expected_rtm(mu, sigma, rho, cutoff, "above")
+    hits = 0
+    for rep in range(replicates):
+        u = rng.uniform(stats.norm.cdf((cutoff - mu) / sigma), 1, N)
+        screening = mu + sigma * stats.norm.ppf(u)
+        pairs = np.sqrt(rho) * rng.standard_normal((100, 1)) + np.sqrt(1 - rho) * rng.standard_normal((100, 2))
+        fit = fit_truncated_normal(screening, lower=cutoff)
+        ci = rtm_with_ci(fit.mu, fit.sigma, icc_oneway(pairs).estimate, cutoff, "above", mu_se=fit.se_mu,
+                         sigma_se=fit.se_sigma, mu_sigma_cov=fit.cov_mu_sigma, n_rho=100, n_draws=1000,
+                         seed=seed + rep)
+        hits += ci.lower <= truth <= ci.upper
+    return hits / replicates
+
+
+def _rtm_null_flag(replicates: int, seed: int) -> float:
+    """Share of unselected simulated trials in which the regression-to-the-mean check flags selection."""
+    import numpy as np
+
+    from ..checks.regression_to_mean import run
+    from ..checks.registry import CheckContext
+    from .change_score_cases import outcome_data_for
+
+    rng = np.random.default_rng(seed)
+    ctx = CheckContext(seed=seed, blinded=False, quick=True)
+    flagged = 0
+    for _ in range(replicates):
+        b, f, a = SCENARIOS[0].make(rng, N)
+        flagged += run(outcome_data_for(b, f, a), ctx).verdict.value != "sound"
+    return flagged / replicates
+
+
+def _rtm_detect(replicates: int, seed: int) -> float:
+    """Share of simulated trials truncated at baseline > 55 (no criterion declared) that the check flags."""
+    import numpy as np
+
+    from ..checks.regression_to_mean import run
+    from ..checks.registry import CheckContext
+    from .change_score_cases import outcome_data_for
+
+    truncated = next(s for s in SCENARIOS if s.target == "selection")
+    rng = np.random.default_rng(seed)
+    ctx = CheckContext(seed=seed, blinded=False, quick=True)
+    flagged = 0
+    for _ in range(replicates):
+        b, f, a = truncated.make(rng, N)
+        flagged += run(outcome_data_for(b, f, a), ctx).verdict.value != "sound"
+    return flagged / replicates
+
+
+simulation(SimulationCase(
+    "regression-to-mean/coverage", "regression-to-mean", "95% CI of the expected regression to the mean covers "
+    "the truth (selection above the 70th percentile, estimated mu, sigma, rho)", ">= 0.90", _rtm_coverage,
+    "coverage", 0.90))
+simulation(SimulationCase(
+    "regression-to-mean/null", "regression-to-mean", "no selection: the check flags nothing",
+    "<= 0.05 + 2 MCSE", _rtm_null_flag, "false-alarm", 0.05))
+simulation(SimulationCase(
+    "regression-to-mean/truncated", "regression-to-mean", "baseline truncated at 55 with no criterion declared: "
+    "selection detected", ">= 0.80", _rtm_detect, "detection", 0.80))
