@@ -27,9 +27,10 @@ from scipy import linalg, special, stats
 
 INTERCEPT = "(intercept)"
 SEPARATION_LOGIT = 25.0
-"""A fitted in-sample |logit| above this (a risk within 1.4e-11 of 0 or 1) is taken as separation:
-the maximum likelihood estimate does not exist and the coefficients run off to infinity (Albert and
-Anderson 1984). Convention of this tool."""
+"""Under separation the maximum likelihood estimate does not exist: Newton steps stay large while the
+log-likelihood creeps towards its supremum, so the fit never converges, and some fitted risks run to
+0 or 1 (Albert and Anderson 1984). A fit that has not converged with an in-sample |logit| above this
+(a risk within 1.4e-11 of 0 or 1) is reported as separation. Convention of this tool."""
 
 
 class SeparationError(ValueError):
@@ -158,9 +159,9 @@ def fit_logistic(y, columns: dict[str, np.ndarray] | None = None, intercept: boo
         if np.max(np.abs(shrink * step)) < tol and change < 1e-9:
             converged = True
             break
-    if np.max(np.abs(eta)) > SEPARATION_LOGIT:
-        raise SeparationError("some fitted risks are 0 or 1 (perfect prediction by the covariates)")
     if not converged:
+        if np.max(np.abs(eta)) > SEPARATION_LOGIT:
+            raise SeparationError("some fitted risks run to 0 or 1 (perfect prediction by the covariates)")
         raise RuntimeError(f"the logistic fit did not converge in {max_iter} iterations")
     p = special.expit(eta)
     info = Z.T @ (Z * (p * (1.0 - p))[:, None])
@@ -334,17 +335,20 @@ def contrast(fit: LogisticFit, weights: dict[str, float] | np.ndarray) -> tuple[
 
 @dataclass(frozen=True)
 class EndContrast:
-    """The fitted logit at one end of a range minus the logit at the extremum, with its one-sided test.
+    """The fitted logit at one end of a range minus the logit at the extremum, with one-sided tests.
 
     ``difference`` is signed so that a positive value points away from the extremum (above a minimum,
-    below a maximum); ``p_value`` is the one-sided normal p of difference / se (None when the
-    extremum sits at this end and the contrast is identically zero).
+    below a maximum). ``p_value`` is the pointwise one-sided normal p of difference / se;
+    ``p_adjusted`` is the max-t p of the largest standardised contrast between this end and any grid
+    point, which allows for the extremum having been chosen by the data. Both are None when the
+    extremum sits at this end.
     """
 
     at: float
     difference: float
     se: float
     p_value: float | None
+    p_adjusted: float | None
 
 
 @dataclass(frozen=True)
@@ -361,22 +365,34 @@ class ExtremumTest:
 
     @property
     def p_value(self) -> float | None:
-        """Intersection-union p of 'both ends differ from the extremum': the larger one-sided p."""
-        if not self.interior or self.low_end.p_value is None or self.high_end.p_value is None:
+        """Intersection-union p of 'both ends differ from the extremum': the larger adjusted p."""
+        if not self.interior or self.low_end.p_adjusted is None or self.high_end.p_adjusted is None:
             return None
-        return max(self.low_end.p_value, self.high_end.p_value)
+        return max(self.low_end.p_adjusted, self.high_end.p_adjusted)
+
+
+def _root(V: np.ndarray) -> np.ndarray:
+    """A matrix R with R R' = V for a symmetric positive semi-definite V."""
+    w, Q = np.linalg.eigh((V + V.T) / 2.0)
+    return Q * np.sqrt(np.clip(w, 0.0, None))
 
 
 def interior_extremum(fit: LogisticFit, names, grid: np.ndarray, basis: np.ndarray,
-                      kind: str = "minimum") -> ExtremumTest:
+                      kind: str = "minimum", draws: int = 10_000, seed: int = 0) -> ExtremumTest:
     """Find the lowest (highest) point of one term's fitted logit over a grid and test both ends.
 
     ``basis`` is the term's basis at ``grid`` (rows), its columns the coefficients ``names``. The
     term's logit is f(g) = B(g) b; other additive terms cancel from every difference. For the grid's
     extremum g* and each end e, d_e = s [f(e) - f(g*)] with s = +1 for a minimum and -1 for a maximum,
-    SE(d_e) = sqrt(c' V c) with c = B(e) - B(g*), one-sided p = 1 - Phi(d_e / SE). Requiring both
-    p below alpha is an intersection-union test (Berger 1982), in the spirit of the U-shape test of
-    Lind and Mehlum (2010).
+    SE(d_e) = sqrt(c' V c) with c = B(e) - B(g*), and the pointwise one-sided p = 1 - Phi(d_e / SE).
+
+    Because g* is chosen by the data, the adjusted test asks whether the end is the extremum at all:
+    its statistic is T_e = max_g s c_g'b / SE_g over every grid point g (c_g = B(e) - B(g)),
+    referred to the distribution of max_g s c_g'(b_hat - b) / SE_g simulated from
+    b_hat - b ~ N(0, V) with ``draws`` seeded draws, which is its null distribution when the curve
+    is flat (the least favourable monotone case): a max-t test (Hothorn, Bretz and Westfall 2008).
+    If neither end is the extremum, the extremum is interior; requiring both adjusted p below alpha
+    is an intersection-union test (Berger 1982), in the spirit of Lind and Mehlum (2010).
     """
     if kind not in ("minimum", "maximum"):
         raise ValueError("kind must be 'minimum' or 'maximum'")
@@ -387,12 +403,19 @@ def interior_extremum(fit: LogisticFit, names, grid: np.ndarray, basis: np.ndarr
     f = B @ b
     sign = 1.0 if kind == "minimum" else -1.0
     k = int(np.argmin(sign * f))
+    noise = np.random.default_rng(seed).standard_normal((draws, len(b))) @ _root(V).T
 
     def end(j: int) -> EndContrast:
         c = B[j] - B[k]
         d = sign * float(c @ b)
         se = float(np.sqrt(max(c @ V @ c, 0.0)))
-        p = None if j == k or se == 0.0 else float(stats.norm.sf(d / se))
-        return EndContrast(float(grid[j]), d, se, p)
+        if j == k or se == 0.0:
+            return EndContrast(float(grid[j]), d, se, None, None)
+        others = np.delete(B[j] - B, j, axis=0)
+        se_all = np.sqrt(np.maximum(np.einsum("ij,jk,ik->i", others, V, others), 1e-300))
+        observed = float(np.max(sign * (others @ b) / se_all))
+        scan = np.max(sign * (noise @ others.T) / se_all, axis=1)
+        p_adj = float((1 + np.count_nonzero(scan >= observed)) / (draws + 1))
+        return EndContrast(float(grid[j]), d, se, float(stats.norm.sf(d / se)), p_adj)
 
     return ExtremumTest(kind, k, float(grid[k]), 0 < k < len(grid) - 1, end(0), end(len(grid) - 1))

@@ -1,0 +1,885 @@
+"""Later risk and the latest value: is a change (or ratio) between two measurements a fair summary?
+
+Endpoints and eligibility rules defined by the change or ratio between two measurements of a lab
+value assume that the risk of a binary event depends on the difference of the two values (equal and
+opposite weights) and that it rises or falls monotonically. This check fits logistic models of the
+participant-level event on restricted cubic splines of the latest measurement (the main follow-up)
+and of the earlier one (baseline), partitions their likelihood-ratio chi-square, compares the models
+a change- or ratio-based definition implies against encompassing models in which they are nested,
+tests whether the risk curve of the latest value has an interior turning point the data support, and
+locates the lowest risk with a bootstrap interval. Formulas and thresholds:
+docs/methods/later-risk.md.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Callable
+
+import numpy as np
+from scipy import stats
+
+from ..references import add_reference, cite
+from ..results import Figure, SubFinding, Table, Verdict
+from ..stats.linear import arm_indicators
+from ..stats.logistic import (INTERCEPT, ChiSquarePartition, ExtremumTest, LogisticFit, LRTest,
+                              SeparationError, block_columns, chi_square_partition, fit_logistic,
+                              interior_extremum, lr_test, risk_band)
+from ..stats.splines import SplinePlan, choose_knots, flexible_basis, knot_count
+from .common import estimate, fmt, fmt_p, result
+from .registry import CheckContext, NotAssessable, register
+
+CHECK_ID = "later-risk"
+TITLE = "Later risk and the latest value"
+
+ALPHA = 0.05
+"""Level of every test whose failure gives caution (nonlinearity, each one-sided end test, the
+information and weight tests). Convention of this tool."""
+STRONG = 0.01
+"""A derived definition losing information at p below this gives 'unsupported'. Convention of this tool."""
+MIN_EVENTS = 10
+"""Fewer events (or non-events) than this and the check is not assessed. Convention of this tool."""
+SKEW_FOR_LOG = 1.0
+"""Positive values whose pooled sample skewness exceeds this are analysed on the log scale (a rule of
+thumb, convention of this tool); ``log_scale`` in study.toml overrides it."""
+END_QUANTILES = (0.05, 0.95)
+"""The ends of the range over which a turning point is sought and tested (convention of this tool)."""
+GRID_POINTS = 101
+RESAMPLES, QUICK_RESAMPLES = 400, 50
+MIN_BOOT_SUCCESS = 0.8
+"""A bootstrap interval is reported only when at least this share of resamples could be fitted."""
+
+LATEST, EARLIER = "latest", "earlier"
+
+add_reference("akaike-1974", "Akaike H. A new look at the statistical model identification. IEEE Trans "
+                             "Autom Control 1974;19:716-723.")
+add_reference("wilks-1938", "Wilks SS. The large-sample distribution of the likelihood ratio for testing "
+                            "composite hypotheses. Ann Math Stat 1938;9:60-62.")
+add_reference("berger-1982", "Berger RL. Multiparameter hypothesis testing and acceptance sampling. "
+                             "Technometrics 1982;24:295-300.")
+add_reference("lind-mehlum-2010", "Lind JT, Mehlum H. With or without U? The appropriate test for a "
+                                  "U-shaped relationship. Oxf Bull Econ Stat 2010;72:109-118.")
+add_reference("hothorn-2008", "Hothorn T, Bretz F, Westfall P. Simultaneous inference in general parametric "
+                             "models. Biom J 2008;50:346-363.")
+add_reference("efron-tibshirani-1993", "Efron B, Tibshirani RJ. An Introduction to the Bootstrap. "
+                                       "Chapman & Hall, 1993.")
+add_reference("albert-anderson-1984", "Albert A, Anderson JA. On the existence of maximum likelihood "
+                                      "estimates in logistic regression models. Biometrika 1984;71:1-10.")
+
+
+def _applies(spec, design) -> bool:
+    return spec.risk_endpoint is not None and spec.baseline_visit is not None
+
+
+# ------------------------------------------------------------------------------------ model terms
+
+
+@dataclass(frozen=True)
+class Term:
+    """One measurement as it enters a model: its scale (log or not) and its spline plan.
+
+    The basis is :func:`flexible_basis`: the restricted cubic spline of :func:`rcs_basis`, or, with
+    too few distinct values, u and (u - centre)^2 with the centre fixed in the plan, so that
+    predictions at new values use the same basis as the fit.
+    """
+
+    name: str
+    log: bool
+    plan: SplinePlan
+
+    @classmethod
+    def from_values(cls, name: str, x: np.ndarray, log: bool, effective_n: int) -> "Term":
+        """Knots at Harrell's quantiles, their number from :func:`knot_count` on the effective sample
+        size min(events, non-events) (Harrell 2015, section 4.4)."""
+        u = _scale(x, log)
+        return cls(name, log, choose_knots(u, knot_count(effective_n, len(np.unique(u)))))
+
+    def basis(self, x) -> np.ndarray:
+        return flexible_basis(_scale(x, self.log), self.plan)
+
+    def columns(self, x) -> dict[str, np.ndarray]:
+        return block_columns(self.name, self.basis(x))
+
+    @property
+    def names(self) -> list[str]:
+        return [self.name] + [f"{self.name}'{j}" for j in range(1, self.df)]
+
+    @property
+    def df(self) -> int:
+        return 1 + self.plan.nonlinear_df
+
+
+def _scale(x, log: bool) -> np.ndarray:
+    x = np.asarray(x, dtype=float)
+    return np.log(x) if log else x
+
+
+def decide_log_scale(latest: np.ndarray, earlier: np.ndarray, log_scale: bool | None) -> tuple[bool, str]:
+    """The log scale when asked for, or when every value is positive and the pooled skewness > 1."""
+    both = np.concatenate([latest, earlier])
+    positive = bool(np.all(both > 0))
+    if log_scale is not None:
+        if log_scale and not positive:
+            raise NotAssessable("log_scale is set but some values are zero or negative")
+        return bool(log_scale), "as set by log_scale in study.toml"
+    skew = float(stats.skew(both))
+    if positive and skew > SKEW_FOR_LOG:
+        return True, f"all values positive and pooled skewness {fmt(skew)} > {SKEW_FOR_LOG:g}"
+    why = "some values are not positive" if not positive else f"pooled skewness {fmt(skew)} <= {SKEW_FOR_LOG:g}"
+    return False, why
+
+
+# -------------------------------------------------------------------------------- derived values
+
+
+@dataclass(frozen=True)
+class Definition:
+    """A derived summary of the two values: how it is computed and how to undo it."""
+
+    kind: str
+    label: str
+    log: bool
+    """The scale on which it is a difference: change is latest - earlier, the log ratio log latest - log earlier."""
+    value: Callable[[np.ndarray, np.ndarray], np.ndarray]
+    latest_from: Callable[[np.ndarray, np.ndarray], np.ndarray]
+    """latest value given (earlier, derived value)."""
+
+
+CHANGE = Definition("change", "change", False, lambda l, e: l - e, lambda e, d: e + d)
+LOG_RATIO = Definition("log ratio", "log ratio", True, lambda l, e: np.log(l / e), lambda e, r: e * np.exp(r))
+
+
+@dataclass(frozen=True)
+class DerivedTest:
+    """What a derived definition keeps of the information in the two values.
+
+    ``information``: the model with a spline in the derived value against the encompassing model
+    (splines of each value on the definition's scale plus the nonlinear terms of the derived value's
+    spline), in which it is nested because the derived value's linear term is the difference of the
+    two linear terms. ``weights``: the model linear in the derived value against the model linear in
+    each value (1 df: equal and opposite weights). ``weight_ratio``: b_earlier / b_latest in the
+    model linear in each value, which a difference fixes at -1, with a delta-method interval.
+    """
+
+    definition: Definition
+    term: Term
+    fit: LogisticFit
+    encompassing: LogisticFit
+    information: LRTest
+    weights: LRTest
+    weight_ratio: tuple[float, float, float]
+
+
+def derived_test(definition: Definition, y, latest, earlier, adjust, effective_n: int,
+                 level: float) -> DerivedTest:
+    """Fit the derived model, its encompassing model and the two linear models (see DerivedTest).
+
+    With d = u_l - u_e on the definition's scale, the spline basis of d is (d, N(d)); since d lies in
+    the span of (u_l, u_e), the model S(d) is nested in S(u_l) + S(u_e) + N(d), with
+    df = dim S(u_l) + dim S(u_e) + dim N(d) - dim S(d).
+    """
+    d = definition.value(latest, earlier)
+    term = Term.from_values(definition.kind, d, False, effective_n)
+    lt = Term.from_values(LATEST, latest, definition.log, effective_n)
+    et = Term.from_values(EARLIER, earlier, definition.log, effective_n)
+    own = term.columns(d)
+    nonlinear = {k: v for k, v in own.items() if k != term.name}
+    fit = fit_logistic(y, {**own, **adjust})
+    encompassing = fit_logistic(y, {**lt.columns(latest), **et.columns(earlier), **nonlinear, **adjust})
+    ul, ue = _scale(latest, definition.log), _scale(earlier, definition.log)
+    linear_derived = fit_logistic(y, {term.name: ul - ue, **adjust})
+    linear_both = fit_logistic(y, {LATEST: ul, EARLIER: ue, **adjust})
+    return DerivedTest(definition, term, fit, encompassing, lr_test(fit, encompassing),
+                       lr_test(linear_derived, linear_both), weight_ratio(linear_both, level))
+
+
+def weight_ratio(fit: LogisticFit, level: float) -> tuple[float, float, float]:
+    """r = b_e / b_l with var(r) = [V_ee - 2 r V_le + r^2 V_ll] / b_l^2 (delta method)."""
+    i, j = fit.index(LATEST), fit.index(EARLIER)
+    bl, be = fit.coef[i], fit.coef[j]
+    r = be / bl
+    var = (fit.cov[j, j] - 2 * r * fit.cov[i, j] + r * r * fit.cov[i, i]) / (bl * bl)
+    half = stats.norm.ppf(0.5 + level / 2) * math.sqrt(max(var, 0.0))
+    return float(r), float(r - half), float(r + half)
+
+
+# ------------------------------------------------------------------------------------- analysis
+
+
+@dataclass(frozen=True)
+class Shape:
+    """The fitted risk curve of the latest value over [5th, 95th percentile]: turning points and tests."""
+
+    grid: np.ndarray
+    nonlinear: LRTest
+    minimum: ExtremumTest
+    maximum: ExtremumTest
+
+    def supported(self, test: ExtremumTest) -> bool:
+        """Non-monotone when the nonlinear terms are significant and both ends differ from the turning
+        point (each one-sided test at ALPHA, adjusted for the choice of the turning point)."""
+        return (self.nonlinear.p_value < ALPHA and test.p_value is not None and test.p_value < ALPHA)
+
+    @property
+    def flagged(self) -> str | None:
+        """``U-shaped``, ``inverted-U-shaped`` or None (no turning point the data support)."""
+        if self.supported(self.minimum):
+            return "U-shaped"
+        if self.supported(self.maximum):
+            return "inverted-U-shaped"
+        return None
+
+    @property
+    def suggested(self) -> ExtremumTest | None:
+        """A turning point that is significant only before adjustment for its choice (weaker evidence):
+        nonlinear terms significant, interior, and both pointwise one-sided p below ALPHA."""
+        if self.flagged or self.nonlinear.p_value >= ALPHA:
+            return None
+        for t in (self.minimum, self.maximum):
+            if t.interior and max(t.low_end.p_value, t.high_end.p_value) < ALPHA:
+                return t
+        return None
+
+
+@dataclass(frozen=True)
+class Lowest:
+    """Where the fitted risk is lowest on the grid, with a percentile bootstrap interval."""
+
+    at: float
+    lower: float | None
+    upper: float | None
+    resamples: int
+    failed: int
+
+
+@dataclass(frozen=True)
+class Analysis:
+    """Everything the check computes for one outcome, before any wording: data, terms, fits, tests."""
+
+    y: np.ndarray
+    latest: np.ndarray
+    earlier: np.ndarray
+    adjust: dict[str, np.ndarray]
+    log_scale: bool
+    scale_reason: str
+    latest_term: Term
+    earlier_term: Term
+    partition: ChiSquarePartition
+    shape: Shape
+    lowest: Lowest
+    derived: list[DerivedTest]
+    skipped: list[str] = field(default_factory=list)
+
+    @property
+    def full(self) -> LogisticFit:
+        return self.partition.full
+
+    @property
+    def events(self) -> int:
+        return int(self.y.sum())
+
+    @property
+    def best(self) -> DerivedTest | None:
+        """The derived definition that fits better (lower AIC); the verdict is judged on it."""
+        return min(self.derived, key=lambda d: d.fit.aic) if self.derived else None
+
+    def models(self) -> list[tuple[str, LogisticFit]]:
+        out = [("Latest value only", self.partition.reduced[f"-{EARLIER}"]),
+               ("Earlier value only", self.partition.reduced[f"-{LATEST}"]),
+               ("Both values", self.full)]
+        out += [(f"{d.definition.label.capitalize()} only", d.fit) for d in self.derived]
+        return out
+
+
+def analyse(y, latest, earlier, adjust: dict[str, np.ndarray] | None = None, log_scale: bool | None = None,
+            level: float = 0.95, resamples: int = 0, seed: int = 0) -> Analysis:
+    """Every model, test and estimate of the check, from arrays (no metadata, no verdict).
+
+    Raises NotAssessable for too few events or non-events and for separation.
+    """
+    y = np.asarray(y, dtype=float)
+    latest, earlier = np.asarray(latest, dtype=float), np.asarray(earlier, dtype=float)
+    adjust = dict(adjust or {})
+    events = int(y.sum())
+    if min(events, len(y) - events) < MIN_EVENTS:
+        raise NotAssessable(f"{events} events and {len(y) - events} non-events among {len(y)} participants "
+                            f"(at least {MIN_EVENTS} of each are needed)")
+    for name, x in ((LATEST, latest), (EARLIER, earlier)):
+        if len(np.unique(x)) < 3:
+            raise NotAssessable(f"the {name} value takes fewer than 3 distinct values")
+    effective_n = min(events, len(y) - events)
+    log, reason = decide_log_scale(latest, earlier, log_scale)
+    lt = Term.from_values(LATEST, latest, log, effective_n)
+    et = Term.from_values(EARLIER, earlier, log, effective_n)
+    try:
+        partition = chi_square_partition(y, {LATEST: lt.basis(latest), EARLIER: et.basis(earlier)}, adjust)
+    except SeparationError as exc:
+        raise NotAssessable(f"the event is perfectly predicted by the model ({exc}); "
+                            "the maximum likelihood estimates do not exist") from exc
+    except ValueError as exc:
+        raise NotAssessable(f"the models of the two values cannot be fitted ({exc})") from exc
+    grid = np.linspace(*np.quantile(latest, END_QUANTILES), GRID_POINTS)
+    basis = lt.basis(grid)
+    shape = Shape(grid, partition.nonlinear[LATEST],
+                  interior_extremum(partition.full, lt.names, grid, basis, "minimum", seed=seed),
+                  interior_extremum(partition.full, lt.names, grid, basis, "maximum", seed=seed))
+    lowest = locate_lowest(y, latest, earlier, adjust, lt, et, grid, shape.minimum.at, resamples, seed, level)
+    derived, skipped = [], []
+    definitions = [CHANGE] + ([LOG_RATIO] if np.all(latest > 0) and np.all(earlier > 0) else [])
+    for definition in definitions:
+        try:
+            derived.append(derived_test(definition, y, latest, earlier, adjust, effective_n, level))
+        except (ValueError, RuntimeError) as exc:
+            skipped.append(f"The {definition.label} model could not be fitted ({exc}).")
+    return Analysis(y, latest, earlier, adjust, log, reason, lt, et, partition, shape, lowest, derived, skipped)
+
+
+def locate_lowest(y, latest, earlier, adjust, lt: Term, et: Term, grid, at: float, resamples: int,
+                  seed: int, level: float) -> Lowest:
+    """Percentile bootstrap of the grid point where the latest value's fitted logit is lowest.
+
+    Participants are resampled with replacement and the model of both values refitted with the knots
+    held at their full-sample positions (Efron and Tibshirani 1993, chapter 13).
+    """
+    if resamples <= 0:
+        return Lowest(at, None, None, 0, 0)
+    columns = {**lt.columns(latest), **et.columns(earlier), **adjust}
+    names = list(columns)
+    X = np.column_stack([columns[k] for k in names])
+    B = lt.basis(grid)
+    li = [names.index(k) + 1 for k in lt.names]
+    rng = np.random.default_rng(seed)
+    found, failed = [], 0
+    for _ in range(resamples):
+        idx = rng.integers(0, len(y), len(y))
+        try:
+            fit = fit_logistic(y[idx], {k: X[idx, j] for j, k in enumerate(names)})
+        except (ValueError, RuntimeError):
+            failed += 1
+            continue
+        found.append(grid[int(np.argmin(B @ fit.coef[li]))])
+    if len(found) < MIN_BOOT_SUCCESS * resamples:
+        return Lowest(at, None, None, resamples, failed)
+    lo, hi = np.quantile(found, [0.5 - level / 2, 0.5 + level / 2])
+    return Lowest(at, float(lo), float(hi), resamples, failed)
+
+
+def design_rows(fit: LogisticFit, n: int, given: dict[str, np.ndarray], fill: dict[str, float]) -> np.ndarray:
+    """Rows in ``fit.names`` order: 1 for the intercept, ``given`` columns, ``fill`` constants elsewhere."""
+    cols = []
+    for name in fit.names:
+        if name == INTERCEPT:
+            cols.append(np.ones(n))
+        elif name in given:
+            cols.append(np.asarray(given[name], dtype=float))
+        else:
+            cols.append(np.full(n, fill[name]))
+    return np.column_stack(cols)
+
+
+def curve(an: Analysis, fit: LogisticFit, parts: dict[str, np.ndarray], level: float):
+    """Risk and band of ``fit`` with the named columns given and the adjustment columns at their means."""
+    n = len(next(iter(parts.values())))
+    fill = {k: float(np.mean(v)) for k, v in an.adjust.items()}
+    return risk_band(fit, design_rows(fit, n, parts, fill), level)
+
+
+def full_curve(an: Analysis, latest, earlier, level: float):
+    latest, earlier = np.broadcast_arrays(np.asarray(latest, float), np.asarray(earlier, float))
+    return curve(an, an.full, {**an.latest_term.columns(latest), **an.earlier_term.columns(earlier)}, level)
+
+
+def derived_curve(an: Analysis, test: DerivedTest, values, level: float):
+    return curve(an, test.fit, test.term.columns(np.asarray(values, float)), level)
+
+
+# ---------------------------------------------------------------------------------- check inputs
+
+
+@dataclass(frozen=True)
+class RiskInputs:
+    y: np.ndarray
+    latest: np.ndarray
+    earlier: np.ndarray
+    adjust: dict[str, np.ndarray]
+    arm_adjusted: bool
+    left_out: int
+    notes: list[str]
+
+
+def risk_inputs(data, ctx: CheckContext) -> RiskInputs:
+    """Complete cases of event, both values and covariates; arm indicators when not blinded."""
+    frame = data.frame
+    for col, what in (("baseline", "a baseline value"), ("followup", "a follow-up value"),
+                      ("event", "the risk endpoint")):
+        if col not in frame.columns:
+            raise NotAssessable(f"the outcome has no {what}")
+    use_arm = not ctx.blinded and data.design == "parallel"
+    cols = ["event", "baseline", "followup", *data.spec.covariates] + (["arm"] if use_arm else [])
+    df = frame.dropna(subset=cols).reset_index(drop=True)
+    notes = []
+    adjust = {}
+    for cov in data.spec.covariates:
+        v = df[cov].to_numpy(dtype=float)
+        if np.ptp(v) == 0:
+            notes.append(f"Covariate {cov} is constant among the participants analysed and was left out.")
+            continue
+        adjust[cov] = v
+    arm_adjusted = False
+    if use_arm:
+        counts = df["arm"].value_counts()
+        arms = [a for a in data.arms if counts.get(a, 0) >= 2]
+        if len(arms) > 1:
+            df = df[df["arm"].isin(arms)].reset_index(drop=True)
+            adjust = {k: df[k].to_numpy(dtype=float) for k in adjust}
+            adjust.update(arm_indicators(df["arm"].to_numpy(), arms, data.control_arm))
+            arm_adjusted = True
+    return RiskInputs(df["event"].to_numpy(dtype=float), df["followup"].to_numpy(dtype=float),
+                      df["baseline"].to_numpy(dtype=float), adjust, arm_adjusted, len(frame) - len(df), notes)
+
+
+# ----------------------------------------------------------------------------------- the check
+
+
+@register(CHECK_ID, TITLE, _applies, order=60, needs_arms=False,
+          summary="Whether risk of the event follows the change between two values, or the latest value "
+                  "alone, and whether it is monotone.")
+def run(data, ctx: CheckContext):
+    from .registry import get_check
+
+    check = get_check(CHECK_ID)
+    inputs = risk_inputs(data, ctx)
+    an = analyse(inputs.y, inputs.latest, inputs.earlier, inputs.adjust, data.spec.log_scale, ctx.level,
+                 QUICK_RESAMPLES if ctx.quick else RESAMPLES, ctx.seed)
+    view = _View(an, data.spec, inputs, ctx.level)
+    verdict = overall_verdict(an)
+    return result(check, data, verdict, view.headline(verdict), subfindings=view.subfindings(),
+                  estimates=view.estimates(),
+                  tables=view.tables(), figures=view.figures(), caveats=view.caveats(),
+                  references=cite(["harrell-2015", "stone-koo-1985", "wilks-1938", "akaike-1974",
+                                   "berger-1982", "lind-mehlum-2010", "hothorn-2008", "efron-tibshirani-1993",
+                                   "albert-anderson-1984"]),
+                  method=view.method())
+
+
+def _grade(p: float) -> Verdict:
+    return Verdict.UNSUPPORTED if p < STRONG else Verdict.CAUTION if p < ALPHA else Verdict.SOUND
+
+
+def _key(d: DerivedTest) -> str:
+    return d.definition.kind.replace(" ", "-")
+
+
+def finding_verdicts(an: Analysis) -> dict[str, Verdict]:
+    """The verdict of each sub-finding, keyed by its id.
+
+    monotone: unsupported for a supported turning point, caution for one significant only before the
+    adjustment for its choice. earlier-informative: caution when the latest value is informative and
+    the earlier adds nothing, or when the two values together explain nothing (the data cannot check
+    a derived definition). <definition>-information and -weights: unsupported at p < STRONG,
+    caution at p < ALPHA.
+    """
+    sh, p = an.shape, an.partition
+    out = {"monotone": (Verdict.UNSUPPORTED if sh.flagged else
+                        Verdict.CAUTION if sh.suggested is not None else Verdict.SOUND),
+           "earlier-informative": (Verdict.CAUTION if p.joint.p_value >= ALPHA
+                                   or (p.total[EARLIER].p_value >= ALPHA and p.total[LATEST].p_value < ALPHA)
+                                   else Verdict.SOUND)}
+    for d in an.derived:
+        out[f"{_key(d)}-information"] = _grade(d.information.p_value)
+        out[f"{_key(d)}-weights"] = _grade(d.weights.p_value)
+    return out
+
+
+def overall_verdict(an: Analysis) -> Verdict:
+    """The worst of the shape, the earlier value's contribution and the better derived definition's
+    two findings; the other definition's findings are reported but do not set the verdict.
+
+    Unsupported for a supported turning point or when the better derived definition (lower AIC)
+    loses information at p < STRONG; caution for any weaker finding among those; sound otherwise.
+    """
+    v = finding_verdicts(an)
+    keys = ["monotone", "earlier-informative"]
+    if an.best is not None:
+        keys += [f"{_key(an.best)}-information", f"{_key(an.best)}-weights"]
+    if v["monotone"] == Verdict.UNSUPPORTED or (an.best is not None and an.best.information.p_value < STRONG):
+        return Verdict.UNSUPPORTED
+    if any(v[k] != Verdict.SOUND for k in keys):
+        return Verdict.CAUTION
+    return Verdict.SOUND
+
+
+class _View:
+    """Turns an :class:`Analysis` into the result record's sub-findings, estimates, tables and figures."""
+
+    def __init__(self, an: Analysis, spec, inputs: RiskInputs, level: float):
+        self.an, self.spec, self.inputs, self.level = an, spec, inputs, level
+        self.arm = inputs.arm_adjusted
+        self.verdicts = finding_verdicts(an)
+        sd = float(np.std(np.concatenate([an.latest, an.earlier])))
+        self.digits = max(0, min(4, 1 - math.floor(math.log10(sd)))) if sd > 0 else 2
+        self.unit = spec.unit
+        self.endpoint = spec.risk_endpoint
+
+    # -- formatting
+
+    def x(self, v) -> str:
+        return fmt(v, self.digits)
+
+    def axis(self, what: str) -> str:
+        return f"{what} ({self.unit})" if self.unit else what
+
+    def chi(self, t: LRTest) -> str:
+        return f"chi-square {fmt(t.statistic, 1)} on {t.df} df ({fmt_p(t.p_value)})"
+
+    # -- sub-findings
+
+    def subfindings(self) -> list[SubFinding]:
+        an = self.an
+        subs = [self._shape_finding(), self._earlier_finding()]
+        for d in an.derived:
+            subs.append(self._information_finding(d))
+            subs.append(self._weights_finding(d))
+        return subs
+
+    def _shape_finding(self) -> SubFinding:
+        sh = self.an.shape
+        kind = sh.flagged
+        q = "Does the risk change monotonically with the latest value?"
+        v = self.verdicts["monotone"]
+        if kind:
+            t = sh.minimum if kind == "U-shaped" else sh.maximum
+            word = "above the lowest" if t.kind == "minimum" else "below the highest"
+            ev = (f"nonlinear terms {self.chi(sh.nonlinear)}; the logit at the 5th percentile "
+                  f"({self.x(t.low_end.at)}) and at the 95th ({self.x(t.high_end.at)}) each lies {word} point "
+                  f"({self.x(t.at)}): one-sided {fmt_p(t.low_end.p_adjusted)} and "
+                  f"{fmt_p(t.high_end.p_adjusted)}, adjusted for the choice of that point")
+            return SubFinding("monotone", q, v, f"No: risk is {kind}; {ev}", by_arm=self.arm)
+        t = sh.suggested
+        if t is not None:
+            word = "lowest" if t.kind == "minimum" else "highest"
+            return SubFinding("monotone", q, v,
+                              f"Perhaps not: nonlinear terms {self.chi(sh.nonlinear)}; both ends differ from the "
+                              f"{word} point ({self.x(t.at)}) pointwise (one-sided {fmt_p(t.low_end.p_value)} and "
+                              f"{fmt_p(t.high_end.p_value)}) but not after adjustment for the choice of that point "
+                              f"({fmt_p(t.low_end.p_adjusted)} and {fmt_p(t.high_end.p_adjusted)})",
+                              by_arm=self.arm)
+        curved = "curved but " if sh.nonlinear.p_value < ALPHA else ""
+        return SubFinding("monotone", q, v,
+                          f"Yes: {curved}no turning point is supported; nonlinear terms {self.chi(sh.nonlinear)}",
+                          by_arm=self.arm)
+
+    def _earlier_finding(self) -> SubFinding:
+        p = self.an.partition
+        lt, et = p.total[LATEST], p.total[EARLIER]
+        ev = (f"latest value given the earlier: {self.chi(lt)}, {fmt(100 * p.share(LATEST), 0)}% of the "
+              f"chi-square of both values; earlier given the latest: {self.chi(et)}, "
+              f"{fmt(100 * p.share(EARLIER), 0)}%")
+        q = "Does the earlier value add information once the latest is known, as a change definition needs?"
+        v = self.verdicts["earlier-informative"]
+        if p.joint.p_value >= ALPHA:
+            text = f"Cannot tell: the two values together explain only {self.chi(p.joint)}; {ev}"
+        else:
+            text = f"{'Yes' if et.p_value < ALPHA else 'No'}: {ev}"
+        return SubFinding("earlier-informative", q, v, text, by_arm=self.arm)
+
+    def _information_finding(self, d: DerivedTest) -> SubFinding:
+        v = self.verdicts[f"{_key(d)}-information"]
+        label = d.definition.label
+        ev = (f"the model in the {label} alone against the model of both values it is nested in: "
+              f"{self.chi(d.information)}; AIC {fmt(d.fit.aic - d.encompassing.aic, 1)} against it")
+        answer = "Yes" if v == Verdict.SOUND else "No"
+        return SubFinding(f"{_key(d)}-information",
+                          f"Does a {label}-based definition keep the risk information in the two values?",
+                          v, f"{answer}: {ev}", by_arm=self.arm)
+
+    def _weights_finding(self, d: DerivedTest) -> SubFinding:
+        v = self.verdicts[f"{_key(d)}-weights"]
+        r, lo, hi = d.weight_ratio
+        scale = "logs of the values" if d.definition.log else "values"
+        ev = (f"weight of the earlier value relative to the latest {fmt(r)} (CI {fmt(lo)} to {fmt(hi)}; "
+              f"a {d.definition.label} fixes it at -1), models linear in the {scale}: {self.chi(d.weights)}")
+        return SubFinding(f"{_key(d)}-weights",
+                          f"Do the two values carry equal and opposite weights, as a {d.definition.label} assumes?",
+                          v, f"{'Yes' if v == Verdict.SOUND else 'No'}: {ev}", by_arm=self.arm)
+
+    # -- headline
+
+    def headline(self, verdict: Verdict) -> str:
+        an = self.an
+        parts = [self._shape_phrase()]
+        parts.append(f"the latest value carries {fmt(100 * an.partition.share(LATEST), 0)}% of the "
+                     f"explainable chi-square (the earlier {fmt(100 * an.partition.share(EARLIER), 0)}%)")
+        best = an.best
+        if best is not None:
+            label = best.definition.label
+            t = best.information
+            parts.append(f"a {label}-based definition loses chi-square {fmt(t.statistic, 1)} on {t.df} df "
+                         f"({fmt_p(t.p_value)})")
+            for other in an.derived:
+                if other is not best and other.information.p_value < ALPHA <= t.p_value:
+                    o = other.information
+                    parts.append(f"a {other.definition.label}-based one loses {fmt(o.statistic, 1)} on {o.df} df "
+                                 f"({fmt_p(o.p_value)})")
+            advice = {Verdict.UNSUPPORTED: f"do not define the endpoint by {_derived_names(an)}",
+                      Verdict.CAUTION: f"a definition by {label} is doubtful",
+                      Verdict.SOUND: f"a definition by {label} is compatible with the data"}
+            parts.append(advice[verdict])
+        text = "; ".join(parts) + "."
+        return text[0].upper() + text[1:]
+
+    def _shape_phrase(self) -> str:
+        an, sh = self.an, self.an.shape
+        unit = f" {self.unit}" if self.unit else ""
+        low = an.lowest
+        ci = (f", CI {self.x(low.lower)} to {self.x(low.upper)}{unit}" if low.lower is not None else unit)
+        if sh.flagged == "U-shaped":
+            return f"risk is U-shaped in the latest value (lowest near {self.x(low.at)}{ci})"
+        if sh.flagged:
+            return f"risk is highest at an interior latest value (near {self.x(sh.maximum.at)}{unit})"
+        if sh.suggested is not None:
+            word = "lowest" if sh.suggested.kind == "minimum" else "highest"
+            return (f"risk may be {word} at an interior latest value (near {self.x(sh.suggested.at)}{unit}), "
+                    f"though not significantly after adjustment for the choice of that point")
+        total = an.partition.total[LATEST]
+        if total.p_value >= ALPHA:
+            return f"the latest value shows no clear relation to risk ({fmt_p(total.p_value)})"
+        direction = "rises" if sh.minimum.index == 0 else "falls" if sh.minimum.index == len(sh.grid) - 1 else \
+            "changes"
+        return f"risk {direction} with the latest value without a supported turning point"
+
+    # -- estimates
+
+    def estimates(self):
+        an, arm, unit = self.an, self.arm, self.unit
+        low = an.lowest
+        out = [estimate("Participants analysed", float(len(an.y))),
+               estimate(f"Participants with the event ({self.endpoint})", float(an.events))]
+        out.append(estimate("Latest value at which the modelled risk is lowest", low.at, low.lower, low.upper,
+                            unit=unit, note=(f"percentile bootstrap, {low.resamples} resamples ({low.failed} "
+                                             f"not fitted); searched between the 5th and 95th percentiles"
+                                             if low.resamples else "searched between the 5th and 95th percentiles"),
+                            by_arm=arm))
+        band = full_curve(an, [low.at], [float(np.median(an.earlier))], self.level)
+        out.append(estimate("Modelled risk at that value", 100 * float(band.risk[0]), 100 * float(band.lower[0]),
+                            100 * float(band.upper[0]), unit="%",
+                            note="earlier value at its median, covariates at their means", by_arm=arm))
+        m = an.shape.minimum
+        if m.interior:
+            z = stats.norm.ppf(0.5 + self.level / 2)
+            for name, e in (("5th", m.low_end), ("95th", m.high_end)):
+                out.append(estimate(f"Odds ratio of the event, latest value at its {name} percentile "
+                                    f"({self.x(e.at)}) against the lowest point", math.exp(e.difference),
+                                    math.exp(e.difference - z * e.se), math.exp(e.difference + z * e.se),
+                                    e.p_adjusted, note=f"one-sided p adjusted for the choice of the lowest "
+                                                       f"point (pointwise {fmt_p(e.p_value)})", by_arm=arm))
+        p = an.partition
+        for block, what in ((LATEST, "latest"), (EARLIER, "earlier")):
+            out.append(estimate(f"Share of the explainable chi-square carried by the {what} value alone",
+                                100 * p.share(block), p=p.total[block].p_value, unit="%",
+                                note=f"partial chi-square {fmt(p.total[block].statistic, 1)} on "
+                                     f"{p.total[block].df} df over the {fmt(p.joint.statistic, 1)} of both",
+                                by_arm=arm))
+        for d in an.derived:
+            t = d.information
+            out.append(estimate(f"Chi-square lost by a {d.definition.label}-only definition", t.statistic,
+                                p=t.p_value, note=f"{t.df} df; nested in the model of both values "
+                                                         f"plus the {d.definition.label}'s nonlinear terms",
+                                by_arm=arm))
+            r, lo, hi = d.weight_ratio
+            out.append(estimate(f"Weight of the earlier value relative to the latest ({d.definition.label} "
+                                f"assumes -1)", r, lo, hi, d.weights.p_value,
+                                note="models linear in the " + ("log values" if d.definition.log else "values")
+                                     + "; p tests -1 (1 df)", by_arm=arm))
+        return out
+
+    # -- tables
+
+    def tables(self):
+        out = [self._partition_table(), self._model_table()]
+        if self.an.best is not None:
+            table = self._same_change_table(self.an.best)
+            if table.rows:
+                out.append(table)
+        return out
+
+    def _partition_table(self) -> Table:
+        p = self.an.partition
+        joint = p.joint.statistic
+
+        def row(label, t: LRTest, share=True):
+            return [label, t.statistic, t.df, t.p_value, 100 * t.statistic / joint if share and joint > 0 else None]
+
+        rows = [row("Latest value, all its terms, given the earlier", p.total[LATEST])]
+        if LATEST in p.nonlinear:
+            rows.append(row("Latest value, nonlinear terms", p.nonlinear[LATEST]))
+        rows.append(row("Earlier value, all its terms, given the latest", p.total[EARLIER]))
+        if EARLIER in p.nonlinear:
+            rows.append(row("Earlier value, nonlinear terms", p.nonlinear[EARLIER]))
+        rows.append(row("Both values together", p.joint))
+        if p.adjustment is not None:
+            rows.append(row("Adjustment (" + ", ".join(self._adjust_labels()) + ")", p.adjustment, share=False))
+        rows.append(row("Whole model, against no predictor", p.whole, share=False))
+        return Table("chi-square-partition", "Likelihood-ratio chi-square of the model of both values, by source",
+                     ["Source", "LR chi-square", "df", "p", "% of the chi-square of both values"], rows,
+                     note="Partial chi-squares of correlated values need not add to the joint one; the "
+                          "remainder is information the two values share.", by_arm=self.arm)
+
+    def _adjust_labels(self) -> list[str]:
+        covs = [c for c in self.spec.covariates if c in self.an.adjust]
+        return covs + (["arm"] if self.arm else [])
+
+    def _model_table(self) -> Table:
+        models = self.an.models()
+        base = self.an.full.aic
+        rows = [[name, f.n_params, f.loglik, f.aic, f.aic - base] for name, f in models]
+        return Table("model-aic", "Models of the event: fit and AIC",
+                     ["Model", "Parameters", "Log-likelihood", "AIC", "AIC minus that of both values"], rows,
+                     note="Each measurement or derived value enters as a restricted cubic spline; lower AIC "
+                          "is better, and a difference above 2 is usually taken as meaningful.", by_arm=self.arm)
+
+    def _same_change_table(self, d: DerivedTest) -> Table:
+        an = self.an
+        starts = np.quantile(an.earlier, [0.10, 0.25, 0.50, 0.75, 0.90])
+        values = _typical_steps(d.definition.value(an.latest, an.earlier), d.definition)
+        lo_l, hi_l = float(np.min(an.latest)), float(np.max(an.latest))
+        rows = []
+        for step in values:
+            lat = d.definition.latest_from(starts, np.full(len(starts), step))
+            keep = (lat >= lo_l) & (lat <= hi_l)
+            if keep.sum() < 2:
+                continue
+            full = full_curve(an, lat[keep], starts[keep], self.level)
+            own = derived_curve(an, d, np.full(int(keep.sum()), step), self.level)
+            for i, (e, l_) in enumerate(zip(starts[keep], lat[keep])):
+                rows.append([round(float(e), self.digits), round(float(l_), self.digits),
+                             _step_value(step, d.definition), 100 * float(full.risk[i]),
+                             100 * float(full.lower[i]), 100 * float(full.upper[i]), 100 * float(own.risk[i])])
+        label = d.definition.label
+        return Table("same-change", f"Participants with the same {label} but different starting points",
+                     ["Earlier value", "Latest value",
+                      "Change" if d.definition.kind == "change" else "Ratio (latest / earlier)",
+                      "Risk from both values (%)", "lower",
+                      "upper", f"Risk from the {label} alone (%)"], rows,
+                     note=f"Within each {label}, a {label}-based definition gives every starting point the same "
+                          "risk (last column); the model of both values gives the risk in the fourth column. "
+                          "Starting points at the 10th, 25th, 50th, 75th and 90th percentiles of the earlier "
+                          "value; rows whose latest value falls outside the observed range are omitted.",
+                     by_arm=self.arm)
+
+    # -- figures
+
+    def figures(self):
+        an, arm = self.an, self.arm
+        ylabel = f"Modelled risk of {self.endpoint}"
+        name = self.spec.display_name
+        med_e, med_l = float(np.median(an.earlier)), float(np.median(an.latest))
+        xl = np.linspace(np.min(an.latest), np.max(an.latest), 120)
+        bl = full_curve(an, xl, np.full(len(xl), med_e), self.level)
+        vlines = [{"x": an.lowest.at}] if an.shape.flagged == "U-shaped" else []
+        figs = [Figure("risk-latest", "curve_band", f"{name}: modelled risk against the latest value",
+                       {"curves": [_curve_data(xl, bl)], "rug": sorted(an.latest.tolist()), "vlines": vlines,
+                        "xlabel": self.axis("Latest value"), "ylabel": ylabel},
+                       caption=f"Model of both values, earlier value at its median ({self.x(med_e)}), covariates "
+                               f"at their means; band: pointwise {self.level:.0%} interval; ticks: observed "
+                               f"latest values" + ("; dotted line: the lowest point." if vlines else "."),
+                       by_arm=arm)]
+        xe = np.linspace(np.min(an.earlier), np.max(an.earlier), 120)
+        be = full_curve(an, np.full(len(xe), med_l), xe, self.level)
+        figs.append(Figure("risk-earlier", "curve_band", f"{name}: modelled risk against the earlier value",
+                           {"curves": [_curve_data(xe, be)], "rug": sorted(an.earlier.tolist()), "vlines": [],
+                            "xlabel": self.axis("Earlier value"), "ylabel": ylabel},
+                           caption=f"Model of both values, latest value at its median ({self.x(med_l)}); band: "
+                                   f"pointwise {self.level:.0%} interval; ticks: observed earlier values.",
+                           by_arm=arm))
+        if an.best is not None:
+            figs.append(self._compare_figure(an.best, ylabel))
+        return figs
+
+    def _compare_figure(self, d: DerivedTest, ylabel: str) -> Figure:
+        an = self.an
+        dv = d.definition.value(an.latest, an.earlier)
+        grid = np.linspace(*np.quantile(dv, END_QUANTILES), 80)
+        own = derived_curve(an, d, grid, self.level)
+        curves = [{**_curve_data(grid, own), "label": f"{d.definition.label.capitalize()} alone", "style": "dashed",
+                   "color": "#222222"}]
+        lo_l, hi_l = float(np.min(an.latest)), float(np.max(an.latest))
+        for i, q in enumerate((0.10, 0.50, 0.90)):
+            start = float(np.quantile(an.earlier, q))
+            lat = d.definition.latest_from(np.full(len(grid), start), grid)
+            band = full_curve(an, lat, np.full(len(grid), start), self.level)
+            inside = (lat >= lo_l) & (lat <= hi_l)
+            curves.append({"x": grid.tolist(), "y": np.where(inside, band.risk, np.nan).tolist(),
+                           "label": f"Both values, earlier = {self.x(start)}", "style": "solid", "palette": i})
+        label = d.definition.label
+        return Figure(f"risk-{_key(d)}", "risk_compare",
+                      f"{self.spec.display_name}: risk by {label}, from the {label} alone and from both values",
+                      {"curves": curves, "rug": sorted(dv.tolist()), "xlabel": self.axis(label.capitalize())
+                       if d.definition.kind == "change" else "Log ratio (latest / earlier)", "ylabel": ylabel},
+                      caption=f"If a {label}-based definition were adequate, the solid curves (participants "
+                              f"starting at the 10th, 50th and 90th percentiles of the earlier value) would lie "
+                              f"on the dashed one. Solid curves stop where the latest value would leave the "
+                              f"observed range.", by_arm=self.arm)
+
+    # -- caveats and method
+
+    def caveats(self) -> list[str]:
+        an = self.an
+        out = list(self.inputs.notes) + list(an.skipped)
+        out.append("The models describe associations within this trial; they show which summary of the two "
+                   "values tracks the risk, not that either value causes the event.")
+        if self.inputs.left_out:
+            out.append(f"{self.inputs.left_out} participant(s) lacking the event, either value or a covariate "
+                       f"were left out.")
+        out.append(f"Scale of the measurements: {'log' if an.log_scale else 'original'} ({an.scale_reason}).")
+        if an.lowest.resamples and an.lowest.lower is None:
+            out.append(f"Too many bootstrap resamples could not be fitted ({an.lowest.failed} of "
+                       f"{an.lowest.resamples}); the location of the lowest risk has no interval.")
+        if self.arm:
+            out.append("The models are adjusted for arm; every model-based number here is marked as involving "
+                       "arms and is recomputed without arm in a blinded audit.")
+        if an.events < 10 * an.full.n_params:
+            out.append(f"{an.events} events for {an.full.n_params} parameters in the model of both values: "
+                       "estimates of the curves are imprecise and the tests approximate.")
+        return out
+
+    def method(self) -> str:
+        an = self.an
+        lt, et = an.latest_term, an.earlier_term
+        knots = lambda t: (f"restricted cubic spline with {len(t.plan.knots)} knots" if t.plan.kind == "spline"
+                           else "quadratic")
+        return (f"Logistic regression (Newton-Raphson, exact likelihood) of {self.endpoint} on the latest value "
+                f"({knots(lt)}) and the earlier value ({knots(et)}) on the "
+                f"{'log' if an.log_scale else 'original'} scale"
+                + (", adjusted for " + ", ".join(self._adjust_labels()) if an.adjust else "")
+                + "; likelihood-ratio chi-square partition; AIC of the models of each value, of both values"
+                + "".join(f", of the {d.definition.label}" for d in an.derived)
+                + "; each derived model tested against an encompassing model it is "
+                  "nested in; a turning point is supported when the nonlinear terms are significant and the "
+                  "fitted logits at the 5th and 95th percentiles each differ from it (one-sided, 0.05, "
+                  "max-t adjusted for the choice of the point); "
+                  "percentile bootstrap of the lowest point.")
+
+
+def _derived_names(an: Analysis) -> str:
+    return " or ".join(d.definition.label for d in an.derived)
+
+
+def _typical_steps(values: np.ndarray, definition: Definition) -> list[float]:
+    """No change and a rise of one SD of the derived value (rounded to 2 significant digits)."""
+    sd = float(np.std(values))
+    if sd <= 0:
+        return [0.0]
+    step = float(f"{sd:.2g}")
+    return [0.0, step]
+
+
+def _step_value(step: float, definition: Definition) -> float:
+    """The step as a reader states it: a change as such, a log ratio as the ratio latest / earlier."""
+    return step if definition.kind == "change" else float(f"{math.exp(step):.3g}")
+
+
+def _curve_data(x, band) -> dict:
+    return {"x": np.asarray(x, float).tolist(), "y": band.risk.tolist(), "lower": band.lower.tolist(),
+            "upper": band.upper.tolist()}
