@@ -204,3 +204,23 @@ for _z, _rho in ((0.0, 0.5), (1.0, 0.8), (-1.5, 0.3)):
         "normal-theory formula of this tool (docs/methods/percent-change.md) against Monte Carlo; tolerance "
         "3 Monte Carlo SE plus 2% (a convention)", _dichotomy_analytic(_z, _rho), 0.06,
         _dichotomy_simulated(_z, _rho), relative=True))
+
+
+def _spector(name: str):
+    def compute() -> float:
+        import statsmodels.api as sm
+
+        from ..stats.logistic import fit_logistic
+
+        d = sm.datasets.spector.load_pandas()
+        fit = fit_logistic(d.endog.to_numpy(), {c: d.exog[c].to_numpy() for c in ("GPA", "TUCE", "PSI")})
+        return fit.loglik if name == "loglik" else float(fit.coef[fit.index(name) if name != "const" else 0])
+    return compute
+
+
+_SPECTOR_SOURCE = ("Spector and Mazzeo data shipped with statsmodels; statsmodels documentation and Greene, "
+                   "Econometric Analysis (from memory)")
+for _name, _value, _tol in (("const", -13.021347, 5e-6), ("GPA", 2.826113, 5e-6), ("TUCE", 0.095158, 5e-6),
+                            ("PSI", 2.378688, 5e-6), ("loglik", -12.890, 5e-4)):
+    reference(ReferenceCase(f"spector-{_name}", "later-risk: logistic regression", f"Spector and Mazzeo logit, {_name}",
+                            _SPECTOR_SOURCE, _value, _tol, _spector(_name)))

@@ -124,3 +124,26 @@ simulation(SimulationCase(
 simulation(SimulationCase(
     "regression-to-mean/truncated", "regression-to-mean", "baseline truncated at 55 with no criterion declared: "
     "selection detected", ">= 0.80", _rtm_detect, "detection", 0.80))
+
+
+def _later_risk_rate(name: str, key: str, n: int | None = None):
+    def compute(replicates: int, seed: int) -> float:
+        from .later_risk_cases import SCENARIOS as LR, rate, run_scenario as lr_run
+
+        i, sc = next((i, s) for i, s in enumerate(LR) if s.name == name)
+        return rate(lr_run(sc, replicates, n or sc.n or 300, seed, i), key)
+    return compute
+
+
+simulation(SimulationCase(
+    "later-risk/null-linear", "later-risk", "monotone linear risk (N = 300): flagged as non-monotone",
+    "<= 0.05 + 2 MCSE", _later_risk_rate("monotone-linear", "flagged"), "false-alarm", 0.05))
+simulation(SimulationCase(
+    "later-risk/null-threshold", "later-risk", "monotone threshold risk (N = 300): flagged as non-monotone",
+    "<= 0.05 + 2 MCSE", _later_risk_rate("monotone-threshold", "flagged"), "false-alarm", 0.05))
+simulation(SimulationCase(
+    "later-risk/u-shape", "later-risk", "U-shaped risk (N = 900): flagged as non-monotone", ">= 0.80",
+    _later_risk_rate("u-shaped-n900", "flagged"), "detection", 0.80, quick_replicates=10))
+simulation(SimulationCase(
+    "later-risk/earlier-irrelevant", "later-risk", "earlier value irrelevant: its partial chi-square rejects "
+    "at 5%", "<= 0.05 + 2 MCSE", _later_risk_rate("monotone-linear", "earlier"), "false-alarm", 0.05))
