@@ -14,18 +14,24 @@ from typing import List, Optional
 import typer
 from rich.console import Console
 from rich.table import Table
+from rich.text import Text
 
 from . import __version__
 from .errors import StudyInputError
 
 app = typer.Typer(add_completion=False, no_args_is_help=True, rich_markup_mode=None,
                   help="Audit whether a clinical trial's planned analyses are supported by its own data.")
-out = Console(highlight=False, soft_wrap=True)
-err = Console(stderr=True, highlight=False, soft_wrap=True)
+out = Console(highlight=False, soft_wrap=True, emoji=False)
+err = Console(stderr=True, highlight=False, soft_wrap=True, emoji=False)
 
 EXIT_INPUT = 2
 EXIT_INTERNAL = 1
 _STATE = {"debug": False}
+
+
+def _cells(*values) -> list[Text]:
+    """Table cells as plain text, so brackets or colons in study codes are never read as markup."""
+    return [Text(str(v)) for v in values]
 
 
 def _version(value: bool):
@@ -90,13 +96,13 @@ def validate(study_dir: Path = typer.Argument(..., help="The study folder (holdi
 
 
 def _summary_table(audit) -> Table:
-    table = Table(title=f"{audit.study_id}: findings", show_lines=False)
+    table = Table(title=Text(f"{audit.study_id}: findings"), show_lines=False)
     table.add_column("Outcome")
     table.add_column("Check")
     table.add_column("Verdict")
     table.add_column("Finding", overflow="fold")
     for r in audit.results:
-        table.add_row(r.outcome, r.check_id, r.verdict.value, r.headline)
+        table.add_row(*_cells(r.outcome, r.check_id, r.verdict.value, r.headline))
     return table
 
 
@@ -211,7 +217,7 @@ def batch(
         table.add_column("Status")
         table.add_column("Findings")
         for s in results:
-            table.add_row(s.study_id or s.name, s.status, s.error if s.status != "ok" else str(len(s.rows)))
+            table.add_row(*_cells(s.study_id or s.name, s.status, s.error if s.status != "ok" else len(s.rows)))
         out.print(table)
         out.print(str(output / "index.html"), markup=False)
         if fail_on is not None and gate_reached(results, fail_on):
@@ -267,7 +273,7 @@ def compare(
             for col in ("Outcome", "Check", "Before", "After"):
                 t.add_column(col)
             for row in cmp.verdicts_moved:
-                t.add_row(*row)
+                t.add_row(*_cells(*row))
             out.print(t)
         if cmp.numbers_moved:
             from .render.view import number
@@ -276,7 +282,7 @@ def compare(
             for col in ("Outcome", "Check", "Quantity", "Part", "Before", "After"):
                 t.add_column(col)
             for m in cmp.numbers_moved:
-                t.add_row(m.outcome, m.check_id, m.name, m.field, number(m.old), number(m.new))
+                t.add_row(*_cells(m.outcome, m.check_id, m.name, m.field, number(m.old), number(m.new)))
             out.print(t)
         if html is not None:
             html.write_text(render_view("compare.html.j2", comparison_view(cmp)), encoding="utf-8")

@@ -7,7 +7,14 @@ user can mend a study folder in one pass instead of one error per run.
 from __future__ import annotations
 
 import difflib
+import re
 from dataclasses import dataclass, field
+
+MAX_PART_CHARS = 400
+"""A problem or fix longer than this is clipped in its one-line form (a 100,000-character cell
+quoted in a message would bury every other problem)."""
+
+_CONTROL = re.compile("[\x00-\x1f\x7f-\x9f\u2028\u2029]")
 
 
 @dataclass(frozen=True)
@@ -24,9 +31,21 @@ class InputProblem:
     """``error`` stops the audit; ``warning`` is reported and the audit goes on."""
 
     def one_line(self) -> str:
-        col = f" column {self.column}:" if self.column and self.column != "-" else ""
-        where = f" {self.where}" if self.where and self.where != "-" else ""
-        return f"{self.file}:{where}{col} {self.problem}. Fix: {self.fix}."
+        """``file: where column X: problem. Fix: how.`` on a single line, whatever the data held."""
+        file, where, column = (one_line_text(x, 200) for x in (self.file, self.where, self.column))
+        col = f" column {column}:" if column and column != "-" else ""
+        where = f" {where}" if where and where != "-" else ""
+        return f"{file}:{where}{col} {one_line_text(self.problem)}. Fix: {one_line_text(self.fix)}."
+
+
+def one_line_text(text, limit: int = MAX_PART_CHARS) -> str:
+    """``text`` with line breaks and other control characters shown as escapes, clipped to ``limit``.
+
+    Messages quote cells and labels from the user's files; a quoted newline must not split a problem
+    over two lines, and a huge cell must not flood the terminal.
+    """
+    text = _CONTROL.sub(lambda m: m.group().encode("unicode_escape").decode("ascii"), str(text))
+    return text if len(text) <= limit else text[: limit - 1] + "…"
 
 
 class StudyInputError(Exception):
@@ -38,7 +57,9 @@ class StudyInputError(Exception):
 
 
 def _problem_sort_key(p: InputProblem):
-    return (p.file, p.where, p.column, p.problem)
+    """File, then place with row numbers compared as numbers (row 9 before row 10)."""
+    where = [int(t) if t.isdigit() else t for t in re.split(r"(\d+)", p.where)]
+    return (p.file, [(0, t) if isinstance(t, int) else (1, t) for t in where], p.column, p.problem)
 
 
 @dataclass

@@ -9,12 +9,13 @@ from __future__ import annotations
 import datetime as dt
 import hashlib
 import math
+import string
 import sys
 from pathlib import Path
-from typing import Literal, Optional, Union
+from typing import Annotated, Literal, Optional, Union
 
-from pydantic import (BaseModel, ConfigDict, Field, StrictBool, StrictStr, ValidationError, field_validator,
-                      model_validator)
+from pydantic import (BaseModel, ConfigDict, Field, PlainValidator, StrictBool, StrictFloat, StrictInt, StrictStr,
+                      ValidationError, field_validator, model_validator)
 
 from .errors import ProblemLog, did_you_mean
 
@@ -34,7 +35,38 @@ PlannedAnalysis = Literal[
     "responder",
     "repeated-with-baseline-response",
 ]
-VisitName = Union[str, int, float]
+MAX_NAME_CHARS = 200
+"""Longest code, arm, column or visit name accepted (labels and titles may run to 2000 characters)."""
+
+
+def _visit_name(value):
+    """A visit is a non-empty name or a finite visit number; booleans and NaN are refused."""
+    if isinstance(value, str) and 0 < len(value.strip()) <= MAX_NAME_CHARS:
+        return value
+    if isinstance(value, int) and not isinstance(value, bool):
+        return value
+    if isinstance(value, float) and math.isfinite(value):
+        return value
+    raise ValueError(f"a visit is a name in quotes (1 to {MAX_NAME_CHARS} characters) or a finite visit "
+                     f"number, not {value!r:.60}")
+
+
+VisitName = Annotated[Union[str, int, float], PlainValidator(_visit_name)]
+Name = Annotated[StrictStr, Field(min_length=1, max_length=MAX_NAME_CHARS)]
+Finite = Annotated[StrictFloat, Field(allow_inf_nan=False)]
+"""A finite number (integers accepted; booleans, NaN and infinities refused)."""
+
+
+def _bound(value):
+    """A bound is a number; ``inf`` or ``-inf`` (or None, from Python) means none; NaN is refused."""
+    if value is None:
+        return None
+    if isinstance(value, (int, float)) and not isinstance(value, bool) and not math.isnan(value):
+        return float(value)
+    raise ValueError(f"a bound is a number, or inf / -inf for none, not {value!r:.60}")
+
+
+Bound = Annotated[Optional[float], PlainValidator(_bound)]
 
 
 class _Strict(BaseModel):
@@ -45,11 +77,11 @@ class StudyInfo(_Strict):
     id: StrictStr = Field(min_length=1, max_length=200)
     title: str = Field(default="", max_length=2000)
     design: Literal["parallel", "single-arm"] = "parallel"
-    arms: list[str] = Field(default_factory=list)
-    control_arm: Optional[str] = None
+    arms: list[Name] = Field(default_factory=list)
+    control_arm: Optional[Name] = None
     blinded: StrictBool = False
     analysis_date: Optional[dt.date] = None
-    seed: int = Field(default=20240101, ge=0, le=2**32 - 1)
+    seed: StrictInt = Field(default=20240101, ge=0, le=2**32 - 1)
 
     @model_validator(mode="after")
     def _arms_consistent(self):
@@ -66,31 +98,45 @@ class StudyInfo(_Strict):
 
 
 class FilesInfo(_Strict):
-    visits: str = Field(min_length=1)
-    participants: Optional[str] = None
+    visits: StrictStr = Field(min_length=1, max_length=1000)
+    participants: Optional[StrictStr] = Field(default=None, min_length=1, max_length=1000)
     layout: Literal["long", "wide"] = "long"
-    wide_pattern: str = "{param}_{visit}"
+    wide_pattern: StrictStr = Field(default="{param}_{visit}", max_length=MAX_NAME_CHARS)
     """In a wide file, how a column name is built from a parameter code and a visit name."""
+
+    @field_validator("wide_pattern")
+    @classmethod
+    def _pattern_fields(cls, v):
+        """Only ``{param}`` and ``{visit}``, once each: anything else would fail, or reach into the
+        values' attributes, when the column names are built."""
+        try:
+            fields = [(name, spec, conv) for _, name, spec, conv in string.Formatter().parse(v) if name is not None]
+        except ValueError as exc:
+            raise ValueError(f"wide_pattern is not a valid pattern ({exc})") from None
+        plain = all(not spec and not conv for _, spec, conv in fields)
+        if not plain or sorted(name for name, _, _ in fields) != ["param", "visit"]:
+            raise ValueError("wide_pattern must contain {param} and {visit} once each and no other {...} field")
+        return v
 
 
 class ColumnMap(_Strict):
     """Column names in the data files; defaults follow the CDISC ADaM conventions."""
 
-    subject: str = "USUBJID"
-    arm: Optional[str] = None
+    subject: Name = "USUBJID"
+    arm: Optional[Name] = None
     """Default: TRTP if present, else TRT01P, else ARM."""
-    param: str = "PARAMCD"
-    param_label: str = "PARAM"
-    visit: str = "AVISIT"
-    visit_number: str = "AVISITN"
-    value: str = "AVAL"
-    baseline_flag: str = "ABLFL"
+    param: Name = "PARAMCD"
+    param_label: Name = "PARAM"
+    visit: Name = "AVISIT"
+    visit_number: Name = "AVISITN"
+    value: Name = "AVAL"
+    baseline_flag: Name = "ABLFL"
 
 
 class EntryCriterion(_Strict):
     visit: VisitName
     operator: Literal[">", ">=", "<", "<="]
-    value: float
+    value: Finite
 
     @property
     def direction(self) -> str:
@@ -100,18 +146,18 @@ class EntryCriterion(_Strict):
 
 class ResponderRule(_Strict):
     basis: Literal["change", "percent-change"]
-    threshold: float
+    threshold: Finite
     direction: Literal["at-least", "at-most"]
     """A responder has change (or percent change) at least / at most the threshold."""
 
 
 class OutcomeSpec(_Strict):
-    param: StrictStr = Field(min_length=1, max_length=200)
-    label: str = Field(default="", max_length=2000)
+    param: Name
+    label: StrictStr = Field(default="", max_length=2000)
     scale: Scale
-    levels: Optional[list[float]] = None
-    bounds: Optional[tuple[Optional[float], Optional[float]]] = None
-    unit: str = Field(default="", max_length=100)
+    levels: Optional[list[Finite]] = None
+    bounds: Optional[tuple[Bound, Bound]] = None
+    unit: StrictStr = Field(default="", max_length=100)
     baseline_visit: Optional[VisitName] = None
     screening_visit: Optional[VisitName] = None
     followup_visits: list[VisitName] = Field(min_length=1)
@@ -119,9 +165,9 @@ class OutcomeSpec(_Strict):
     planned_analysis: PlannedAnalysis
     responder: Optional[ResponderRule] = None
     entry_criterion: Optional[EntryCriterion] = None
-    reliability: Optional[float] = Field(default=None, gt=0, lt=1)
-    risk_endpoint: Optional[str] = None
-    covariates: list[str] = Field(default_factory=list)
+    reliability: Optional[Finite] = Field(default=None, gt=0, lt=1)
+    risk_endpoint: Optional[Name] = None
+    covariates: list[Name] = Field(default_factory=list)
     log_scale: Optional[StrictBool] = None
     """Analyse on the log scale where a check offers it; default: decided from the data."""
 
@@ -151,7 +197,22 @@ class OutcomeSpec(_Strict):
             raise ValueError(f"planned_analysis '{self.planned_analysis}' needs 'baseline_visit'")
         if self.primary_followup is not None and self.primary_followup not in self.followup_visits:
             raise ValueError("primary_followup must be one of followup_visits")
+        self._visits_distinct()
+        if len(set(self.covariates)) != len(self.covariates):
+            raise ValueError("covariates are listed more than once")
         return self
+
+    def _visits_distinct(self) -> None:
+        """Each visit plays one role: a repeated follow-up, or a baseline that is also a follow-up,
+        would compare a visit with itself."""
+        keys = [_key(v) for v in self.followup_visits]
+        if len(set(keys)) != len(keys):
+            raise ValueError("followup_visits lists a visit more than once")
+        if self.baseline_visit is not None and _key(self.baseline_visit) in keys:
+            raise ValueError("the baseline visit is also listed in followup_visits")
+        if self.screening_visit is not None and _key(self.screening_visit) in keys + [
+                _key(self.baseline_visit) if self.baseline_visit is not None else None]:
+            raise ValueError("the screening visit is also the baseline or a follow-up visit")
 
     @property
     def main_followup(self) -> VisitName:
@@ -174,6 +235,13 @@ class OutcomeSpec(_Strict):
         if self.bounds is not None and self.bounds[1] is not None and math.isfinite(self.bounds[1]):
             return self.bounds[1]
         return self.levels[-1] if self.levels else None
+
+
+def _key(visit) -> str:
+    """A visit as text, whole-number floats written as integers (4.0 and 4 are the same visit)."""
+    if isinstance(visit, float) and visit.is_integer():
+        visit = int(visit)
+    return str(visit).strip()
 
 
 class StudyMetadata(_Strict):
@@ -234,6 +302,9 @@ def _fix_for(err: dict) -> str:
 def read_metadata(folder: Path, log: ProblemLog) -> tuple[StudyMetadata | None, str]:
     """Read and validate ``study.toml``; problems go to ``log``. Returns (metadata, sha256)."""
     path = folder / METADATA_FILE
+    if path.is_dir():
+        log.add(METADATA_FILE, "-", "-", "is a folder, not a file", f"replace it with the study's {METADATA_FILE}")
+        return None, ""
     if not path.is_file():
         log.add(METADATA_FILE, "-", "-", f"no {METADATA_FILE} in {folder}",
                 f"create one, for example with 'auditor init DATA_FILE'")
@@ -251,17 +322,18 @@ def read_metadata(folder: Path, log: ProblemLog) -> tuple[StudyMetadata | None, 
         return None, digest
     try:
         data = tomllib.loads(text)
+        return StudyMetadata.model_validate(data), digest
     except tomllib.TOMLDecodeError as exc:
         log.add(METADATA_FILE, _toml_line(str(exc)), "-", f"is not valid TOML ({exc})",
                 "correct the syntax at that line")
-        return None, digest
-    try:
-        return StudyMetadata.model_validate(data), digest
     except ValidationError as exc:
         for err in exc.errors():
             msg = err["msg"].removeprefix("Value error, ")
             log.add(METADATA_FILE, _location_text(err["loc"]), "-", msg, _fix_for(err))
-        return None, digest
+    except RecursionError:
+        log.add(METADATA_FILE, "-", "-", "nests arrays or tables too deeply to be read",
+                "write the metadata as in docs/study-folder.md")
+    return None, digest
 
 
 def _toml_line(message: str) -> str:

@@ -17,8 +17,9 @@ from pathlib import Path
 from . import __version__
 from .checks.common import not_assessable
 from .checks.registry import CheckContext, NotAssessable, all_checks
+from .errors import one_line_text
 from .results import Audit, CheckResult, Provenance, Verdict
-from .study import Study, load_study, outcome_data
+from .study import MIN_PER_ARM, Study, load_study, outcome_data
 
 CAUTIONS = [
     "This audit is a screening aid for a qualified statistician. It is not a regulatory or clinical "
@@ -74,26 +75,73 @@ def _analysis_date(study: Study, options: AuditOptions) -> str:
     return "not stated"
 
 
+MAX_REASON_CHARS = 300
+
+
 def run_checks_for_outcome(study: Study, spec, ctx: CheckContext, only: tuple[str, ...] = ()) -> list[CheckResult]:
-    """Every applicable check on one outcome, failures isolated."""
-    data = outcome_data(study, spec)
+    """Every applicable check on one outcome, failures isolated.
+
+    An outcome whose data cannot be assembled, or that fails :func:`outcome_screen`, gets a "not
+    assessable" finding from every check with the same reason; any exception inside a check becomes a
+    "not assessable" finding for that check alone.
+    """
+    design = study.metadata.study.design
+    checks = [c for c in all_checks() if (not only or c.id in only) and c.applies(spec, design)]
+    try:
+        data = outcome_data(study, spec)
+        reason = outcome_screen(data, ctx)
+    except Exception as exc:  # confined to this outcome, like a failing check
+        data, reason = None, f"its data could not be assembled ({_exception_text(exc)})"
     out = []
-    for check in all_checks():
-        if only and check.id not in only:
-            continue
-        if not check.applies(spec, data.design):
-            continue
+    for check in checks:
         if ctx.blinded and check.needs_arms:
-            out.append(not_assessable(check, spec, "not assessed in a blinded report"))
-            continue
-        try:
-            res = check.run(data, ctx)
-        except NotAssessable as exc:
-            res = not_assessable(check, spec, str(exc))
-        except (ValueError, ArithmeticError, RuntimeError, KeyError, IndexError, TypeError) as exc:
-            res = not_assessable(check, spec, f"the computation failed ({type(exc).__name__}: {exc})")
+            res = not_assessable(check, spec, "not assessed in a blinded report")
+        elif reason is not None:
+            res = not_assessable(check, spec, reason)
+        else:
+            res = run_one_check(check, data, ctx)
         out.append(blind(res) if ctx.blinded else res)
     return out
+
+
+def run_one_check(check, data, ctx: CheckContext) -> CheckResult:
+    """One check on one outcome; whatever goes wrong inside it becomes a "not assessable" finding."""
+    try:
+        return check.run(data, ctx)
+    except NotAssessable as exc:
+        return not_assessable(check, data.spec, one_line_text(exc, MAX_REASON_CHARS))
+    except Exception as exc:  # a model that fails on these data must not cost the rest of the audit
+        return not_assessable(check, data.spec, f"the computation failed ({_exception_text(exc)})")
+
+
+def _exception_text(exc: BaseException) -> str:
+    return one_line_text(f"{type(exc).__name__}: {exc}", MAX_REASON_CHARS)
+
+
+def outcome_screen(data, ctx: CheckContext) -> str | None:
+    """Why no check can use this outcome's data, found before any model is fitted; None if none.
+
+    Two conditions are screened here rather than in each check because every check would fail on
+    them, some of them obscurely (an exact fit has no residual variance): a follow-up identical to
+    baseline for everyone, and, in an unblinded parallel-group audit, an arm with fewer than
+    MIN_PER_ARM participants with data while another arm has enough.
+    """
+    frame = data.frame
+    with_base = "baseline" in frame.columns
+    pairs = frame.dropna(subset=["baseline", "followup"] if with_base else ["followup"])
+    if with_base and len(pairs) > 1 and (pairs["followup"] == pairs["baseline"]).all():
+        return (f"the follow-up value equals the baseline value for all {len(pairs)} participants with both "
+                "(a copied or carried-forward baseline?)")
+    if data.design != "parallel" or ctx.blinded:
+        return None
+    counts = pairs["arm"].value_counts()
+    thin = [a for a in data.arms if counts.get(a, 0) < MIN_PER_ARM]
+    if thin and len(thin) < len(data.arms):
+        what = "a baseline and a follow-up value" if with_base else "a follow-up value"
+        arm = thin[0]
+        return (f"arm '{arm}' has {counts.get(arm, 0)} of the {len(pairs)} participants with {what} "
+                f"(at least {MIN_PER_ARM} per arm are needed to compare arms)")
+    return None
 
 
 def blind(res: CheckResult) -> CheckResult:

@@ -7,9 +7,11 @@ participant (baseline, screening, each follow-up visit, arm, endpoint, covariate
 
 from __future__ import annotations
 
+import csv
 import hashlib
 import io
 import math
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -25,6 +27,14 @@ DERIVED_COLUMNS = ("BASE", "CHG", "PCHG")
 ARM_DEFAULTS = ("TRTP", "TRT01P", "TRTA", "TRT01A", "ARM")
 TRUE_CODES = {"1", "1.0", "y", "yes", "true", "t"}
 FALSE_CODES = {"0", "0.0", "n", "no", "false", "f"}
+MISSING_ID_TEXT = {"na", "nan", "n/a", "null", "none", "."}
+"""Identifier cells that a spreadsheet or an export wrote for "missing"; never a real participant."""
+MAX_ARM_MESSAGES = 5
+"""Unknown arm labels reported one by one; beyond this they are counted (a mapped column that is not
+the arm would otherwise give one line per participant)."""
+MIN_PER_ARM = 2
+"""Participants an arm needs before anything is compared with it."""
+DELIMITERS = ((";", "semicolons"), ("\t", "tabs"), ("|", "vertical bars"))
 
 
 @dataclass
@@ -64,34 +74,67 @@ class OutcomeData:
 
 
 def _inside(folder: Path, rel: str, key: str, log: ProblemLog) -> Path | None:
-    """Resolve a metadata path; refuse absolute paths and anything that leaves the folder."""
+    """Resolve a metadata path; refuse absolute paths and anything that leaves the folder.
+
+    The path is resolved with every symbolic link followed, so a link inside the folder that points
+    outside it is refused like ``../``.
+    """
+    if any(ord(ch) < 32 for ch in rel):
+        log.add(METADATA_FILE, key, "-", f"path '{rel}' contains a control character",
+                "give a plain relative path such as data/adeff.csv")
+        return None
     if Path(rel).is_absolute() or rel.startswith(("/", "\\")) or (len(rel) > 1 and rel[1] == ":"):
         log.add(METADATA_FILE, key, "-", f"path '{rel}' is absolute",
                 "give the path relative to the study folder")
         return None
-    root = folder.resolve()
-    target = (folder / rel).resolve()
+    try:
+        root = folder.resolve()
+        target = (folder / rel).resolve()
+    except (OSError, RuntimeError, ValueError):  # a link loop, or a name the system refuses
+        log.add(METADATA_FILE, key, "-", f"path '{rel}' cannot be resolved (a link loop?)",
+                "point it at the data file itself")
+        return None
     if target != root and root not in target.parents:
         log.add(METADATA_FILE, key, "-", f"path '{rel}' leaves the study folder",
                 "keep data files inside the study folder (links that point outside are refused)")
         return None
-    if not target.is_file():
+    if target.is_dir():
+        log.add(METADATA_FILE, key, "-", f"path '{rel}' is a folder, not a file",
+                "name the data file itself")
+        return None
+    if not target.exists():
         log.add(METADATA_FILE, key, "-", f"file '{rel}' does not exist",
                 "correct the path or add the file")
+        return None
+    if not target.is_file():
+        log.add(METADATA_FILE, key, "-", f"path '{rel}' is not a regular file",
+                "copy the data into an ordinary file inside the study folder")
         return None
     return target
 
 
-def _decode(raw: bytes) -> str:
-    """UTF-8 (with or without a byte-order mark), else Latin-1, which decodes any byte."""
+def _encoding_of(raw: bytes) -> str:
+    """UTF-16 when the file starts with a UTF-16 byte-order mark; else UTF-8 (with or without a
+    byte-order mark) when it decodes as such; else Latin-1, which decodes any byte."""
+    if raw.startswith((b"\xff\xfe", b"\xfe\xff")):
+        try:
+            raw.decode("utf-16")
+            return "utf-16"
+        except UnicodeDecodeError:
+            pass
     try:
-        return raw.decode("utf-8-sig")
+        raw.decode("utf-8-sig")
+        return "utf-8-sig"
     except UnicodeDecodeError:
-        return raw.decode("latin-1")
+        return "latin-1"
 
 
 def read_table(path: Path, label: str, log: ProblemLog) -> pd.DataFrame | None:
-    """Read a CSV, Parquet or SAS transport file into a DataFrame of the file's own columns."""
+    """Read a CSV, Parquet or SAS transport file into a DataFrame of the file's own columns.
+
+    Every failure becomes a problem in ``log`` naming the file (and the row where the parser says),
+    never an exception.
+    """
     try:
         size = path.stat().st_size
         if size == 0:
@@ -107,8 +150,6 @@ def read_table(path: Path, label: str, log: ProblemLog) -> pd.DataFrame | None:
             df = pd.read_sas(path, format="xport", encoding="latin-1")
         elif suffix in (".csv", ".txt"):
             df = _read_csv(path.read_bytes(), label, log)
-            if df is None:
-                return None
         else:
             log.add(label, "-", "-", f"has an unsupported type '{suffix}'",
                     "use .csv, .parquet or .xpt")
@@ -117,9 +158,15 @@ def read_table(path: Path, label: str, log: ProblemLog) -> pd.DataFrame | None:
         log.add(label, "-", "-", "cannot be read (permission denied)", "check the file permissions")
         return None
     except Exception as exc:  # malformed files of any format
-        log.add(label, "-", "-", f"cannot be parsed ({type(exc).__name__}: {str(exc)[:160]})",
+        detail = str(exc).replace(str(path), label).replace(str(path.parent), "")
+        log.add(label, "-", "-", f"cannot be parsed ({type(exc).__name__}: {detail[:160]})",
                 "export the file again in a supported format")
         return None
+    return None if df is None else _checked_columns(df, label, log)
+
+
+def _checked_columns(df: pd.DataFrame, label: str, log: ProblemLog) -> pd.DataFrame | None:
+    """Column names stripped of spaces; refuse a file with no data rows or a repeated column name."""
     df.columns = [str(c).strip() for c in df.columns]
     if df.empty:
         log.add(label, "-", "-", "has a header but no data rows", "export the data again")
@@ -132,16 +179,62 @@ def read_table(path: Path, label: str, log: ProblemLog) -> pd.DataFrame | None:
 
 
 def _read_csv(raw: bytes, label: str, log: ProblemLog) -> pd.DataFrame | None:
-    text = _decode(raw)
-    df = pd.read_csv(io.StringIO(text), dtype=str, keep_default_na=False, na_values=[""])
-    if df.shape[1] == 1:
-        header = df.columns[0]
-        for sep, name in ((";", "semicolons"), ("\t", "tabs"), ("|", "vertical bars")):
-            if sep in header:
-                log.add(label, "row 1", "-", f"uses {name} between columns, not commas",
-                        "save it as comma-separated CSV")
-                return None
-    return df
+    """A CSV file as text cells; the header is examined first so that a wrong delimiter, a binary
+    file or a repeated column name is named as such rather than as a parser failure."""
+    encoding = _encoding_of(raw)
+    if encoding != "utf-16" and b"\x00" in raw[:65536]:
+        log.add(label, "-", "-", "is not a text file (it holds binary data)",
+                "export the data as CSV, Parquet or SAS transport (.xpt)")
+        return None
+    header = _header_cells(raw[:1 << 20].decode(encoding, errors="replace"))
+    if header is None:
+        log.add(label, "-", "-", "has no header row (only blank lines)", "export the data again")
+        return None
+    if not _header_ok(header, label, log):
+        return None
+    try:
+        return pd.read_csv(io.BytesIO(raw), encoding=encoding, dtype=str, keep_default_na=False,
+                           na_values=[""])
+    except pd.errors.ParserError as exc:
+        where, problem = _parser_problem(str(exc))
+        log.add(label, where, "-", problem, "check the quoting and the number of cells on that row, "
+                "or export the file again")
+        return None
+
+
+def _header_cells(text: str) -> list[str] | None:
+    """The first non-blank row of a CSV text, split on commas (quotes respected)."""
+    for cells in csv.reader(io.StringIO(text)):
+        if any(c.strip() for c in cells):
+            return cells
+    return None
+
+
+def _header_ok(cells: list[str], label: str, log: ProblemLog) -> bool:
+    """Refuse a header that another delimiter separates, or that repeats a column name."""
+    line = ",".join(cells)
+    for sep, name in DELIMITERS:
+        if line.count(sep) > max(len(cells) - 1, 0):
+            log.add(label, "row 1", "-", f"uses {name} between columns, not commas",
+                    "save it as comma-separated CSV")
+            return False
+    names = [c.strip() for c in cells]
+    dup = sorted({c for c in names if names.count(c) > 1 and c})
+    if dup:
+        log.add(label, "row 1", dup[0], "column name appears more than once", "rename the duplicate column")
+        return False
+    return True
+
+
+def _parser_problem(message: str) -> tuple[str, str]:
+    """The row and the plain-words problem from a pandas CSV parser message."""
+    m = re.search(r"Expected (\d+) fields in line (\d+), saw (\d+)", message)
+    if m:
+        return f"row {m.group(2)}", f"has {m.group(3)} cells where the header has {m.group(1)}"
+    m = re.search(r"EOF inside string starting at row (\d+)", message)
+    if m:
+        return f"row {int(m.group(1)) + 1}", "a quoted cell that starts on this row is never closed"
+    return "-", f"cannot be parsed as CSV ({message.strip()[:160]})"
 
 
 def _sha256(path: Path) -> str:
@@ -202,6 +295,45 @@ def _visit_key(v) -> str:
     return str(v).strip()
 
 
+def _visit_number_key(v) -> str:
+    """A visit-number cell as text, numbers written as :func:`_visit_key` writes them, so that the
+    cell ``4.0`` (a SAS export) matches the visit ``4`` of study.toml."""
+    text = str(v).strip()
+    try:
+        number = float(text)
+    except ValueError:
+        return text
+    return _visit_key(number) if math.isfinite(number) else text
+
+
+def _keys(series: pd.Series, key) -> pd.Series:
+    """``key`` applied to each distinct non-empty cell (fast on a million rows of a few visits)."""
+    text = series.astype("string").str.strip()
+    text = text.where(text != "", pd.NA)
+    mapping = {u: key(u) for u in text.dropna().unique()}
+    return text.map(mapping).astype("string")
+
+
+def _among(series: pd.Series, values) -> np.ndarray:
+    """``series.isin(values)`` as a boolean array, by hashing (fast for a million text cells; the
+    Arrow-backed string ``isin`` of pandas converts every value one by one)."""
+    pool = pd.unique(pd.Series(values, dtype=object).dropna())
+    return series.astype(object).isin(pool).to_numpy(dtype=bool)
+
+
+def _check_ids(ids: pd.Series, label: str, column: str, log: ProblemLog) -> None:
+    """Participant identifiers must be present and must not be the text of a missing value."""
+    missing = ids.isna() | (ids == "")
+    if missing.any():
+        log.add(label, rows_text(np.flatnonzero(missing.to_numpy())), column, "participant identifier is empty",
+                "fill in the identifier or drop the row")
+    na_text = ids.str.lower().isin(MISSING_ID_TEXT).fillna(False)
+    if na_text.any():
+        pos = np.flatnonzero(na_text.to_numpy())
+        log.add(label, rows_text(pos), column, f"participant identifier is the missing-value text "
+                f"'{ids.iloc[pos[0]]}'", "fill in the identifier or drop the row")
+
+
 # --------------------------------------------------------------------------- loading
 
 
@@ -240,7 +372,8 @@ def load_study(folder: str | Path) -> Study:
     participants = _participants(raw_part, long, meta, log)
     log.raise_if_errors()
 
-    _check_arms(long, participants, meta, log)
+    arm_col = _arm_column(raw_part if raw_part is not None else raw_visits, meta.columns.arm)
+    _check_arms(long, participants, meta, arm_col, log)
     for i, spec in enumerate(meta.outcomes):
         _check_outcome(long, participants, spec, i, meta, visits_label, log)
     log.raise_if_errors()
@@ -270,18 +403,14 @@ def _normalise_long(df: pd.DataFrame, meta: StudyMetadata, label: str, log: Prob
         "row": np.arange(len(df)),
         "subject": df[cm.subject].astype("string").str.strip(),
         "param": df[cm.param].astype("string").str.strip(),
-        "visit": df[visit_col].map(lambda v: _visit_key(v) if pd.notna(v) else pd.NA).astype("string"),
+        "visit": _keys(df[visit_col], _visit_number_key if visit_col == cm.visit_number else _visit_key),
         "value": _as_numbers(df[cm.value], label, cm.value, log),
     })
     if cm.visit_number in df.columns and visit_col != cm.visit_number:
-        out["visit_number"] = df[cm.visit_number].map(
-            lambda v: _visit_key(v) if pd.notna(v) and str(v).strip() else pd.NA).astype("string")
+        out["visit_number"] = _keys(df[cm.visit_number], _visit_number_key)
     if arm_col is not None:
         out["arm"] = df[arm_col].astype("string").str.strip()
-    missing_id = out["subject"].isna() | (out["subject"] == "")
-    if missing_id.any():
-        log.add(label, rows_text(np.flatnonzero(missing_id)), cm.subject, "participant identifier is empty",
-                "fill in the identifier or drop the row")
+    _check_ids(out["subject"], label, cm.subject, log)
     return out
 
 
@@ -290,6 +419,7 @@ def _wide_to_long(df: pd.DataFrame, meta: StudyMetadata, label: str, log: Proble
     if not _need_column(df, cm.subject, label, "subject", log):
         return pd.DataFrame()
     arm_col = _arm_column(df, cm.arm)
+    _check_ids(df[cm.subject].astype("string").str.strip(), label, cm.subject, log)
     pieces = []
     for spec in meta.outcomes:
         for visit in _visits_of(spec):
@@ -354,6 +484,7 @@ def _participants(raw: pd.DataFrame | None, long: pd.DataFrame, meta: StudyMetad
             return pd.DataFrame()
     else:
         out["arm"] = raw[arm_col].astype("string").str.strip()
+    _check_ids(out["subject"], label, cm.subject, log)
     dup = out["subject"].duplicated(keep=False) & out["subject"].notna()
     if dup.any():
         log.add(label, rows_text(np.flatnonzero(dup)), cm.subject,
@@ -363,23 +494,23 @@ def _participants(raw: pd.DataFrame | None, long: pd.DataFrame, meta: StudyMetad
         extra_cols.update(spec.covariates)
         if spec.risk_endpoint:
             extra_cols.add(spec.risk_endpoint)
-    for col in sorted(extra_cols):
+    for col in sorted(extra_cols - {"subject", "arm"}):
         if col not in raw.columns:
             continue  # reported per outcome
         out[col] = raw[col].reset_index(drop=True)
     return out
 
 
-def _check_arms(long: pd.DataFrame, part: pd.DataFrame, meta: StudyMetadata, log: ProblemLog) -> None:
+def _check_arms(long: pd.DataFrame, part: pd.DataFrame, meta: StudyMetadata, arm_col: str | None,
+                log: ProblemLog) -> None:
+    """Arms against study.arms, the number of arms against the design, and participants present in
+    one file but not the other."""
     label = meta.files.participants or meta.files.visits
-    arm_name = meta.columns.arm or "TRT01P"
+    arm_name = arm_col or meta.columns.arm or "TRT01P"
     declared = set(meta.study.arms)
-    present = set(part["arm"].dropna().unique())
+    present = set(part["arm"].dropna().unique()) - {""}
     if declared:
-        for arm in sorted(present - declared):
-            rows = np.flatnonzero((part["arm"] == arm).to_numpy())
-            log.add(label, rows_text(rows), arm_name, f"arm '{arm}' is not in study.arms",
-                    f"add it to [study] arms or correct the label ({did_you_mean(arm, declared)})")
+        _unknown_arms(part, sorted(present - declared), declared, label, arm_name, log)
         for arm in sorted(declared - present):
             log.add(METADATA_FILE, "study.arms", "-", f"arm '{arm}' has no participants in the data",
                     "remove it from [study] arms or check the arm column")
@@ -387,21 +518,60 @@ def _check_arms(long: pd.DataFrame, part: pd.DataFrame, meta: StudyMetadata, log
     if no_arm.any():
         log.add(label, rows_text(np.flatnonzero(no_arm)), arm_name, "arm is empty",
                 "fill in the planned arm")
-    in_visits = set(long["subject"].dropna().unique())
-    in_part = set(part["subject"].dropna().unique())
-    if meta.files.participants:
-        orphans = sorted(in_visits - in_part)
-        if orphans:
-            rows = np.flatnonzero(long["subject"].isin(orphans).to_numpy())
-            log.add(meta.files.visits, rows_text(rows), meta.columns.subject,
-                    f"{len(orphans)} participant(s) are not in the participant file",
-                    f"add them to {meta.files.participants} or drop their rows")
-        silent = sorted(in_part - in_visits)
-        if silent:
-            rows = np.flatnonzero(part["subject"].isin(silent).to_numpy())
-            log.add(meta.files.participants, rows_text(rows), meta.columns.subject,
-                    f"{len(silent)} participant(s) have no visit data", "they are left out of every check",
+    _arms_against_design(part, present, meta, label, arm_name, log)
+    _subjects_in_both(long, part, meta, log)
+
+
+def _unknown_arms(part: pd.DataFrame, unknown: list[str], declared: set, label: str, arm_name: str,
+                  log: ProblemLog) -> None:
+    for arm in unknown[:MAX_ARM_MESSAGES]:
+        rows = np.flatnonzero((part["arm"] == arm).fillna(False).to_numpy())
+        log.add(label, rows_text(rows), arm_name, f"arm '{arm}' is not in study.arms",
+                f"add it to [study] arms or correct the label ({did_you_mean(arm, declared)})")
+    if len(unknown) > MAX_ARM_MESSAGES:
+        log.add(label, "-", arm_name, f"{len(unknown) - MAX_ARM_MESSAGES} more arm labels are not in study.arms "
+                f"({len(unknown)} in all)", "check that this column holds the planned arm, or map the arm "
+                "column under [columns] in study.toml")
+
+
+def _arms_against_design(part: pd.DataFrame, present: set, meta: StudyMetadata, label: str, arm_name: str,
+                         log: ProblemLog) -> None:
+    """A parallel design needs two arms in the data; a lone participant in an arm, or several arms in
+    a single-arm design, is allowed but said."""
+    if meta.study.design == "parallel" and len(present) == 1:
+        log.add(label, "-", arm_name, f"every participant is in arm '{next(iter(present))}', but a "
+                "parallel-group design needs participants in at least two arms",
+                "check the arm column, or set design = \"single-arm\" for a before-after study")
+    if meta.study.design == "single-arm" and len(present) > 1:
+        log.add(label, "-", arm_name, f"the data hold {len(present)} arms but the design is single-arm",
+                "the arms are pooled; set design = \"parallel\" with arms and control_arm to compare them",
+                severity="warning")
+    if meta.study.design == "parallel":
+        counts = part["arm"].value_counts()
+        for arm in sorted(a for a in present if counts.get(a, 0) < MIN_PER_ARM):
+            rows = np.flatnonzero((part["arm"] == arm).fillna(False).to_numpy())
+            log.add(label, rows_text(rows), arm_name, f"arm '{arm}' has a single participant",
+                    "no comparison with this arm is possible: its outcomes are reported as not assessable",
                     severity="warning")
+
+
+def _subjects_in_both(long: pd.DataFrame, part: pd.DataFrame, meta: StudyMetadata, log: ProblemLog) -> None:
+    """Participants in the visit file but not the participant file (an error) and the reverse (a
+    warning: randomised participants without visit data are ordinary drop-outs)."""
+    if not meta.files.participants:
+        return
+    orphan = long["subject"].notna().to_numpy() & ~_among(long["subject"], part["subject"].unique())
+    if orphan.any():
+        n = long.loc[orphan, "subject"].nunique()
+        log.add(meta.files.visits, rows_text(np.flatnonzero(orphan)), meta.columns.subject,
+                f"{n} participant(s) are not in the participant file",
+                f"add them to {meta.files.participants} or drop their rows")
+    silent = part["subject"].notna().to_numpy() & ~_among(part["subject"], long["subject"].unique())
+    if silent.any():
+        n = part.loc[silent, "subject"].nunique()
+        log.add(meta.files.participants, rows_text(np.flatnonzero(silent)), meta.columns.subject,
+                f"{n} participant(s) have no visit data", "they are left out of every check",
+                severity="warning")
 
 
 def _visits_of(spec: OutcomeSpec) -> list:
@@ -457,7 +627,7 @@ def _check_outcome(long: pd.DataFrame, part: pd.DataFrame, spec: OutcomeSpec, i:
         outside = (values < (lo if lo is not None else -math.inf)) | (values > (hi if hi is not None else math.inf))
         if outside.any():
             log.add(label, rows_text(used.loc[outside, "row"].to_numpy()), cm.value,
-                    f"'{spec.param}' value outside its declared bounds [{lo}, {hi}]",
+                    f"'{spec.param}' value outside its declared bounds {_bounds_text(lo, hi)}",
                     "correct the value or the outcome's bounds")
     if spec.scale == "ordinal":
         bad = values.notna() & ~values.isin(spec.levels)
@@ -471,21 +641,22 @@ def _check_outcome(long: pd.DataFrame, part: pd.DataFrame, spec: OutcomeSpec, i:
             log.add(label, rows_text(used.loc[bad, "row"].to_numpy()), cm.value,
                     f"binary outcome '{spec.param}' has a value other than 0 or 1", "code it 0/1")
     if spec.baseline_visit is not None:
-        with_base = set(rows.loc[_visit_rows(rows, spec.baseline_visit) & rows["value"].notna(), "subject"])
-        lacking = sorted(set(rows["subject"].dropna()) - with_base)
+        with_base = rows.loc[_visit_rows(rows, spec.baseline_visit) & rows["value"].notna(), "subject"].unique()
+        lacking = rows.loc[rows["subject"].notna().to_numpy() & ~_among(rows["subject"], with_base),
+                           "subject"].nunique()
         if lacking:
-            log.add(label, "-", cm.value, f"{len(lacking)} participant(s) have no baseline value for "
+            log.add(label, "-", cm.value, f"{lacking} participant(s) have no baseline value for "
                     f"'{spec.param}'", "they are left out of the baseline-adjusted checks",
                     severity="warning")
     plabel = meta.files.participants or meta.files.visits
     for cov in spec.covariates:
-        if cov not in part.columns:
-            log.add(plabel, "row 1", cov, f"covariate of '{spec.param}' is missing",
-                    "add the column to the participant file or remove it from covariates")
-        else:
-            _as_numbers(part[cov], plabel, cov, log, what="covariate")
+        _check_covariate(part, spec, cov, f"{key}.covariates", plabel, meta, log)
     if spec.risk_endpoint:
-        if spec.risk_endpoint not in part.columns:
+        if spec.risk_endpoint in _reserved_columns(meta):
+            log.add(METADATA_FILE, f"{key}.risk_endpoint", spec.risk_endpoint,
+                    "names the participant identifier or the arm, not an event endpoint",
+                    "name the column that holds the event (coded 0/1 or Y/N)")
+        elif spec.risk_endpoint not in part.columns:
             log.add(plabel, "row 1", spec.risk_endpoint, f"risk endpoint of '{spec.param}' is missing",
                     "add the column to the participant file or remove risk_endpoint")
         else:
@@ -494,6 +665,37 @@ def _check_outcome(long: pd.DataFrame, part: pd.DataFrame, spec: OutcomeSpec, i:
             if bad.any():
                 log.add(plabel, rows_text(np.flatnonzero(bad.to_numpy())), spec.risk_endpoint,
                         "event endpoint is not binary", "code it 0/1 or Y/N")
+
+
+def _bounds_text(lo, hi) -> str:
+    """``[0.0, inf]``: declared bounds, a missing bound written as the infinity it stands for."""
+    def one(b, none):
+        return none if b is None else str(float(b))
+    return f"[{one(lo, '-inf')}, {one(hi, 'inf')}]"
+
+
+def _reserved_columns(meta: StudyMetadata) -> set[str]:
+    """Columns that are never a covariate or an endpoint: the identifier, the arm, and the internal
+    names of the participant frame."""
+    cm = meta.columns
+    return {cm.subject, cm.arm or "", *ARM_DEFAULTS, "subject", "arm"} - {""}
+
+
+def _check_covariate(part: pd.DataFrame, spec: OutcomeSpec, cov: str, key: str, label: str,
+                     meta: StudyMetadata, log: ProblemLog) -> None:
+    """A covariate must exist, must not be the identifier or the arm, must be numeric, and should vary."""
+    if cov in _reserved_columns(meta):
+        log.add(METADATA_FILE, key, cov, f"covariate of '{spec.param}' is the participant "
+                "identifier or the arm", "name a numeric participant-level column instead")
+        return
+    if cov not in part.columns:
+        log.add(label, "row 1", cov, f"covariate of '{spec.param}' is missing",
+                "add the column to the participant file or remove it from covariates")
+        return
+    values = _as_numbers(part[cov], label, cov, log, what="covariate")
+    if values.notna().any() and values.nunique() == 1:
+        log.add(label, "-", cov, f"covariate of '{spec.param}' has the same value for every participant",
+                "it carries no information; remove it from covariates", severity="warning")
 
 
 def _binary_code(v):
@@ -515,7 +717,7 @@ def outcome_data(study: Study, spec: OutcomeSpec) -> OutcomeData:
     rows = study.visits[study.visits["param"] == spec.param]
     part = study.participants
     frame = part[["subject", "arm"]].copy()
-    frame = frame[frame["subject"].isin(set(rows["subject"]))]
+    frame = frame[_among(frame["subject"], rows["subject"].unique())]
 
     def values_at(visit, name):
         sel = rows[_visit_rows(rows, visit)][["subject", "value"]].rename(columns={"value": name})

@@ -58,6 +58,10 @@ def _ci(lo, hi) -> str:
     return f"{number(lo)} to {number(hi)}"
 
 
+UNDRAWN_SVG = ('<svg xmlns="http://www.w3.org/2000/svg" width="320" height="40" viewBox="0 0 320 40">'
+               '<text x="8" y="24" font-family="sans-serif" font-size="12">Figure not drawn</text></svg>')
+
+
 def _svg_data_uri(svg: str) -> str:
     return "data:image/svg+xml;base64," + base64.b64encode(svg.encode("utf-8")).decode("ascii")
 
@@ -74,12 +78,25 @@ def table_view(t) -> dict:
     return {"title": t.title, "columns": t.columns, "note": t.note, "rows": rows}
 
 
+def _figure_src(f) -> str:
+    """The figure as an inline data URI, or None when drawing it fails.
+
+    A figure that cannot be drawn from unusual data must not cost the whole report.
+    """
+    try:
+        return _svg_data_uri(to_svg(f))
+    except Exception:  # any drawing failure, confined to this figure
+        return None
+
+
 def result_view(r: CheckResult, figure_no: list[int]) -> dict:
     figs = []
     for f in r.figures:
         figure_no[0] += 1
-        figs.append({"number": figure_no[0], "title": f.title, "caption": f.caption,
-                     "src": _svg_data_uri(to_svg(f))})
+        src = _figure_src(f)
+        caption = f.caption if src else "This figure could not be drawn from these data."
+        figs.append({"number": figure_no[0], "title": f.title, "caption": caption,
+                     "src": src or _svg_data_uri(UNDRAWN_SVG)})
     return {
         "check_id": r.check_id,
         "check_title": r.check_title,
