@@ -73,9 +73,20 @@ def _is_p_column(name: str) -> bool:
 def table_view(t) -> dict:
     """A table's cells as display strings; columns headed p are shown as p-values."""
     fmt = [p_text if _is_p_column(c) else number for c in t.columns]
-    rows = [[fmt[i](c) if i < len(fmt) and isinstance(c, (int, float)) and not isinstance(c, bool) else number(c)
+    rows = [[fmt[i](c) if i < len(fmt) and _is_number(c) else number(c)
              for i, c in enumerate(row)] for row in t.rows]
-    return {"title": t.title, "columns": t.columns, "note": t.note, "rows": rows}
+    numeric = [_numeric_column(t.rows, i) for i in range(len(t.columns))]
+    return {"title": t.title, "columns": t.columns, "numeric": numeric, "note": t.note, "rows": rows}
+
+
+def _is_number(c) -> bool:
+    return isinstance(c, (int, float)) and not isinstance(c, bool)
+
+
+def _numeric_column(rows, i: int) -> bool:
+    """True when every filled cell of column ``i`` is a number: it is then right-aligned and unbroken."""
+    cells = [row[i] for row in rows if i < len(row) and row[i] is not None]
+    return bool(cells) and all(_is_number(c) for c in cells)
 
 
 def _figure_src(f) -> str:
