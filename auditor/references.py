@@ -17,7 +17,11 @@ REFERENCES: dict[str, str] = {
                            "2006;332:1080.",
     "barnett-2005": "Barnett AG, van der Pols JC, Dobson AJ. Regression to the mean: what it is and how to "
                     "deal with it. Int J Epidemiol 2005;34:215-220.",
-    "harrell-2015": "Harrell FE. Regression Modeling Strategies, 2nd ed. Springer, 2015.",
+    "durrleman-simon-1989": "Durrleman S, Simon R. Flexible regression models with cubic splines. Stat Med "
+                            "1989;8:551-561.",
+    "peduzzi-1996": "Peduzzi P, Concato J, Kemper E, Holford TR, Feinstein AR. A simulation study of the "
+                    "number of events per variable in logistic regression analysis. J Clin Epidemiol "
+                    "1996;49:1373-1379.",
     "stone-koo-1985": "Stone CJ, Koo CY. Additive splines in statistics. Proceedings of the Statistical "
                       "Computing Section, American Statistical Association, 1985:45-48.",
     "mccullagh-1980": "McCullagh P. Regression models for ordinal data. J R Stat Soc B 1980;42:109-142.",
@@ -27,8 +31,6 @@ REFERENCES: dict[str, str] = {
                     "Biometrika 1957;44:470-481.",
     "cleveland-1979": "Cleveland WS. Robust locally weighted regression and smoothing scatterplots. J Am "
                       "Stat Assoc 1979;74:829-836.",
-    "senn-2006": "Senn S. Change from baseline and analysis of covariance revisited. Stat Med "
-                 "2006;25:4334-4344.",
     "ema-2015": "European Medicines Agency. Guideline on adjustment for baseline covariates in clinical "
                 "trials. EMA/CHMP/295050/2013, 2015.",
     "shrout-fleiss-1979": "Shrout PE, Fleiss JL. Intraclass correlations: uses in assessing rater "

@@ -464,10 +464,10 @@ def run(data, ctx: CheckContext):
     return result(check, data, verdict, headline, subfindings=[p.sub for p in parts.values()],
                   estimates=estimates, tables=tables, figures=_figures(data, df, arms, flex_fit, plan, ctx.seed),
                   caveats=caveats,
-                  references=cite(["frison-pocock-1992", "clifton-2019", "vickers-altman-2001", "senn-2006",
-                                   "harrell-2015", "box-cox-1964", "glejser-1969", "mchorney-tarlov-1995",
+                  references=cite(["frison-pocock-1992", "clifton-2019", "vickers-altman-2001",
+                                   "durrleman-simon-1989", "stone-koo-1985", "box-cox-1964", "glejser-1969", "mchorney-tarlov-1995",
                                    "terwee-2007", "barnett-2005", "mccullagh-1980"]),
-                  method="Restricted cubic spline (Harrell knots) or quadratic for discrete baselines, F test against "
+                  method="Restricted cubic spline (knots at quantiles) or quadratic for discrete baselines, F test against "
                          "linear; Glejser-type trend of absolute residuals and a Box-Cox profile likelihood (each at "
                          "2.5%); shares at bounds (15% threshold); slope CI against 1; Frison-Pocock efficiency with "
                          "CI from the Fisher interval of r; the four analyses fitted on the same participants.")

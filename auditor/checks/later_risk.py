@@ -79,7 +79,7 @@ def _applies(spec, design) -> bool:
 class Term:
     """One measurement as it enters a model: its scale (log or not) and its spline plan.
 
-    The basis is :func:`flexible_basis`: the restricted cubic spline of :func:`rcs_basis`, or, with
+    The basis is :func:`flexible_basis`: the restricted cubic spline of :func:`spline_basis`, or, with
     too few distinct values, u and (u - centre)^2 with the centre fixed in the plan, so that
     predictions at new values use the same basis as the fit.
     """
@@ -90,8 +90,8 @@ class Term:
 
     @classmethod
     def from_values(cls, name: str, x: np.ndarray, log: bool, effective_n: int) -> "Term":
-        """Knots at Harrell's quantiles, their number from :func:`knot_count` on the effective sample
-        size min(events, non-events) (Harrell 2015, section 4.4)."""
+        """Knots at the spline module's quantiles, their number from :func:`knot_count` on the
+        effective sample size min(events, non-events) (events per variable: Peduzzi et al. 1996)."""
         u = _scale(x, log)
         return cls(name, log, choose_knots(u, knot_count(effective_n, len(np.unique(u)))))
 
@@ -457,7 +457,7 @@ def run(data, ctx: CheckContext):
     return result(check, data, verdict, view.headline(verdict), subfindings=view.subfindings(),
                   estimates=view.estimates(),
                   tables=view.tables(), figures=view.figures(), caveats=view.caveats(),
-                  references=cite(["harrell-2015", "stone-koo-1985", "wilks-1938", "akaike-1974",
+                  references=cite(["durrleman-simon-1989", "peduzzi-1996", "stone-koo-1985", "wilks-1938", "akaike-1974",
                                    "berger-1982", "lind-mehlum-2010", "hothorn-2008", "efron-tibshirani-1993",
                                    "albert-anderson-1984"]),
                   method=view.method())

@@ -678,7 +678,7 @@ def run(data, ctx: CheckContext):
         responder = rc.responder_indicator(inp.b, inp.f, r.basis, r.threshold, r.direction)
     cost = None
     if inp.arm_columns:
-        out.cite("harrell-2015", "noether-1955", "efron-tibshirani-1993")
+        out.cite("durrleman-simon-1989", "noether-1955", "efron-tibshirani-1993")
         fits = _fit_analyses(inp, spec, ctx, responder, out)
         cost = _measure_cost(fits, inp, ctx)
         _report_effects(fits, cost, inp, spec, out)

@@ -5,7 +5,7 @@
 - ANCOVA, linear:      Y1 = a + b*Y0 + d*arm + e
 - ANCOVA, spline:      Y1 = a + s(Y0) + d*arm + e, s a restricted cubic spline (or a quadratic)
 
-(Vickers and Altman, BMJ 2001;323:1123; Senn, Stat Med 2006;25:4334.) The treatment effect d is
+(Vickers and Altman, BMJ 2001;323:1123; Frison and Pocock, Stat Med 1992;11:1685.) The treatment effect d is
 reported for each non-control arm against the control.
 """
 

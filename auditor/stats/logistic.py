@@ -252,7 +252,7 @@ def block_columns(name: str, matrix: np.ndarray) -> dict[str, np.ndarray]:
 
 def chi_square_partition(y, blocks: dict[str, np.ndarray], adjust: dict[str, np.ndarray] | None = None
                          ) -> ChiSquarePartition:
-    """Partition the LR chi-square of y ~ blocks + adjust by block (Harrell 2015, section 5.4).
+    """Partition the LR chi-square of y ~ blocks + adjust by block (Wilks 1938 for each nested comparison).
 
     Each block is an n x m basis whose first column is the linear term and the others its nonlinear
     terms (a restricted cubic spline basis, for instance). For each block b:

@@ -1097,7 +1097,7 @@ def concordance_probability(log_odds_ratio: float, *, method: str = "power") -> 
 
     method="power": the approximation c ~ OR^0.66 / (1 + OR^0.66), an empirical
     fit to proportional-odds models published in the ordinal-outcome literature
-    (attributed to Harrell; source cited from memory). It ignores ties and the
+    (a rule of thumb: a convention with no source checked here). It ignores ties and the
     baseline distribution.
     method="continuous": the exact value for a continuous outcome without ties,
     c = OR (OR - 1 - log OR) / (OR - 1)^2 (from integrating

@@ -3,7 +3,7 @@
     Y_iv = a_v + b_v [arm_i] + c Y_i0 + u_i + e_iv,   u_i ~ N(0, tau^2), e_iv ~ N(0, sigma^2)
 
 fitted by restricted maximum likelihood (statsmodels MixedLM, random intercept per participant).
-Baseline is never a response, so its information is used once (Senn 2006; the constrained
+Baseline is never a response, so its information is used once (the constrained
 longitudinal alternatives are discussed by Liu et al., Stat Med 2009;28:2509-2530).
 """
 

@@ -1,8 +1,8 @@
 """Restricted cubic spline bases and the rule that chooses their knots.
 
 A restricted (natural) cubic spline is cubic between knots and linear beyond the outer knots, so it
-bends where the data are and does not flail at the ends (Stone and Koo 1985; Harrell, Regression
-Modeling Strategies, 2nd ed., 2015, section 2.4.5).
+bends where the data are and does not flail at the ends (Stone and Koo 1985;
+Durrleman and Simon, Stat Med 1989;8:551-561).
 """
 
 from __future__ import annotations
@@ -11,7 +11,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-#: Quantiles at which knots are placed, by number of knots (Harrell 2015, Table 2.3).
+#: Quantiles at which knots are placed, by number of knots: spread evenly over the central mass,
+#: with the outer knots near the 5th and 95th percentiles so that few points lie beyond them
+#: (a convention of this tool; Durrleman and Simon 1989 place knots at percentiles in the same way).
 KNOT_QUANTILES = {
     3: (0.10, 0.50, 0.90),
     4: (0.05, 0.35, 0.65, 0.95),
@@ -40,8 +42,8 @@ class SplinePlan:
 def knot_count(n: int, n_distinct: int) -> int:
     """Number of knots for a sample of ``n`` with ``n_distinct`` distinct values.
 
-    Convention of this tool (after Harrell 2015, section 2.4.6, who finds 3 to 5 knots enough for
-    most data): 3 knots below 30 observations, 4 below 100, 5 otherwise; never more than
+    Convention of this tool (3 to 5 knots fit most smooth relations in trial-sized samples; more
+    spend degrees of freedom on noise): 3 knots below 30 observations, 4 below 100, 5 otherwise; never more than
     ``n_distinct - 2`` so that each knot sits between distinct values.
     """
     k = 3 if n < 30 else 4 if n < 100 else 5
@@ -49,7 +51,7 @@ def knot_count(n: int, n_distinct: int) -> int:
 
 
 def choose_knots(x: np.ndarray, n_knots: int | None = None) -> SplinePlan:
-    """Knots at Harrell's quantiles, or a quadratic when the values are too discrete for a spline.
+    """Knots at the quantiles of :data:`KNOT_QUANTILES`, or a quadratic when the values are too discrete for a spline.
 
     With fewer than 6 distinct values (a short ordinal scale, for example) quantile knots coincide,
     so the nonlinearity is carried by a quadratic term instead (a convention of this tool).
@@ -68,8 +70,8 @@ def choose_knots(x: np.ndarray, n_knots: int | None = None) -> SplinePlan:
                       f"{len(knots)} knots at quantiles of {len(x)} values")
 
 
-def rcs_basis(x: np.ndarray, knots) -> np.ndarray:
-    """The restricted cubic spline basis (Harrell's truncated-power form): columns x, s_1..s_{k-2}.
+def spline_basis(x: np.ndarray, knots) -> np.ndarray:
+    """The restricted cubic spline basis (the truncated-power form of Durrleman and Simon 1989): columns x, s_1..s_{k-2}.
 
     s_j(x) = [(x - t_j)+^3 - (x - t_{k-1})+^3 (t_k - t_j)/(t_k - t_{k-1})
               + (x - t_k)+^3 (t_{k-1} - t_j)/(t_k - t_{k-1})] / (t_k - t_1)^2
@@ -101,4 +103,4 @@ def flexible_basis(x: np.ndarray, plan: SplinePlan) -> np.ndarray:
     x = np.asarray(x, dtype=float)
     if plan.kind == "quadratic":
         return np.column_stack([x, (x - plan.center) ** 2])
-    return rcs_basis(x, plan.knots)
+    return spline_basis(x, plan.knots)

@@ -24,13 +24,13 @@ def _anorexia_r() -> float:
 def _spline_vs_patsy() -> float:
     import patsy
 
-    from ..stats.splines import choose_knots, rcs_basis
+    from ..stats.splines import choose_knots, spline_basis
 
     rng = np.random.default_rng(3)
     x = rng.normal(10, 3, 250)
     y = np.sin(x / 2) + rng.normal(0, 0.3, 250)
     k = np.asarray(choose_knots(x).knots)
-    ours = np.column_stack([np.ones_like(x), rcs_basis(x, k)])
+    ours = np.column_stack([np.ones_like(x), spline_basis(x, k)])
     ref = np.asarray(patsy.dmatrix("cr(x, knots=inner, lower_bound=lo, upper_bound=hi) - 1",
                                    {"x": x, "inner": k[1:-1], "lo": k[0], "hi": k[-1]}))
     return float(np.max(np.abs(ours @ np.linalg.lstsq(ours, y, rcond=None)[0]

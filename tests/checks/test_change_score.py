@@ -11,7 +11,7 @@ from auditor.checks.change_score import run
 from auditor.checks.registry import CheckContext
 from auditor.stats.diagnostics import boxcox_profile
 from auditor.stats.efficiency import sample_size_ratio, variance_factor
-from auditor.stats.splines import choose_knots, rcs_basis
+from auditor.stats.splines import choose_knots, spline_basis
 from auditor.study import OutcomeData
 from auditor.validation.change_score_cases import SCENARIOS, outcome_data_for, run_scenario
 
@@ -63,7 +63,7 @@ def test_spline_fit_equals_patsy_natural_cubic_spline():
     y = np.sin(x / 2) + rng.normal(0, 0.3, 250)
     plan = choose_knots(x)
     knots = np.asarray(plan.knots)
-    ours = np.column_stack([np.ones_like(x), rcs_basis(x, knots)])
+    ours = np.column_stack([np.ones_like(x), spline_basis(x, knots)])
     ref = np.asarray(patsy.dmatrix("cr(x, knots=inner, lower_bound=lo, upper_bound=hi) - 1",
                                    {"x": x, "inner": knots[1:-1], "lo": knots[0], "hi": knots[-1]}))
     fit_ours = ours @ np.linalg.lstsq(ours, y, rcond=None)[0]
@@ -74,10 +74,10 @@ def test_spline_fit_equals_patsy_natural_cubic_spline():
 def test_spline_basis_is_linear_beyond_outer_knots():
     knots = [1.0, 2.0, 4.0, 7.0]
     x = np.linspace(7.5, 20, 30)
-    basis = rcs_basis(x, knots)
+    basis = spline_basis(x, knots)
     second = np.diff(basis, n=2, axis=0)
     assert np.max(np.abs(second)) < 1e-9
-    assert np.allclose(rcs_basis(np.linspace(-5, 0.9, 10), knots)[:, 1:], 0)
+    assert np.allclose(spline_basis(np.linspace(-5, 0.9, 10), knots)[:, 1:], 0)
 
 
 def test_boxcox_finds_log_scale_for_multiplicative_data():

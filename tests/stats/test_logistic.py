@@ -22,7 +22,7 @@ from auditor.stats.logistic import (
     lr_test,
     risk_band,
 )
-from auditor.stats.splines import choose_knots, rcs_basis
+from auditor.stats.splines import choose_knots, spline_basis
 
 
 def _simulated(seed: int, n: int = 400):
@@ -156,7 +156,7 @@ def test_partition_matches_fits_done_by_hand():
     a, b, age = rng.normal(0, 1, n), rng.normal(0, 1, n), rng.normal(50, 10, n)
     y = (rng.uniform(size=n) < special.expit(-1 + 0.8 * a ** 2 - 0.5 * b + 0.02 * (age - 50))).astype(float)
     ka, kb = choose_knots(a, 4).knots, choose_knots(b, 4).knots
-    Ba, Bb = rcs_basis(a, ka), rcs_basis(b, kb)
+    Ba, Bb = spline_basis(a, ka), spline_basis(b, kb)
     part = chi_square_partition(y, {"a": Ba, "b": Bb}, {"age": age})
 
     def ll(*mats):
@@ -210,12 +210,12 @@ def test_risk_band_is_the_delta_method_on_the_logit_scale():
 
 def test_restricted_cubic_spline_is_linear_beyond_the_outer_knots():
     knots = (1.0, 2.0, 3.5, 5.0)
-    B = rcs_basis(np.linspace(5.0, 9.0, 41), knots)
+    B = spline_basis(np.linspace(5.0, 9.0, 41), knots)
     np.testing.assert_allclose(np.diff(B, 2, axis=0), 0.0, atol=1e-10)
-    below = rcs_basis(np.linspace(-3.0, 1.0, 41), knots)
+    below = spline_basis(np.linspace(-3.0, 1.0, 41), knots)
     np.testing.assert_allclose(below[:, 1:], 0.0, atol=1e-14)
     # Inside, the nonlinear columns do bend.
-    inside = rcs_basis(np.linspace(1.5, 4.5, 31), knots)
+    inside = spline_basis(np.linspace(1.5, 4.5, 31), knots)
     assert np.max(np.abs(np.diff(inside[:, 1:], 2, axis=0))) > 1e-4
 
 
@@ -255,7 +255,7 @@ def test_adjusted_end_test_holds_its_level_on_a_flat_curve():
     # are about 2 binomial standard errors either side).
     knots = (0.0, 1.0, 2.0, 3.0)
     grid = np.linspace(0.0, 3.0, 61)
-    basis = rcs_basis(grid, knots)
+    basis = spline_basis(grid, knots)
     V = np.diag([0.05, 0.2, 0.2])
     rng = np.random.default_rng(5)
     adjusted = 0
