@@ -11,11 +11,39 @@ from . import PALETTE, drawer
 _DIAMOND = np.linspace(0, 2 * np.pi, 5)[:-1]
 
 
+MAX_DISCRETE_LEVELS = 12
+"""An axis whose values take at most this many distinct values is drawn jittered (a convention)."""
+JITTER_SEED = 20261201
+"""Fixed, so that the same data draw the same figure byte for byte."""
+_JITTER_NOTE = "points jittered: discrete values"
+
+
+def _level_gap(v: np.ndarray) -> float | None:
+    """The smallest step between distinct values when there are 2..MAX_DISCRETE_LEVELS of them."""
+    levels = np.unique(v)
+    if not 2 <= len(levels) <= MAX_DISCRETE_LEVELS:
+        return None
+    return float(np.min(np.diff(levels)))
+
+
+def _jittered(v: np.ndarray, lo: float, hi: float, rng) -> tuple[np.ndarray, bool]:
+    """``v`` spread by up to 0.3 of its level step when it is discrete, kept inside (lo, hi).
+
+    Hundreds of participants on a 0-4 scale otherwise print as a handful of dots; the spread
+    stays well inside half a step, so each point still reads as its level.
+    """
+    gap = _level_gap(v)
+    if gap is None:
+        return v, False
+    return np.clip(v + rng.uniform(-0.3, 0.3, len(v)) * gap, lo, hi), True
+
+
 def dots(ax, x, y, color, label=None, radius_pt: float = 2.0, alpha: float = 0.55):
     """Scatter points drawn as one compound path of small diamonds.
 
     One SVG path with many sub-paths renders several times faster in the PDF engine than one
-    element per point, and stays vector. Call after the axis limits are final.
+    element per point, and stays vector. An axis with few distinct values is jittered (seeded) and
+    the panel says so. Call after the axis limits are final.
     """
     x = np.asarray(x, dtype=float)
     y = np.asarray(y, dtype=float)
@@ -29,6 +57,12 @@ def dots(ax, x, y, color, label=None, radius_pt: float = 2.0, alpha: float = 0.5
     n = len(x)
     if n == 0:
         return
+    rng = np.random.default_rng(JITTER_SEED)
+    x, jx = _jittered(x, min(x0, x1) + rx, max(x0, x1) - rx, rng)
+    y, jy = _jittered(y, min(y0, y1) + ry, max(y0, y1) - ry, rng)
+    if (jx or jy) and not any(t.get_text() == _JITTER_NOTE for t in ax.texts):
+        ax.text(0.99, 0.01, _JITTER_NOTE, transform=ax.transAxes, ha="right", va="bottom",
+                fontsize=6.5, color="#555555")
     verts = np.empty((n, 5, 2))
     verts[:, :4, 0] = x[:, None] + rx * np.cos(_DIAMOND)
     verts[:, :4, 1] = y[:, None] + ry * np.sin(_DIAMOND)
@@ -39,9 +73,13 @@ def dots(ax, x, y, color, label=None, radius_pt: float = 2.0, alpha: float = 0.5
 
 
 def _limits(values):
+    """Axis limits with a margin: 4% of the range, or 0.4 of the level step for discrete values so
+    that jittered points at the extreme levels stay inside."""
     v = np.asarray([x for x in values if x is not None], dtype=float)
+    v = v[np.isfinite(v)]
     lo, hi = float(np.min(v)), float(np.max(v))
-    pad = 0.04 * (hi - lo or 1.0)
+    gap = _level_gap(v)
+    pad = max(0.04 * (hi - lo or 1.0), 0.4 * gap if gap else 0.0)
     return lo - pad, hi + pad
 
 
