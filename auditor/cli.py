@@ -120,6 +120,10 @@ def run(
     paper: str = typer.Option("A4", "--paper", help="PDF page size: A4 or letter."),
     check: List[str] = typer.Option([], "--check", help="Run only this check id (repeatable)."),
     quiet: bool = typer.Option(False, "--quiet", help="Print only the paths written."),
+    list_left_out: bool = typer.Option(
+        False, "--list-left-out",
+        help="Name, in the report's appendix and findings.json, the participants each outcome's analysis "
+             "leaves out and why. This writes participant identifiers: off by default."),
 ):
     """Audit a study folder: write audit.html, audit.pdf, findings.json and findings.csv."""
     from .pipeline import AuditOptions, audit_study
@@ -135,7 +139,7 @@ def run(
         for w in study.warnings:
             err.print("warning: " + w.one_line(), markup=False)
         opts = AuditOptions(blinded=blinded, analysis_date=analysis_date, use_clock=today, seed=seed,
-                            checks=tuple(check))
+                            checks=tuple(check), list_left_out=list_left_out)
         a = audit_study(study, opts)
         paths = write_audit(a, output, force=force, paper="A4" if paper.lower() == "a4" else "letter")
         if not quiet:

@@ -18,7 +18,8 @@ from . import __version__
 from .checks.common import not_assessable
 from .checks.registry import CheckContext, NotAssessable, all_checks
 from .errors import one_line_text
-from .results import Audit, CheckResult, Provenance, Verdict
+from .listing import left_out
+from .results import Audit, CheckResult, LeftOut, Provenance, Verdict
 from .study import MIN_PER_ARM, Study, load_study, outcome_data
 
 CAUTIONS = [
@@ -50,6 +51,8 @@ class AuditOptions:
     quick: bool = False
     checks: tuple[str, ...] = field(default_factory=tuple)
     """Run only these check ids (default: all)."""
+    list_left_out: bool = False
+    """Name, in an appendix, the participants each outcome's analysis leaves out (identifiers)."""
 
     def as_record(self) -> dict:
         return {k: (list(v) if isinstance(v, tuple) else v) for k, v in dataclasses.asdict(self).items()}
@@ -78,20 +81,28 @@ def _analysis_date(study: Study, options: AuditOptions) -> str:
 MAX_REASON_CHARS = 300
 
 
-def run_checks_for_outcome(study: Study, spec, ctx: CheckContext, only: tuple[str, ...] = ()) -> list[CheckResult]:
+def assemble_outcome(study: Study, spec, ctx: CheckContext):
+    """The outcome's data and, when no check can use them, the reason; (None, reason) if they cannot
+    be assembled at all (confined to this outcome, like a failing check)."""
+    try:
+        data = outcome_data(study, spec)
+        return data, outcome_screen(data, ctx)
+    except Exception as exc:
+        return None, f"its data could not be assembled ({_exception_text(exc)})"
+
+
+def run_checks_for_outcome(study: Study, spec, ctx: CheckContext, only: tuple[str, ...] = (),
+                           assembled=None) -> list[CheckResult]:
     """Every applicable check on one outcome, failures isolated.
 
     An outcome whose data cannot be assembled, or that fails :func:`outcome_screen`, gets a "not
     assessable" finding from every check with the same reason; any exception inside a check becomes a
-    "not assessable" finding for that check alone.
+    "not assessable" finding for that check alone. ``assembled`` is :func:`assemble_outcome`'s
+    result when the caller already has it.
     """
     design = study.metadata.study.design
     checks = [c for c in all_checks() if (not only or c.id in only) and c.applies(spec, design)]
-    try:
-        data = outcome_data(study, spec)
-        reason = outcome_screen(data, ctx)
-    except Exception as exc:  # confined to this outcome, like a failing check
-        data, reason = None, f"its data could not be assembled ({_exception_text(exc)})"
+    data, reason = assembled if assembled is not None else assemble_outcome(study, spec, ctx)
     out = []
     for check in checks:
         if ctx.blinded and check.needs_arms:
@@ -185,8 +196,12 @@ def audit_study(study: Study, options: AuditOptions | None = None) -> Audit:
     seed = meta.study.seed if options.seed is None else options.seed
     ctx = CheckContext(seed=seed, blinded=blinded, quick=options.quick)
     results: list[CheckResult] = []
+    listing: list[LeftOut] | None = [] if options.list_left_out else None
     for spec in meta.outcomes:
-        results.extend(run_checks_for_outcome(study, spec, ctx, options.checks))
+        assembled = assemble_outcome(study, spec, ctx)
+        results.extend(run_checks_for_outcome(study, spec, ctx, options.checks, assembled))
+        if listing is not None and assembled[0] is not None:
+            listing.extend(left_out(assembled[0], study.participants["subject"]))
     prov = Provenance(
         tool_version=__version__,
         library_versions=library_versions(),
@@ -208,6 +223,7 @@ def audit_study(study: Study, options: AuditOptions | None = None) -> Audit:
         results=results,
         provenance=prov,
         cautions=list(CAUTIONS),
+        left_out=listing,
     )
 
 

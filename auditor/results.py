@@ -156,6 +156,15 @@ class InputFile:
 
 
 @dataclass(frozen=True)
+class LeftOut:
+    """A participant that an outcome's analysis cannot use, and why (listed only when asked)."""
+
+    outcome: str
+    subject: str
+    reason: str
+
+
+@dataclass(frozen=True)
 class Provenance:
     """What the audit was computed from and with: enough to reproduce it byte for byte."""
 
@@ -183,10 +192,15 @@ class Audit:
     results: list[CheckResult]
     provenance: Provenance
     cautions: list[str]
+    left_out: list[LeftOut] | None = None
+    """Participants each outcome's analysis leaves out, with identifiers; None unless asked for."""
     schema_version: str = SCHEMA_VERSION
 
     def to_dict(self) -> dict[str, Any]:
-        return _clean(asdict(self))
+        d = _clean(asdict(self))
+        if self.left_out is None:
+            del d["left_out"]  # identifiers are never written unless asked for, not even as an empty key
+        return d
 
     def findings_frame(self):
         """One row per outcome and check, as a pandas DataFrame (for notebooks)."""

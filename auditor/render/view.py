@@ -192,5 +192,14 @@ def audit_view(audit: Audit) -> dict:
             "seed": p.seed,
             "platform": p.platform,
         },
+        "left_out": None if audit.left_out is None else left_out_view(audit),
         "schema_version": audit.schema_version,
     }
+
+
+def left_out_view(audit: Audit) -> list[dict]:
+    """The participant listing grouped by outcome, in the report's outcome order."""
+    labels = {o["param"]: o["label"] for o in audit.outcomes}
+    return [{"param": p, "label": labels[p],
+             "rows": [{"subject": x.subject, "reason": x.reason} for x in audit.left_out if x.outcome == p]}
+            for p in labels]
