@@ -2,10 +2,12 @@
 
 from __future__ import annotations
 
+import re
 from importlib import resources
 from pathlib import Path
 
 import jinja2
+import markupsafe
 
 from ..results import Audit
 from .view import audit_view
@@ -18,8 +20,31 @@ def _template_dir() -> Path:
         return Path(__file__).resolve().parents[2] / "templates"
 
 
+LONG_WORD_CHARS = 72
+"""A run of this many characters without a space gets break opportunities (longer than a SHA-256)."""
+SOFT_BREAK_EVERY = 24
+_LONG_WORD = re.compile(r"[^\s\u200b]{%d,}" % LONG_WORD_CHARS)
+
+
+def soft_breaks(value):
+    """Every printed value, with a zero-width space every SOFT_BREAK_EVERY characters inside very
+    long unbroken words.
+
+    Labels come from the user's files and may be one 2000-character word. Breaking them here lets the
+    stylesheet wrap only at break opportunities, which the PDF engine lays out about a third faster
+    than breaking anywhere. The tool's own markup (the stylesheet) and inline data URIs are left whole.
+    """
+    if not isinstance(value, str) or isinstance(value, markupsafe.Markup) or value.startswith("data:"):
+        return value
+    if len(value) < LONG_WORD_CHARS:
+        return value
+    return _LONG_WORD.sub(lambda m: "\u200b".join(m.group()[i:i + SOFT_BREAK_EVERY]
+                                                   for i in range(0, len(m.group()), SOFT_BREAK_EVERY)), value)
+
+
 def environment() -> jinja2.Environment:
     return jinja2.Environment(
+        finalize=soft_breaks,
         loader=jinja2.FileSystemLoader(str(_template_dir())),
         autoescape=True,
         undefined=jinja2.StrictUndefined,
