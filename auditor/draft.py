@@ -125,6 +125,9 @@ def draft_metadata(data_files: list[Path], folder: Path) -> str:
         ]
         if levels:
             lines.append(f"levels = [{', '.join(_num(x) for x in levels)}]  {CHECK} the ordered codes")
+        if scale == "count":
+            lines.append(f'# exposure = "COLUMN"  {CHECK} the visit-file column with each count\'s observation '
+                         "time, if it varied")
         if base is not None:
             lines.append(f"baseline_visit = {_q(base)}  {CHECK}")
         fu = later or pv[-1:]

@@ -170,6 +170,9 @@ class OutcomeSpec(_Strict):
     covariates: list[Name] = Field(default_factory=list)
     log_scale: Optional[StrictBool] = None
     """Analyse on the log scale where a check offers it; default: decided from the data."""
+    exposure: Optional[Name] = None
+    """For a count: the visit-file column holding each record's observation time (days, weeks...),
+    the period over which that record's count was accumulated."""
 
     @field_validator("levels")
     @classmethod
@@ -200,6 +203,8 @@ class OutcomeSpec(_Strict):
         self._visits_distinct()
         if len(set(self.covariates)) != len(self.covariates):
             raise ValueError("covariates are listed more than once")
+        if self.exposure is not None and self.scale != "count":
+            raise ValueError("'exposure' (observation time) applies only to an outcome with scale 'count'")
         return self
 
     def _visits_distinct(self) -> None:

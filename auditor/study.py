@@ -59,7 +59,8 @@ class OutcomeData:
 
     ``frame`` columns: ``subject``, ``arm``, ``baseline``, ``screening`` (if a screening visit is
     named), ``followup`` (the main follow-up visit), ``fu:<visit>`` for every follow-up visit,
-    ``event`` (the risk endpoint, if named) and each covariate by its own name.
+    ``event`` (the risk endpoint, if named), ``baseline_time`` and ``followup_time`` (a count's
+    observation times, if ``exposure`` is named) and each covariate by its own name.
     """
 
     spec: OutcomeSpec
@@ -410,12 +411,24 @@ def _normalise_long(df: pd.DataFrame, meta: StudyMetadata, label: str, log: Prob
         out["visit_number"] = _keys(df[cm.visit_number], _visit_number_key)
     if arm_col is not None:
         out["arm"] = df[arm_col].astype("string").str.strip()
+    for col in sorted({s.exposure for s in meta.outcomes if s.exposure} & set(df.columns)):
+        out[exposure_column(col)] = _as_numbers(df[col], label, col, log, what="observation time")
     _check_ids(out["subject"], label, cm.subject, log)
     return out
 
 
+def exposure_column(name: str) -> str:
+    """Internal name, in the long visit frame, of the observation-time column ``name``."""
+    return f"exposure:{name}"
+
+
 def _wide_to_long(df: pd.DataFrame, meta: StudyMetadata, label: str, log: ProblemLog) -> pd.DataFrame:
     cm = meta.columns
+    for i, spec in enumerate(meta.outcomes):
+        if spec.exposure:
+            log.add(METADATA_FILE, f"outcomes[{i}].exposure", spec.exposure,
+                    "an observation time per record needs the long layout (one row per visit)",
+                    "give the visit data in the long layout, or remove exposure")
     if not _need_column(df, cm.subject, label, "subject", log):
         return pd.DataFrame()
     arm_col = _arm_column(df, cm.arm)
@@ -648,6 +661,8 @@ def _check_outcome(long: pd.DataFrame, part: pd.DataFrame, spec: OutcomeSpec, i:
             log.add(label, "-", cm.value, f"{lacking} participant(s) have no baseline value for "
                     f"'{spec.param}'", "they are left out of the baseline-adjusted checks",
                     severity="warning")
+    if spec.exposure:
+        _check_exposure(rows, used, spec, key, label, log)
     plabel = meta.files.participants or meta.files.visits
     for cov in spec.covariates:
         _check_covariate(part, spec, cov, f"{key}.covariates", plabel, meta, log)
@@ -665,6 +680,28 @@ def _check_outcome(long: pd.DataFrame, part: pd.DataFrame, spec: OutcomeSpec, i:
             if bad.any():
                 log.add(plabel, rows_text(np.flatnonzero(bad.to_numpy())), spec.risk_endpoint,
                         "event endpoint is not binary", "code it 0/1 or Y/N")
+
+
+def _check_exposure(rows: pd.DataFrame, used: pd.DataFrame, spec: OutcomeSpec, key: str, label: str,
+                    log: ProblemLog) -> None:
+    """The observation-time column must exist, and each record with a count needs a positive time."""
+    col = exposure_column(spec.exposure)
+    if col not in rows.columns:
+        log.add(label, "row 1", spec.exposure, f"observation-time column of '{spec.param}' is missing",
+                "add the column to the visit file or remove exposure")
+        return
+    t = used[col]
+    counted = used["value"].notna()
+    absent = counted & t.isna()
+    if absent.any():
+        log.add(label, rows_text(used.loc[absent, "row"].to_numpy()), spec.exposure,
+                f"'{spec.param}' record has a count but no observation time",
+                "fill in the time over which the count was made, or leave the count empty")
+    nonpositive = t.notna() & (t <= 0)
+    if nonpositive.any():
+        log.add(label, rows_text(used.loc[nonpositive, "row"].to_numpy()), spec.exposure,
+                f"observation time of '{spec.param}' is zero or negative",
+                "give the time over which the count was made (greater than 0)")
 
 
 def _bounds_text(lo, hi) -> str:
@@ -719,8 +756,8 @@ def outcome_data(study: Study, spec: OutcomeSpec) -> OutcomeData:
     frame = part[["subject", "arm"]].copy()
     frame = frame[_among(frame["subject"], rows["subject"].unique())]
 
-    def values_at(visit, name):
-        sel = rows[_visit_rows(rows, visit)][["subject", "value"]].rename(columns={"value": name})
+    def values_at(visit, name, column="value"):
+        sel = rows[_visit_rows(rows, visit)][["subject", column]].rename(columns={column: name})
         return sel.drop_duplicates("subject")
 
     if spec.baseline_visit is not None:
@@ -733,6 +770,11 @@ def outcome_data(study: Study, spec: OutcomeSpec) -> OutcomeData:
     for v in spec.followup_visits:
         frame = frame.merge(values_at(v, f"fu:{_visit_key(v)}"), on="subject", how="left")
     frame["followup"] = frame[f"fu:{_visit_key(spec.main_followup)}"]
+    if spec.exposure and exposure_column(spec.exposure) in rows.columns:
+        col = exposure_column(spec.exposure)
+        if spec.baseline_visit is not None:
+            frame = frame.merge(values_at(spec.baseline_visit, "baseline_time", col), on="subject", how="left")
+        frame = frame.merge(values_at(spec.main_followup, "followup_time", col), on="subject", how="left")
     if spec.risk_endpoint:
         ev = part[["subject", spec.risk_endpoint]].copy()
         ev["event"] = ev[spec.risk_endpoint].map(_binary_code).astype(float)

@@ -16,6 +16,9 @@ to exercise one audit question, and the intended verdict is written beside it:
            (lowest near 4.3 mmol/L) and does not depend on the change.
 - ACS      asthma control score 0-6 (higher is worse); planned as a responder analysis
            (improvement of at least 0.5), which discards information.
+- RESC     rescue-inhaler puffs counted over the diary days completed in the 4 weeks before each
+           visit (DIARYD); the active arm's diary device logs fewer days at follow-up, so counts
+           compared as they stand (change planned) confound the rate with the time observed.
 
 Run: python example_study/generate.py  (writes data/adsl.csv and data/adeff.csv beside this file)
 """
@@ -115,7 +118,23 @@ def simulate(seed: int = SEED):
     for p in values:
         values[p][3] = np.where(dropped, np.nan, values[p][3])
     ids = [f"TQA02-{101 + i // 40:03d}-{1001 + i:04d}" for i in range(n)]
-    return ids, arm, age, sex, event, values
+
+    # Rescue-inhaler puffs: Poisson counts at a participant's own rate (gamma, mean 1.6 a day) over
+    # the diary days completed (of 28); rate ratio 0.75 on the active arm. Drawn after every other
+    # outcome so that their values do not depend on this one.
+    rate = rng.gamma(2.0, 0.8, n)
+    days_base = np.minimum(28, 22 + rng.binomial(6, 0.85, n))
+    days = [np.full(n, np.nan), days_base,
+            np.minimum(28, np.where(active, 12, 17) + rng.binomial(11, 0.7, n)),
+            np.minimum(28, np.where(active, 10, 16) + rng.binomial(12, 0.7, n))]
+    ratio = np.where(active, 0.75, 1.0)
+    values["RESC"] = [np.full(n, np.nan), rng.poisson(rate * days_base).astype(float),
+                      rng.poisson(rate * ratio * np.nan_to_num(days[2])).astype(float),
+                      rng.poisson(rate * ratio * np.nan_to_num(days[3])).astype(float)]
+    values["RESC"][3] = np.where(dropped, np.nan, values["RESC"][3])
+    days[3] = np.where(dropped, np.nan, days[3])
+    exposure = {"RESC": days}
+    return ids, arm, age, sex, event, values, exposure
 
 
 LABELS = {
@@ -125,6 +144,7 @@ LABELS = {
     "NSS": ("Night-time symptom score (0-4)", ""),
     "K": ("Serum potassium (mmol/L)", "mmol/L"),
     "ACS": ("Asthma control score (0-6)", ""),
+    "RESC": ("Rescue-inhaler puffs over the diary days completed", "puffs"),
 }
 
 
@@ -135,7 +155,7 @@ def _fmt(v):
 
 
 def write(seed: int = SEED, folder: Path = HERE / "data") -> None:
-    ids, arm, age, sex, event, values = simulate(seed)
+    ids, arm, age, sex, event, values, exposure = simulate(seed)
     folder.mkdir(parents=True, exist_ok=True)
     with (folder / "adsl.csv").open("w", newline="", encoding="utf-8") as fh:
         w = csv.writer(fh, lineterminator="\n")
@@ -145,19 +165,20 @@ def write(seed: int = SEED, folder: Path = HERE / "data") -> None:
     with (folder / "adeff.csv").open("w", newline="", encoding="utf-8") as fh:
         w = csv.writer(fh, lineterminator="\n")
         w.writerow(["STUDYID", "USUBJID", "TRTP", "PARAMCD", "PARAM", "AVISIT", "AVISITN", "AVAL",
-                    "ABLFL", "BASE", "CHG"])
+                    "ABLFL", "BASE", "CHG", "DIARYD"])
         for p, (label, _unit) in LABELS.items():
             vals = values[p]
+            times = exposure.get(p)
             for i, sid in enumerate(ids):
                 b = vals[1][i]
-                for (visit, vnum), series in zip(VISITS, vals):
+                for j, ((visit, vnum), series) in enumerate(zip(VISITS, vals)):
                     v = series[i]
                     if np.isnan(v):
                         continue
                     post = vnum > 0
                     w.writerow(["TQ-ASTH-02", sid, arm[i], p, label, visit, vnum, _fmt(v),
                                 "Y" if vnum == 0 else "", _fmt(b) if vnum >= 0 else "",
-                                _fmt(v - b) if post else ""])
+                                _fmt(v - b) if post else "", "" if times is None else _fmt(times[j][i])])
 
 
 if __name__ == "__main__":

@@ -147,3 +147,24 @@ simulation(SimulationCase(
 simulation(SimulationCase(
     "later-risk/earlier-irrelevant", "later-risk", "earlier value irrelevant: its partial chi-square rejects "
     "at 5%", "<= 0.05 + 2 MCSE", _later_risk_rate("monotone-linear", "earlier"), "false-alarm", 0.05))
+
+
+def _count_time(kind: str):
+    from . import count_time_cases as ct
+
+    if kind == "coverage":
+        return ct.rate_ratio_coverage
+    days = {"null": {"days_control": (8, 28), "days_active": (8, 28)}, "detect": {"days_active": (10, 20)}}[kind]
+    return lambda replicates, seed: ct.unsupported_rate(replicates, seed, **days)
+
+
+simulation(SimulationCase(
+    "count-time/coverage", "count-time", "overdispersed counts, shorter diaries on the active arm, true rate "
+    "ratio 0.75: the robust 95% CI of the rate ratio covers it", ">= 0.90", _count_time("coverage"),
+    "coverage", 0.90))
+simulation(SimulationCase(
+    "count-time/null", "count-time", "observation time unequal but balanced between arms: called unsupported",
+    "<= 0.05 + 2 MCSE", _count_time("null"), "false-alarm", 0.05))
+simulation(SimulationCase(
+    "count-time/shorter-active", "count-time", "the active arm observed for fewer days: called unsupported",
+    ">= 0.80", _count_time("detect"), "detection", 0.80))

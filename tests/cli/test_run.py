@@ -56,7 +56,7 @@ def test_findings_json_carries_schema_and_provenance(audit_dir):
 def test_findings_csv_one_row_per_outcome_and_check(audit_dir):
     lines = (audit_dir / "findings.csv").read_text().splitlines()
     assert lines[0].startswith("study_id,outcome,outcome_label,check_id")
-    assert len(lines) == 1 + 6
+    assert len(lines) == 1 + 7  # seven outcomes, pre-post only
 
 
 def test_refuses_to_overwrite_without_force(audit_dir):
@@ -111,7 +111,7 @@ def test_api_returns_audit_with_dataframe():
 
     a = aud.audit(EXAMPLE, checks=("pre-post",), quick=True)
     df = a.findings_frame()
-    assert list(df["outcome"]) == ["FEV1", "FENO", "EOS", "NSS", "K", "ACS"]
+    assert list(df["outcome"]) == ["FEV1", "FENO", "EOS", "NSS", "K", "ACS", "RESC"]
     assert set(df["verdict"]) <= {"sound", "caution", "unsupported", "not assessable"}
 
 

@@ -133,4 +133,4 @@ def test_validate_clean_example_exits_zero():
 
     res = runner.invoke(app, ["validate", str(EXAMPLE)])
     assert res.exit_code == 0, res.output
-    assert "valid (6 outcome(s), 320 participants" in res.output
+    assert "valid (7 outcome(s), 320 participants" in res.output

@@ -1,0 +1,239 @@
+"""Counts over unequal observation time: is comparing counts the same as comparing rates?
+
+A count outcome (exacerbations, rescue-medication uses, lesions) is accumulated over some time. Every
+planned analysis that subtracts, divides or adjusts the counts themselves assumes that time was the
+same for everyone. When it was not, the count mixes the rate with the time observed; when the time
+differs between arms (one arm stops its diary early, say) the treatment comparison is biased. With
+an observation-time column declared (``exposure`` in study.toml) this check measures how unequal
+the times are, whether they differ between arms, whether counts grow in proportion to time, and how
+far the count comparison moves from the rate comparison fitted on the same participants.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from ..references import add_reference, cite
+from ..results import Figure, SubFinding, Table, Verdict
+from ..stats.linear import arm_indicators
+from ..stats.rates import fit_log_linear, log_baseline_rate, time_spread, times_differ_by_arm
+from .common import arms_present, estimate, fmt, fmt_ci, fmt_p, result, thin
+from .registry import CheckContext, NotAssessable, register
+
+CHECK_ID = "count-time"
+TITLE = "Counts over unequal observation time"
+MIN_PARTICIPANTS = 10
+MATERIAL_RATIO = 1.10
+"""A count ratio that differs from the rate ratio by this factor or more is material (a convention)."""
+ARM_TIME_ALPHA = 0.05
+
+add_reference("cameron-trivedi-2013", "Cameron AC, Trivedi PK. Regression Analysis of Count Data, 2nd ed. "
+                                      "Cambridge University Press, 2013.")
+add_reference("wedderburn-1974", "Wedderburn RWM. Quasi-likelihood functions, generalized linear models, "
+                                 "and the Gauss-Newton method. Biometrika 1974;61:439-447.")
+add_reference("kruskal-wallis-1952", "Kruskal WH, Wallis WA. Use of ranks in one-criterion variance "
+                                     "analysis. J Am Stat Assoc 1952;47:583-621.")
+
+
+def _applies(spec, design) -> bool:
+    return spec.scale == "count"
+
+
+def _participants(data):
+    """Participants with a follow-up count, its observation time and an arm (and the baseline count
+    with its time, when the outcome has a baseline)."""
+    if not data.spec.exposure:
+        raise NotAssessable("no observation time is declared for this count (set exposure to the "
+                            "visit-file column holding each record's time); if the time over which "
+                            "counts were made varied, they should be analysed as rates")
+    need = ["followup", "followup_time", "arm"]
+    if "baseline" in data.frame.columns:
+        need += ["baseline", "baseline_time"]
+    df = data.frame.dropna(subset=need).reset_index(drop=True)
+    if len(df) < MIN_PARTICIPANTS:
+        raise NotAssessable(f"only {len(df)} participants have a follow-up count with its observation "
+                            f"time (at least {MIN_PARTICIPANTS} are needed)")
+    return df
+
+
+def _design(df, arms, control, with_baseline: bool) -> dict[str, np.ndarray]:
+    cols = {}
+    if with_baseline:
+        cols["log baseline rate"] = log_baseline_rate(df["baseline"], df["baseline_time"])
+    if len(arms) > 1:
+        cols.update(arm_indicators(df["arm"].to_numpy(), arms, control))
+    return cols
+
+
+def _scaling(df, cols, ctx) -> tuple[float, float, float]:
+    """Coefficient of log time in a log-linear model without offset: 1 when counts grow in
+    proportion to time (the rate model's assumption)."""
+    fit = fit_log_linear(df["followup"], {"log observation time": np.log(df["followup_time"]), **cols},
+                         level=ctx.level)
+    return fit.coefficient("log observation time")
+
+
+def _time_table(df, arms) -> Table:
+    rows = []
+    for a in arms:
+        t = df.loc[df["arm"] == a, "followup_time"].to_numpy()
+        rows.append([a, len(t), float(np.median(t)), float(np.percentile(t, 25)), float(np.percentile(t, 75)),
+                     float(np.mean(t < 0.8 * np.median(df["followup_time"])))])
+    return Table("time-by-arm", "Observation time of the follow-up count by arm",
+                 ["Arm", "N", "Median", "Lower quartile", "Upper quartile", "Share below 80% of pooled median"],
+                 rows, by_arm=True)
+
+
+def _comparisons(df, arms, control, cols, ctx) -> list[dict]:
+    """Each active arm against control: the rate ratio (offset log time) and the count ratio
+    (the same model without the offset), fitted on the same participants."""
+    rate = fit_log_linear(df["followup"], cols, offset=np.log(df["followup_time"]), level=ctx.level)
+    counts_cols = dict(cols)
+    if "log baseline rate" in counts_cols:  # the analysis that ignores time adjusts for the baseline count
+        counts_cols["log baseline rate"] = np.log(df["baseline"].to_numpy() + 0.5)
+    count = fit_log_linear(df["followup"], counts_cols, level=ctx.level)
+    ref = control if control is not None else arms[0]
+    return [{"name": f"{a} vs {ref}", "rate": rate.ratio(f"arm[{a}]"), "count": count.ratio(f"arm[{a}]")}
+            for a in arms if a != ref]
+
+
+def _figure(df, arms, spec, ctx, cols, comparisons_fit) -> Figure:
+    shown, note = thin(df, ctx.seed)
+    groups = ([{"label": a, "x": shown.loc[shown["arm"] == a, "followup_time"].tolist(),
+                "y": shown.loc[shown["arm"] == a, "followup"].tolist()} for a in arms] if arms else
+              [{"label": "All participants", "x": shown["followup_time"].tolist(), "y": shown["followup"].tolist()}])
+    grid = np.linspace(float(df["followup_time"].min()), float(df["followup_time"].max()), 40)
+    curves = [{"label": f"rate model: {c['label']}", "x": grid.tolist(), "y": (grid * c["rate"]).tolist()}
+              for c in comparisons_fit]
+    return Figure("count-time-scatter", "scatter_xy", f"{spec.display_name}: follow-up count against observation time",
+                  {"groups": groups, "curves": curves, "xlabel": f"Observation time ({spec.exposure})",
+                   "ylabel": "Follow-up count"},
+                  caption="Lines: the expected count at each observation time under the rate model (log time as "
+                          "offset), at the median baseline rate. A count that grows along the lines is a rate." + note,
+                  by_arm=bool(arms))
+
+
+def _expected_rates(df, arms, control, cols, ctx) -> list[dict]:
+    """Per arm, the rate at the median baseline rate under the rate model (for the figure)."""
+    fit = fit_log_linear(df["followup"], cols, offset=np.log(df["followup_time"]), level=ctx.level)
+    base = float(np.median(cols["log baseline rate"])) if "log baseline rate" in cols else 0.0
+    coef = dict(zip(fit.names, fit.coef))
+    lin0 = coef["intercept"] + coef.get("log baseline rate", 0.0) * base
+    labels = arms if arms else ["all participants"]
+    out = []
+    for a in labels:
+        out.append({"label": a, "rate": math.exp(lin0 + coef.get(f"arm[{a}]", 0.0))})
+    return out
+
+
+@register(CHECK_ID, TITLE, _applies, order=50, needs_arms=False,
+          summary="Whether a count outcome was observed over equal times, and what comparing counts "
+                  "rather than rates does to the treatment comparison.")
+def run(data, ctx: CheckContext):
+    from .registry import get_check
+
+    check = get_check(CHECK_ID)
+    spec = data.spec
+    df = _participants(data)
+    arms = arms_present(df, data, ctx)
+    with_baseline = "baseline" in df.columns
+    cols = _design(df, arms, data.control_arm, with_baseline)
+    spread = time_spread(df["followup_time"])
+
+    estimates = [
+        estimate("Participants with a follow-up count and its time", float(spread.n)),
+        estimate("Median observation time", spread.median, unit=spec.exposure),
+        estimate("Shortest observation time", spread.minimum, unit=spec.exposure),
+        estimate("Longest observation time", spread.maximum, unit=spec.exposure),
+        estimate("Coefficient of variation of observation time", spread.cv),
+        estimate("Share observed for less than 80% of the median time", spread.share_short),
+    ]
+    spread_text = (f"median {fmt(spread.median)} (range {fmt(spread.minimum)} to {fmt(spread.maximum)}), "
+                   f"coefficient of variation {fmt(spread.cv)}; {100 * spread.share_short:.0f}% observed "
+                   f"for less than 80% of the median")
+    subs = [SubFinding("equal-time", "Was every follow-up count made over about the same time?",
+                       Verdict.SOUND if spread.equal else Verdict.CAUTION,
+                       f"{spread_text}; times count as equal below a coefficient of variation of 0.10")]
+    tables, caveats = [], []
+
+    scale_ok = True
+    if not spread.equal:
+        b, lo, hi = _scaling(df, cols, ctx)
+        scale_ok = lo <= 1.0 <= hi
+        estimates.append(estimate("Growth of the count with observation time (log-log slope)", b, lo, hi,
+                                  note="1 when the count is proportional to time"))
+        subs.append(SubFinding("proportional", "Does the count grow in proportion to observation time?",
+                               Verdict.SOUND if scale_ok else Verdict.CAUTION,
+                               f"log-log slope {fmt_ci(b, lo, hi)}; {'includes' if scale_ok else 'excludes'} 1"))
+        if not scale_ok:
+            caveats.append("The count does not grow in proportion to observation time: the shorter periods may "
+                           "not be typical of the whole (early withdrawal of the sickest, say). A rate model "
+                           "still removes the time imbalance but its rate ratio should be read with that in mind.")
+
+    arm_differs, material, comparisons = False, False, []
+    if len(arms) > 1:
+        h, p = times_differ_by_arm(df["followup_time"], df["arm"])
+        arm_differs = p < ARM_TIME_ALPHA and not spread.equal
+        tables.append(_time_table(df, arms))
+        comparisons = _comparisons(df, arms, data.control_arm, cols, ctx)
+        rows = []
+        for c in comparisons:
+            (rr, rl, ru, rp), (cr, cl, cu, cp) = c["rate"], c["count"]
+            shift = cr / rr
+            material = material or max(shift, 1 / shift) >= MATERIAL_RATIO
+            estimates += [estimate(f"Rate ratio, {c['name']} (log time as offset)", rr, rl, ru, rp, by_arm=True),
+                          estimate(f"Count ratio, {c['name']} (time ignored)", cr, cl, cu, cp, by_arm=True),
+                          estimate(f"Count ratio over rate ratio, {c['name']}", shift, by_arm=True,
+                                   note=f"material at {MATERIAL_RATIO:g} or its inverse")]
+            rows += [["rate model (reference)", c["name"], "ratio of rates", rr, rl, ru],
+                     ["counts, time ignored", c["name"], "ratio of counts", cr, cl, cu]]
+        tables.append(Table("rate-vs-count", "The treatment comparison with and without observation time, "
+                                             "same participants",
+                            ["Analysis", "Contrast", "Effect", "Estimate", "Lower", "Upper"], rows,
+                            note="Both are Poisson log-linear models with robust (sandwich) intervals, adjusted for "
+                                 "the baseline rate (rate model) or the log baseline count (counts)." if with_baseline
+                            else "Both are Poisson log-linear models with robust (sandwich) intervals.",
+                            by_arm=True))
+        subs.append(SubFinding("time-by-arm", "Does observation time differ between arms enough to move the "
+                                              "treatment comparison?",
+                               Verdict.UNSUPPORTED if arm_differs and material else
+                               Verdict.CAUTION if arm_differs or material else Verdict.SOUND,
+                               f"Kruskal-Wallis chi-square {fmt(h)} on {len(arms) - 1} df, {fmt_p(p)}; count "
+                               f"ratio over rate ratio {', '.join(fmt(c['count'][0] / c['rate'][0]) for c in comparisons)}"
+                               f" (material at {MATERIAL_RATIO:g} or its inverse)", by_arm=True))
+
+    verdict, headline = _verdict(spread, spread_text, arm_differs, material, comparisons, scale_ok)
+    figure = _figure(df, arms, spec, ctx, cols, _expected_rates(df, arms, data.control_arm, cols, ctx))
+    return result(check, data, verdict, headline, subfindings=subs, estimates=estimates, tables=tables,
+                  figures=[figure], caveats=caveats,
+                  references=cite(["cameron-trivedi-2013", "wedderburn-1974", "kruskal-wallis-1952"]),
+                  method="Observation time summarised by its coefficient of variation (equal below 0.10, a "
+                         "convention); Kruskal-Wallis test of time across arms; Poisson log-linear models of the "
+                         "follow-up count with robust (HC0) standard errors: with log time as offset (the rate "
+                         "ratio), without it (the count ratio), and with log time as a covariate (its slope is 1 "
+                         "when counts are proportional to time). Unsupported when time differs between arms "
+                         f"(p < {ARM_TIME_ALPHA:g}) and the count ratio differs from the rate ratio by a factor of "
+                         f"{MATERIAL_RATIO:g} or more (a convention).")
+
+
+def _verdict(spread, spread_text, arm_differs, material, comparisons, scale_ok) -> tuple[Verdict, str]:
+    if spread.equal:
+        return Verdict.SOUND, (f"Observation time is nearly equal ({spread_text}): comparing the counts "
+                               "compares rates.")
+    if arm_differs and material:
+        c = comparisons[0]
+        return Verdict.UNSUPPORTED, ("Counts are not comparable as they stand: observation time differs between "
+                                     f"arms and ignoring it gives a "
+                                     f"count ratio of {fmt(c['count'][0])} against a rate ratio of "
+                                     f"{fmt_ci(*c['rate'][:3])}; analyse rates (log time as offset).")
+    tail = "" if scale_ok else "; the count does not grow in proportion to time, so read rates with care"
+    if arm_differs or material:
+        c = comparisons[0]
+        return Verdict.CAUTION, (f"Observation time varies ({spread_text}); the count ratio "
+                                 f"{fmt(c['count'][0])} and the rate ratio {fmt(c['rate'][0])} differ, though not "
+                                 f"both materially and beyond chance: analyse rates (log time as offset){tail}.")
+    return Verdict.CAUTION, (f"Observation time varies ({spread_text}) without changing the treatment "
+                             f"comparison here; a rate model (log time as offset) is still the analysis that "
+                             f"matches how the counts were made{tail}.")
