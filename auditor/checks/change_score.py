@@ -19,7 +19,7 @@ from ..stats.correlation import pearson
 from ..stats.diagnostics import bound_shares, boxcox_profile, granularity, skewness, spread_trend_test
 from ..stats.efficiency import compare_with_ci, empirical_ratio
 from ..stats.linear import arm_indicators, fit_ols
-from ..stats.rtm import truncation_edge_test
+from ..stats.rtm import edge_test_scale, truncation_edge_test
 from ..stats.splines import choose_knots
 from .common import arms_present, complete_pairs, estimate, fmt, fmt_ci, fmt_p, result, thin
 from .prepost import baseline_slope
@@ -85,11 +85,10 @@ def selection_part(data, df, ctx) -> Part:
     if len(np.unique(b)) < EDGE_MIN_DISTINCT:
         return Part(SubFinding("selection", q, Verdict.SOUND,
                                "no entry criterion declared; too few distinct values for an edge test"), [])
-    use_log = bool(np.all(b > 0) and skewness(b) > SKEW_FOR_LOG)
-    test = truncation_edge_test(np.log(b) if use_log else b, side="either", n_null=499 if ctx.quick else 999,
-                                seed=ctx.seed)
-    edge = float(np.exp(test.edge)) if use_log else test.edge
-    scale = " (log scale)" if use_log else ""
+    tested = edge_test_scale(b, data.spec.log_scale)  # the same scale as the regression-to-the-mean check
+    test = truncation_edge_test(tested.values, side="either", n_null=499 if ctx.quick else 999, seed=ctx.seed)
+    edge = float(np.min(b) if test.edge_side == "lower" else np.max(b))
+    scale = "" if tested.name == "raw" else f" ({tested.name} scale)"
     est = [estimate(f"Truncation-edge test{scale}, likelihood-ratio statistic", test.statistic,
                     p=test.p_value, note=f"{test.edge_side} edge at {fmt(edge)}")]
     if test.p_value < ALPHA:
@@ -394,7 +393,7 @@ def decide(planned: str, parts: dict[str, Part], r) -> tuple[Verdict, str]:
             return Verdict.CAUTION, (f"Ignoring baseline wastes information: r {fmt(r.r)}, so ANCOVA would need "
                                      f"{100 * r.r ** 2:.0f}% fewer participants for the same power.")
         return Verdict.SOUND, f"Baseline is weakly prognostic (r {fmt(r.r)}); ignoring it costs little."
-    prefix = ("For the recommended baseline-adjusted alternative" if planned == "percent-change"
+    prefix = ("The recommended baseline-adjusted alternative" if planned == "percent-change"
               else "The baseline-adjusted analysis")
     nonlin = parts["linearity"].sub.verdict != Verdict.SOUND
     awkward = [p.phrase for k, p in parts.items() if k in ("bounds", "interval", "scale") and p.sub.verdict != Verdict.SOUND]

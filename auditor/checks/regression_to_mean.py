@@ -21,10 +21,9 @@ from scipy import stats
 
 from ..references import REFERENCES, add_reference, cite
 from ..results import Estimate, Figure, SubFinding, Verdict
-from ..stats.diagnostics import skewness
 from ..stats.linear import fit_ols
 from ..stats.rtm import (bias_after_second_baseline, expected_rtm, fit_truncated_normal, icc_oneway,
-                         rtm_with_ci, shrunk_values, truncation_edge_test)
+                         edge_test_scale, rtm_with_ci, shrunk_values, truncation_edge_test)
 from .common import estimate, fmt, fmt_p, result
 from .registry import CheckContext, NotAssessable, register
 
@@ -37,9 +36,6 @@ ALPHA = 0.05
 EDGE_MIN_DISTINCT = 20
 """An edge test is run only on a reading with at least this many distinct values (as in the
 change-score check; convention of this tool)."""
-SKEW_FOR_LOG = 1.0
-"""Positive readings with skewness above this are searched for an edge on the log scale (the
-change-score check's rule, so both checks test the same values; convention of this tool)."""
 LOG_MARGIN = 2.0
 """For sizing, the log scale is chosen only when its truncated-normal log-likelihood (with the
 Jacobian) beats the raw one by more than this, a likelihood ratio above e^2 = 7.4; near-ties stay on
@@ -126,7 +122,8 @@ class EdgeFinding:
 
     column: str
     visit: str
-    log: bool
+    scale: str
+    """The scale the test was run on (:func:`edge_test_scale`)."""
     test: object
     level: float
     edge: float
@@ -135,6 +132,10 @@ class EdgeFinding:
     @property
     def flagged(self) -> bool:
         return self.test.p_value < self.level
+
+    @property
+    def scale_note(self) -> str:
+        return "" if self.scale == "raw" else f" ({self.scale} scale)"
 
 
 @dataclass(frozen=True)
@@ -243,15 +244,6 @@ def criterion_column(spec) -> str:
     return "entry_value"
 
 
-def _edge_log(values: np.ndarray, spec) -> bool:
-    """Search for an edge on the log scale: as declared, else when positive with skewness > 1."""
-    if not np.all(values > 0):
-        return False
-    if spec.log_scale is not None:
-        return bool(spec.log_scale)
-    return bool(skewness(values) > SKEW_FOR_LOG)
-
-
 def _testable(values: np.ndarray) -> bool:
     return len(values) >= MIN_PAIRS and len(np.unique(values)) >= EDGE_MIN_DISTINCT
 
@@ -260,11 +252,11 @@ def edge_finding(values, column, spec, side, level, ctx) -> EdgeFinding | None:
     """The truncation-edge likelihood-ratio test of one reading (None with too few distinct values)."""
     if not _testable(values):
         return None
-    use_log = _edge_log(values, spec)
-    test = truncation_edge_test(np.log(values) if use_log else values, side=side,
-                                n_null=NULL_QUICK if ctx.quick else NULL_FULL, seed=ctx.seed)
+    scale = edge_test_scale(values, spec.log_scale)
+    test = truncation_edge_test(scale.values, side=side, n_null=NULL_QUICK if ctx.quick else NULL_FULL,
+                                seed=ctx.seed)
     edge = float(np.min(values) if test.edge_side == "lower" else np.max(values))
-    return EdgeFinding(column, _visit_of(spec, column), use_log, test, level, edge)
+    return EdgeFinding(column, _visit_of(spec, column), scale.name, test, level, edge)
 
 
 def _declared_selection(spec, rd: Readings, ctx) -> tuple[Selection, list[EdgeFinding]]:
@@ -606,10 +598,10 @@ def _unit_label(spec, visit) -> str:
 
 def selection_section(sel, finds, n_kept, n_excluded, out: Out) -> None:
     q = "Were participants selected on this outcome?"
-    tests = "; ".join(f"{f.visit}{' (log scale)' if f.log else ''}: edge LR {fmt(f.test.statistic)}, "
+    tests = "; ".join(f"{f.visit}{f.scale_note}: edge LR {fmt(f.test.statistic)}, "
                       f"{fmt_p(f.test.p_value)}, {f.test.edge_side} edge at {fmt(f.edge)}" for f in finds)
     for f in finds:
-        out.estimates.append(estimate(f"Truncation-edge test of {f.visit}{' (log scale)' if f.log else ''}, "
+        out.estimates.append(estimate(f"Truncation-edge test of {f.visit}{f.scale_note}, "
                                       f"likelihood-ratio statistic", f.test.statistic, p=f.test.p_value,
                                       note=f"{f.test.edge_side} edge at {fmt(f.edge)}; tested at level "
                                            f"{f.level:g}"))

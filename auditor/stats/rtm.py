@@ -549,6 +549,44 @@ def _invert_information(info: np.ndarray) -> tuple[np.ndarray, bool]:
 
 
 @dataclass(frozen=True)
+class EdgeScale:
+    """The scale on which a reading is tested for a truncation edge."""
+
+    values: np.ndarray
+    name: str
+    """``raw``, ``log`` or ``Box-Cox power 0.32``."""
+
+
+def edge_test_scale(values, declared_log: bool | None = None) -> EdgeScale:
+    """``values`` on the scale where the truncation-edge test's normal reference is most plausible.
+
+    The edge test reads any tail shorter than a normal one as a cut, so a skewed but untruncated
+    sample is a false alarm on the raw scale, and a gamma-like one (a count with a long right tail)
+    still is on the log scale, whose upper tail is short. Positive values are therefore given the
+    Box-Cox power that makes them most nearly normal, by maximum likelihood (Box and Cox 1964;
+    scipy.stats.boxcox); non-negative values with zeros are shifted by 0.5 first. A sharp cut
+    survives every monotone transform, so an edge is still found. Powers within 0.1 of 1 are kept
+    as the raw scale and within 0.1 of 0 as the log (conventions of this tool); a declared
+    ``log_scale`` decides instead. Values with a negative stay raw.
+    """
+    v = np.asarray(values, dtype=float)
+    if declared_log is not None:
+        if declared_log and np.all(v > 0):
+            return EdgeScale(np.log(v), "log")
+        return EdgeScale(v, "raw")
+    if np.any(v < 0) or np.ptp(v) == 0:
+        return EdgeScale(v, "raw")
+    shifted = v + 0.5 if np.any(v == 0) else v
+    power = float(stats.boxcox_normmax(shifted, method="mle"))
+    if not np.isfinite(power) or abs(power - 1.0) < 0.1:
+        return EdgeScale(v, "raw")
+    if abs(power) < 0.1:
+        return EdgeScale(np.log(shifted), "log")
+    power = round(power, 2)
+    return EdgeScale((shifted ** power - 1.0) / power, f"Box-Cox power {power:g}")
+
+
+@dataclass(frozen=True)
 class EdgeTestResult:
     """Likelihood-ratio test for a sharp edge at the sample minimum and/or maximum.
 

@@ -428,3 +428,33 @@ def test_interval_coverage_with_estimated_population_and_reliability(direction, 
         hits += ci.lower <= truth <= ci.upper
     # Requirement set for this module (a convention, no source): at least 90% for nominal 95%.
     assert hits / reps >= 0.90
+
+
+def test_edge_scale_keeps_skewed_untruncated_counts_quiet_and_still_finds_a_cut():
+    # Known truth, 40 replicates each at N = 310 (Monte Carlo null of 199): gamma-Poisson counts are
+    # not truncated (at most 4 of 40 flagged at 5%: 0.05 plus about 2.3 Monte Carlo SE, a convention
+    # of this test; 83% were flagged on the log scale during development); a normal sample cut at its
+    # 30th percentile is truncated (at least 38 of 40 flagged).
+    from auditor.stats.rtm import edge_test_scale, truncation_edge_test
+
+    rng = np.random.default_rng(2024)
+    false_alarms = found = 0
+    for _ in range(40):
+        y = rng.poisson(rng.gamma(2.0, 0.8, 310) * 27).astype(float)
+        false_alarms += truncation_edge_test(edge_test_scale(y).values, side="either", n_null=199,
+                                             seed=5).p_value < 0.05
+        x = rng.normal(50, 10, 443)
+        x = x[x >= np.quantile(x, 0.3)]
+        found += truncation_edge_test(edge_test_scale(x).values, side="either", n_null=199, seed=5).p_value < 0.05
+    assert false_alarms <= 4 and found >= 38
+
+
+def test_edge_scale_names_and_declared_scale():
+    from auditor.stats.rtm import edge_test_scale
+
+    rng = np.random.default_rng(1)
+    assert edge_test_scale(np.exp(rng.normal(3, 0.8, 500))).name == "log"  # log-normal: power near 0
+    assert edge_test_scale(rng.normal(0, 1, 50)).name == "raw"  # a negative value: never transformed
+    assert edge_test_scale(np.exp(rng.normal(3, 0.8, 50)), declared_log=False).name == "raw"
+    declared = edge_test_scale(np.array([1.0, 2.0, 4.0]), declared_log=True)
+    assert declared.name == "log" and np.allclose(declared.values, np.log([1, 2, 4]))
