@@ -86,10 +86,14 @@ def _time_table(df, arms) -> Table:
                  rows, by_arm=True)
 
 
-def _comparisons(df, arms, control, cols, ctx) -> list[dict]:
-    """Each active arm against control: the rate ratio (offset log time) and the count ratio
-    (the same model without the offset), fitted on the same participants."""
-    rate = fit_log_linear(df["followup"], cols, offset=np.log(df["followup_time"]), level=ctx.level)
+def _rate_model(df, cols, ctx):
+    """The rate model: log E[y] = log t + a + b'arm (+ g log baseline rate)."""
+    return fit_log_linear(df["followup"], cols, offset=np.log(df["followup_time"]), level=ctx.level)
+
+
+def _comparisons(df, arms, control, cols, rate, ctx) -> list[dict]:
+    """Each active arm against control: the rate ratio (from ``rate``, the rate model) and the count
+    ratio (the same model without the offset), fitted on the same participants."""
     counts_cols = dict(cols)
     if "log baseline rate" in counts_cols:  # the analysis that ignores time adjusts for the baseline count
         counts_cols["log baseline rate"] = np.log(df["baseline"].to_numpy() + 0.5)
@@ -99,14 +103,14 @@ def _comparisons(df, arms, control, cols, ctx) -> list[dict]:
             for a in arms if a != ref]
 
 
-def _figure(df, arms, spec, ctx, cols, comparisons_fit) -> Figure:
+def _figure(df, arms, spec, ctx, expected) -> Figure:
     shown, note = thin(df, ctx.seed)
     groups = ([{"label": a, "x": shown.loc[shown["arm"] == a, "followup_time"].tolist(),
                 "y": shown.loc[shown["arm"] == a, "followup"].tolist()} for a in arms] if arms else
               [{"label": "All participants", "x": shown["followup_time"].tolist(), "y": shown["followup"].tolist()}])
     grid = np.linspace(float(df["followup_time"].min()), float(df["followup_time"].max()), 40)
     curves = [{"label": f"rate model: {c['label']}", "x": grid.tolist(), "y": (grid * c["rate"]).tolist()}
-              for c in comparisons_fit]
+              for c in expected]
     return Figure("count-time-scatter", "scatter_xy", f"{spec.display_name}: follow-up count against observation time",
                   {"groups": groups, "curves": curves, "xlabel": f"Observation time ({spec.exposure})",
                    "ylabel": "Follow-up count"},
@@ -115,9 +119,8 @@ def _figure(df, arms, spec, ctx, cols, comparisons_fit) -> Figure:
                   by_arm=bool(arms))
 
 
-def _expected_rates(df, arms, control, cols, ctx) -> list[dict]:
-    """Per arm, the rate at the median baseline rate under the rate model (for the figure)."""
-    fit = fit_log_linear(df["followup"], cols, offset=np.log(df["followup_time"]), level=ctx.level)
+def _expected_rates(fit, arms, cols) -> list[dict]:
+    """Per arm, the rate at the median baseline rate under the rate model ``fit`` (for the figure)."""
     base = float(np.median(cols["log baseline rate"])) if "log baseline rate" in cols else 0.0
     coef = dict(zip(fit.names, fit.coef))
     lin0 = coef["intercept"] + coef.get("log baseline rate", 0.0) * base
@@ -141,6 +144,7 @@ def run(data, ctx: CheckContext):
     with_baseline = "baseline" in df.columns
     cols = _design(df, arms, data.control_arm, with_baseline)
     spread = time_spread(df["followup_time"])
+    rate = _rate_model(df, cols, ctx)
 
     estimates = [
         estimate("Participants with a follow-up count and its time", float(spread.n)),
@@ -177,7 +181,7 @@ def run(data, ctx: CheckContext):
         h, p = times_differ_by_arm(df["followup_time"], df["arm"])
         arm_differs = p < ARM_TIME_ALPHA and not spread.equal
         tables.append(_time_table(df, arms))
-        comparisons = _comparisons(df, arms, data.control_arm, cols, ctx)
+        comparisons = _comparisons(df, arms, data.control_arm, cols, rate, ctx)
         rows = []
         for c in comparisons:
             (rr, rl, ru, rp), (cr, cl, cu, cp) = c["rate"], c["count"]
@@ -205,7 +209,7 @@ def run(data, ctx: CheckContext):
                                f" (material at {MATERIAL_RATIO:g} or its inverse)", by_arm=True))
 
     verdict, headline = _verdict(spread, spread_text, arm_differs, material, comparisons, scale_ok)
-    figure = _figure(df, arms, spec, ctx, cols, _expected_rates(df, arms, data.control_arm, cols, ctx))
+    figure = _figure(df, arms, spec, ctx, _expected_rates(rate, arms, cols))
     return result(check, data, verdict, headline, subfindings=subs, estimates=estimates, tables=tables,
                   figures=[figure], caveats=caveats,
                   references=cite(["cameron-trivedi-2013", "wedderburn-1974", "kruskal-wallis-1952"]),
