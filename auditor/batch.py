@@ -56,31 +56,69 @@ def expand_inputs(items: list[Path]) -> list[Path]:
 
 
 def output_names(folders: list[Path]) -> list[str]:
-    """A safe, unique sub-folder name per study (the folder's name; _2, _3 for repeats)."""
-    seen: dict[str, int] = {}
+    """A safe, unique sub-folder name per study: the folder's name, then _2, _3... for repeats.
+
+    Uniqueness is checked against every name already given, case-insensitively (so folders ``a``,
+    ``a`` and ``a_2`` get ``a``, ``a_2`` and ``a_2_2``, and no two studies share an output folder on
+    a case-insensitive filesystem either)."""
+    taken: set[str] = set()
     names = []
     for f in folders:
         base = re.sub(r"[^A-Za-z0-9._-]+", "_", Path(f).resolve().name or "study").strip("._") or "study"
-        seen[base] = seen.get(base, 0) + 1
-        names.append(base if seen[base] == 1 else f"{base}_{seen[base]}")
+        name, k = base, 1
+        while name.lower() in taken:
+            k += 1
+            name = f"{base}_{k}"
+        taken.add(name.lower())
+        names.append(name)
     return names
+
+
+BATCH_FILES = ("index.html", "summary.csv")
+
+
+def refuse_unsafe_batch(folders: list[Path], out_dir: Path, force: bool) -> None:
+    """Before any work: the batch folder and every study's sub-folder must be safe to write to
+    (never a study folder or one holding one) and, without ``force``, hold no earlier batch or
+    audit. Raises :class:`auditor.writeguard.OutputRefused` naming every occupied place at once."""
+    from .render.output import OUTPUT_FILES
+    from .writeguard import OutputRefused, refuse_existing, refuse_unsafe_folder
+
+    resolved = refuse_unsafe_folder(out_dir, folders, what="batch folder")
+    problems = []
+    try:
+        refuse_existing(resolved, BATCH_FILES, force, "a batch")
+    except OutputRefused as exc:
+        problems.append(str(exc))
+    for name in output_names(folders):
+        try:
+            target = refuse_unsafe_folder(resolved / name, folders)
+            if target.is_dir():
+                refuse_existing(target, OUTPUT_FILES, force)
+        except OutputRefused as exc:
+            problems.append(str(exc))
+    if problems:
+        raise OutputRefused(".\n".join(problems))
 
 
 def audit_one(args: tuple) -> StudyOutcome:
     """Worker: audit one study folder into ``target`` (all four files or none)."""
-    folder, name, target, options, paper = args
+    folder, name, target, options, paper, force = args
     from .pipeline import AuditOptions, audit_study
     from .render.output import write_audit
     from .study import load_study
+    from .writeguard import OutputRefused
 
     try:
         study = load_study(folder)
         audit = audit_study(study, AuditOptions(**options))
-        write_audit(audit, Path(target), force=True, paper=paper)
+        write_audit(audit, Path(target), force=force, paper=paper, protected=[Path(folder)])
     except StudyInputError as exc:
         first = exc.problems[0].one_line()
         more = f" (and {len(exc.problems) - 1} more)" if len(exc.problems) > 1 else ""
         return StudyOutcome(str(folder), name, "failed", error=f"invalid input: {first}{more}")
+    except OutputRefused as exc:
+        return StudyOutcome(str(folder), name, "failed", error=f"not written: {exc}")
     except Exception as exc:  # a model or rendering failure confined to this study
         return StudyOutcome(str(folder), name, "failed", error=f"{type(exc).__name__}: {exc}")
     rows = [{"outcome": r.outcome, "check_id": r.check_id, "verdict": r.verdict.value, "headline": r.headline}
@@ -89,11 +127,11 @@ def audit_one(args: tuple) -> StudyOutcome:
 
 
 def run_batch(folders: list[Path], out_dir: Path, options: dict, jobs: int, paper: str = "A4",
-              progress: Callable[[StudyOutcome], None] | None = None) -> list[StudyOutcome]:
-    """Audit every folder; results in input order whatever the number of jobs."""
-    out_dir.mkdir(parents=True, exist_ok=True)
+              progress: Callable[[StudyOutcome], None] | None = None, force: bool = False) -> list[StudyOutcome]:
+    """Audit every folder; results in input order whatever the number of jobs. Without ``force``
+    a study whose sub-folder already holds an audit fails rather than replacing it."""
     names = output_names(folders)
-    tasks = [(str(f), n, str(out_dir / n), options, paper) for f, n in zip(folders, names)]
+    tasks = [(str(f), n, str(out_dir / n), options, paper, force) for f, n in zip(folders, names)]
     results: list[StudyOutcome | None] = [None] * len(tasks)
     if jobs <= 1:
         for i, t in enumerate(tasks):

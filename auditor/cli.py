@@ -58,14 +58,14 @@ def _report_problems(exc: StudyInputError) -> None:
 
 def _guard(fn):
     """Run a command body, turning user errors into exit 2 and bugs into exit 1."""
-    from .render.output import OutputExists
+    from .writeguard import OutputRefused
 
     try:
         return fn()
     except StudyInputError as exc:
         _report_problems(exc)
         raise typer.Exit(EXIT_INPUT)
-    except OutputExists as exc:
+    except OutputRefused as exc:
         err.print(f"{exc}.", markup=False)
         raise typer.Exit(EXIT_INPUT)
     except typer.Exit:
@@ -93,6 +93,13 @@ def validate(study_dir: Path = typer.Argument(..., help="The study folder (holdi
                   f"{len(study.visits)} visit rows).", markup=False)
 
     _guard(body)
+
+
+def _report_recovery(recovery, folder: Path) -> None:
+    """Say what was finished or cleaned up of an interrupted earlier write into ``folder``."""
+    message = recovery.message(folder)
+    if message:
+        err.print(f"note: {message}.", markup=False)
 
 
 def _summary_table(audit) -> Table:
@@ -134,14 +141,16 @@ def run(
         if paper.lower() not in ("a4", "letter"):
             err.print(f"--paper: '{paper}' is not a page size. Fix: use A4 or letter.", markup=False)
             raise typer.Exit(EXIT_INPUT)
-        check_target(output, force)
+        check_target(output, force, protected=[study_dir])
         study = load_study(study_dir)
         for w in study.warnings:
             err.print("warning: " + w.one_line(), markup=False)
         opts = AuditOptions(blinded=blinded, analysis_date=analysis_date, use_clock=today, seed=seed,
                             checks=tuple(check), list_left_out=list_left_out)
         a = audit_study(study, opts)
-        paths = write_audit(a, output, force=force, paper="A4" if paper.lower() == "a4" else "letter")
+        paths, recovery = write_audit(a, output, force=force, paper="A4" if paper.lower() == "a4" else "letter",
+                                      protected=[study_dir])
+        _report_recovery(recovery, output)
         if not quiet:
             out.print(_summary_table(a))
         for p in paths:
@@ -190,10 +199,10 @@ def batch(
     paper: str = typer.Option("A4", "--paper", help="PDF page size: A4 or letter."),
 ):
     """Audit many studies in parallel: OUT/<study>/, OUT/index.html and OUT/summary.csv."""
-    from .batch import default_jobs, expand_inputs, gate_reached, index_view, run_batch, summary_csv
+    from .batch import default_jobs, expand_inputs, gate_reached, index_view, refuse_unsafe_batch, summary_csv
     from .pipeline import CAUTIONS
     from .render.html import render_view
-    from .render.output import write_file_atomically
+    from .writeguard import write_file_set
 
     levels = ("failed", "not assessable", "caution", "unsupported")
 
@@ -201,21 +210,21 @@ def batch(
         if fail_on is not None and fail_on not in levels:
             err.print(f"--fail-on: '{fail_on}' is not a level. Fix: use one of {', '.join(levels)}.", markup=False)
             raise typer.Exit(EXIT_INPUT)
-        if output.exists() and (output / "index.html").exists() and not force:
-            err.print(f"{output} already holds a batch. Fix: use --force or another folder.", markup=False)
-            raise typer.Exit(EXIT_INPUT)
         folders = expand_inputs(inputs)
         missing = [f for f in folders if not f.is_dir()]
         if missing:
             for f in missing:
                 err.print(f"{f}: is not a folder. Fix: give study folders or a manifest listing them.", markup=False)
             raise typer.Exit(EXIT_INPUT)
+        refuse_unsafe_batch(folders, output, force)
         options = {"blinded": blinded, "analysis_date": analysis_date, "seed": seed}
         n_jobs = jobs or default_jobs()
-        results = _run_with_progress(folders, output, options, n_jobs, paper)
+        results = _run_with_progress(folders, output, options, n_jobs, paper, force)
         view = {**index_view(results, {**options, "paper": paper}), "cautions": CAUTIONS}
-        write_file_atomically(output / "index.html", render_view("batch_index.html.j2", view).encode("utf-8"))
-        write_file_atomically(output / "summary.csv", summary_csv(results).encode("utf-8"))
+        _, recovery = write_file_set({"index.html": render_view("batch_index.html.j2", view).encode("utf-8"),
+                                      "summary.csv": summary_csv(results).encode("utf-8")},
+                                     output, force=force, protected=folders, what="a batch")
+        _report_recovery(recovery, output)
         table = Table(title=f"batch: {len(results)} studies")
         table.add_column("Study")
         table.add_column("Status")
@@ -230,7 +239,7 @@ def batch(
     _guard(body)
 
 
-def _run_with_progress(folders, output, options, n_jobs, paper):
+def _run_with_progress(folders, output, options, n_jobs, paper, force):
     from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn, TimeRemainingColumn
 
     from .batch import run_batch
@@ -244,7 +253,7 @@ def _run_with_progress(folders, output, options, n_jobs, paper):
             outcomes_done[0] += result.n_outcomes
             progress.update(task, advance=1, extra=f"{outcomes_done[0]} outcomes")
 
-        return run_batch(folders, output, options, n_jobs, paper=paper, progress=tick)
+        return run_batch(folders, output, options, n_jobs, paper=paper, progress=tick, force=force)
 
 
 @app.command()
@@ -253,13 +262,17 @@ def compare(
     new: Path = typer.Argument(..., help="findings.json of the later audit."),
     html: Optional[Path] = typer.Option(None, "--html", help="Also write the comparison as an HTML page here."),
     tolerance: float = typer.Option(1e-6, "--tolerance", help="Relative change below which a number has not moved."),
+    force: bool = typer.Option(False, "--force", help="Replace the file --html names if it exists."),
 ):
     """What changed between two audits of a study: verdicts, numbers, outcomes and checks."""
     from .compare import compare_findings, comparison_view, load_findings
     from .errors import ProblemLog
     from .render.html import render_view
+    from .writeguard import refuse_existing_file, write_one_file
 
     def body():
+        if html is not None:
+            refuse_existing_file(html, force, inputs=[old, new])
         log = ProblemLog()
         a, b = load_findings(old, log), load_findings(new, log)
         log.raise_if_errors()
@@ -289,7 +302,8 @@ def compare(
                 t.add_row(*_cells(m.outcome, m.check_id, m.name, m.field, number(m.old), number(m.new)))
             out.print(t)
         if html is not None:
-            html.write_text(render_view("compare.html.j2", comparison_view(cmp)), encoding="utf-8")
+            write_one_file(html, render_view("compare.html.j2", comparison_view(cmp)).encode("utf-8"),
+                           force=force, inputs=[old, new])
             out.print(str(html), markup=False)
 
     _guard(body)
@@ -306,19 +320,23 @@ def selfcheck(
 ):
     """Run the validation suite on the installed tool: validation.html, validation.pdf, validation.json."""
     from .render.html import render_view
-    from .render.output import OutputExists, write_files_atomically
     from .render.pdf import html_to_pdf
     from .selfcheck import run_selfcheck, selfcheck_view
+    from .writeguard import refuse_existing, refuse_unsafe_folder, write_file_set
+
+    names = ("validation.html", "validation.pdf", "validation.json")
 
     def body():
-        if (output / "validation.json").exists() and not force:
-            raise OutputExists(f"{output} already holds a validation report; use --force to replace it")
+        target = refuse_unsafe_folder(output)
+        if target.is_dir():
+            refuse_existing(target, names, force, "a validation report")
         with err.status("running validation cases") as status:
             rep = run_selfcheck(full=full, seed=seed, date=date, only=only,
                                 progress=lambda cid: status.update(f"done: {cid}"))
         html = render_view("selfcheck.html.j2", selfcheck_view(rep))
-        write_files_atomically({"validation.html": html.encode("utf-8"), "validation.pdf": html_to_pdf(html),
-                                "validation.json": rep.to_json().encode("utf-8")}, output, force=True)
+        files = dict(zip(names, (html.encode("utf-8"), html_to_pdf(html), rep.to_json().encode("utf-8"))))
+        _, recovery = write_file_set(files, output, force=force, what="a validation report")
+        _report_recovery(recovery, output)
         n_pass = sum(c.passed for c in rep.reference + rep.simulation)
         out.print(f"{n_pass} of {len(rep.reference) + len(rep.simulation)} cases pass ({rep.mode} mode).", markup=False)
         for c in rep.reference + rep.simulation:

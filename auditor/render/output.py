@@ -1,17 +1,16 @@
-"""Writing an audit's four files all at once, or not at all.
+"""Writing an audit's four files all together, or not at all, without touching anything else.
 
-Everything is written into a temporary folder beside the target and moved into place at the end, so
-an interrupted or failed run never leaves a half-finished report behind.
+The rules (refusing unsafe folders, the lock, the journal, renaming only the tool's own files) live
+in :mod:`auditor.writeguard`; this module only names the files and renders their bytes.
 """
 
 from __future__ import annotations
 
-import os
-import shutil
-import tempfile
 from pathlib import Path
+from typing import Iterable
 
 from ..results import Audit
+from ..writeguard import OutputRefused, Recovery, refuse_existing, refuse_unsafe_folder, write_file_set
 from .csvout import findings_csv
 from .html import report_html
 from .jsonout import findings_json
@@ -19,21 +18,16 @@ from .pdf import html_to_pdf
 
 OUTPUT_FILES = ("audit.html", "audit.pdf", "findings.json", "findings.csv")
 
-
-class OutputExists(Exception):
-    pass
-
-
-def existing_audit(out_dir: Path) -> bool:
-    return out_dir.exists() and any((out_dir / name).exists() for name in OUTPUT_FILES)
+OutputExists = OutputRefused
+"""The name earlier versions used for a refused output target."""
 
 
-def check_target(out_dir: Path, force: bool) -> None:
-    """Refuse an existing audit without ``force`` (before any work is done)."""
-    if out_dir.exists() and not out_dir.is_dir():
-        raise OutputExists(f"{out_dir} exists and is not a folder")
-    if existing_audit(out_dir) and not force:
-        raise OutputExists(f"{out_dir} already holds an audit; use --force to replace it")
+def check_target(out_dir: Path, force: bool, protected: Iterable[Path] = ()) -> None:
+    """Refuse, before any work is done, a folder that is unsafe to write to or that already holds an
+    audit (without ``force``)."""
+    resolved = refuse_unsafe_folder(Path(out_dir), protected)
+    if resolved.is_dir():
+        refuse_existing(resolved, OUTPUT_FILES, force)
 
 
 def render_all(audit: Audit, paper: str = "A4") -> dict[str, bytes]:
@@ -47,45 +41,10 @@ def render_all(audit: Audit, paper: str = "A4") -> dict[str, bytes]:
     }
 
 
-def write_files_atomically(files: dict[str, bytes], out_dir: Path, force: bool = False) -> list[Path]:
-    """Write ``files`` into ``out_dir`` through a temporary sibling folder, then swap it into place."""
-    out_dir = Path(out_dir)
-    check_target(out_dir, force)
-    parent = out_dir.resolve().parent
-    parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.partial-", dir=parent))
-    try:
-        for name, content in files.items():
-            (tmp / name).write_bytes(content)
-        if out_dir.exists():
-            keep = [p for p in out_dir.iterdir() if p.name not in files]
-            for p in keep:  # files the user put there survive a --force rerun
-                shutil.move(str(p), str(tmp / p.name))
-            old = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.old-", dir=parent))
-            os.replace(out_dir, old / "previous")
-            os.replace(tmp, out_dir)
-            shutil.rmtree(old, ignore_errors=True)
-        else:
-            os.replace(tmp, out_dir)
-    except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
-        raise
-    return [out_dir / name for name in files]
-
-
-def write_file_atomically(path: Path, content: bytes) -> None:
-    """Write one file through a temporary sibling and an atomic rename."""
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.partial-", dir=path.parent)
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(content)
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
-
-
-def write_audit(audit: Audit, out_dir: Path, force: bool = False, paper: str = "A4") -> list[Path]:
-    check_target(Path(out_dir), force)
-    return write_files_atomically(render_all(audit, paper), Path(out_dir), force)
+def write_audit(audit: Audit, out_dir: Path, force: bool = False, paper: str = "A4",
+                protected: Iterable[Path] = ()) -> tuple[list[Path], Recovery]:
+    """Render and write the audit's four files into ``out_dir``; the paths and any recovery made of
+    an interrupted earlier write."""
+    protected = list(protected)
+    check_target(Path(out_dir), force, protected)
+    return write_file_set(render_all(audit, paper), Path(out_dir), force, protected)

@@ -907,7 +907,7 @@ def test_formula_prefixes_are_neutralised_in_csv_outputs(tmp_path):
     audit = audit_study(load_study(folder), AuditOptions(checks=("pre-post",), quick=True))
     findings = list(csv.reader(io.StringIO(findings_csv(audit))))
     outcome = audit_one((str(folder), "study", str(tmp_path / "batch" / "study"),
-                         {"checks": ("pre-post",), "quick": True}, "A4"))
+                         {"checks": ("pre-post",), "quick": True}, "A4", False))
     assert outcome.status == "ok", outcome.error
     summary = list(csv.reader(io.StringIO(summary_csv([outcome]))))
     for table in (findings, summary):
