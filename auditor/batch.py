@@ -197,7 +197,7 @@ def gate_reached(results: list[StudyOutcome], level: str) -> bool:
     if any(s.status != "ok" for s in results):
         return True
     if level == "failed":
-        return False
+        return any(r["verdict"] == Verdict.TOOL_DEFECT.value for s in results for r in s.rows)
     threshold = Verdict(level).rank
     return any(Verdict(r["verdict"]).rank >= threshold for s in results for r in s.rows)
 

@@ -95,6 +95,16 @@ def validate(study_dir: Path = typer.Argument(..., help="The study folder (holdi
     _guard(body)
 
 
+def _warn_defects(audit) -> None:
+    """Say on the terminal when a defect of the tool, not the data, stopped some findings."""
+    from .results import Verdict
+
+    n = sum(r.verdict is Verdict.TOOL_DEFECT for r in audit.results)
+    if n:
+        err.print(f"warning: {n} finding(s) could not be computed because of a defect in auditor (verdict "
+                  f"'tool defect'); please report it with the output of --debug --strict.", markup=False)
+
+
 def _report_recovery(recovery, folder: Path) -> None:
     """Say what was finished or cleaned up of an interrupted earlier write into ``folder``."""
     message = recovery.message(folder)
@@ -126,6 +136,8 @@ def run(
     seed: Optional[int] = typer.Option(None, "--seed", help="Seed for every resampling; default: study.toml's."),
     paper: str = typer.Option("A4", "--paper", help="PDF page size: A4 or letter."),
     check: List[str] = typer.Option([], "--check", help="Run only this check id (repeatable)."),
+    strict: bool = typer.Option(False, "--strict", help="Stop with exit 1 at the first defect of the tool "
+                                                        "instead of reporting it as a 'tool defect' finding."),
     quiet: bool = typer.Option(False, "--quiet", help="Print only the paths written."),
     list_left_out: bool = typer.Option(
         False, "--list-left-out",
@@ -146,8 +158,10 @@ def run(
         for w in study.warnings:
             err.print("warning: " + w.one_line(), markup=False)
         opts = AuditOptions(blinded=blinded, analysis_date=analysis_date, use_clock=today, seed=seed,
-                            checks=tuple(check), list_left_out=list_left_out)
+                            checks=tuple(check), list_left_out=list_left_out,
+                            **({"strict": True} if strict else {}))
         a = audit_study(study, opts)
+        _warn_defects(a)
         paths, recovery = write_audit(a, output, force=force, paper="A4" if paper.lower() == "a4" else "letter",
                                       protected=[study_dir])
         _report_recovery(recovery, output)

@@ -1,7 +1,8 @@
 """Outcomes x checks: runs every applicable check on every outcome and assembles the audit.
 
-An exception inside one check becomes a "not assessable" result with its reason, so one awkward
-outcome never costs the rest of the audit. In a blinded audit every by-arm item is removed here,
+A computation that the data cannot support becomes a "not assessable" result with its reason, so one
+awkward outcome never costs the rest of the audit; a defect of the tool inside a check or a figure
+becomes a "tool defect" result (or, in strict mode, an exception), never a data limitation. In a blinded audit every by-arm item is removed here,
 whatever a check returned, so blinding does not rest on each check's good behaviour alone.
 """
 
@@ -9,6 +10,7 @@ from __future__ import annotations
 
 import dataclasses
 import datetime as dt
+import os
 import platform
 from dataclasses import dataclass, field, replace
 from importlib import metadata as importlib_metadata
@@ -18,6 +20,7 @@ from . import __version__
 from .checks.common import not_assessable
 from .checks.registry import CheckContext, NotAssessable, all_checks
 from .errors import one_line_text
+from .failures import ToolDefect, data_reason, defect_reason, is_defect
 from .listing import left_out
 from .results import Audit, CheckResult, LeftOut, Provenance, Verdict
 from .study import MIN_PER_ARM, Study, load_study, outcome_data
@@ -53,9 +56,13 @@ class AuditOptions:
     """Run only these check ids (default: all)."""
     list_left_out: bool = False
     """Name, in an appendix, the participants each outcome's analysis leaves out (identifiers)."""
+    strict: bool = field(default_factory=lambda: os.environ.get("AUDITOR_STRICT") == "1")
+    """Raise :class:`~auditor.failures.ToolDefect` at the first defect instead of reporting it as a
+    "tool defect" finding (the test suite sets AUDITOR_STRICT=1). Not recorded: it changes no number."""
 
     def as_record(self) -> dict:
-        return {k: (list(v) if isinstance(v, tuple) else v) for k, v in dataclasses.asdict(self).items()}
+        return {k: (list(v) if isinstance(v, tuple) else v) for k, v in dataclasses.asdict(self).items()
+                if k != "strict"}
 
 
 def library_versions() -> dict[str, str]:
@@ -88,7 +95,11 @@ def assemble_outcome(study: Study, spec, ctx: CheckContext):
         data = outcome_data(study, spec)
         return data, outcome_screen(data, ctx)
     except Exception as exc:
-        return None, f"its data could not be assembled ({_exception_text(exc)})"
+        if is_defect(exc):
+            if ctx.strict:
+                raise ToolDefect(f"assembling outcome {spec.param}: {type(exc).__name__}: {exc}") from exc
+            return None, defect_reason(exc)
+        return None, f"its data could not be assembled: {data_reason(exc)}"
 
 
 def run_checks_for_outcome(study: Study, spec, ctx: CheckContext, only: tuple[str, ...] = (),
@@ -111,22 +122,50 @@ def run_checks_for_outcome(study: Study, spec, ctx: CheckContext, only: tuple[st
             res = not_assessable(check, spec, reason)
         else:
             res = run_one_check(check, data, ctx)
-        out.append(blind(res) if ctx.blinded else res)
+        res = blind(res) if ctx.blinded else res
+        out.append(draw_figures(res, ctx.strict))
     return out
 
 
 def run_one_check(check, data, ctx: CheckContext) -> CheckResult:
-    """One check on one outcome; whatever goes wrong inside it becomes a "not assessable" finding."""
+    """One check on one outcome; a failure the data explain becomes "not assessable" with the reason
+    in the user's terms, a defect of the tool becomes "tool defect" (raised in strict mode)."""
     try:
         return check.run(data, ctx)
     except NotAssessable as exc:
         return not_assessable(check, data.spec, one_line_text(exc, MAX_REASON_CHARS))
     except Exception as exc:  # a model that fails on these data must not cost the rest of the audit
-        return not_assessable(check, data.spec, f"the computation failed ({_exception_text(exc)})")
+        if is_defect(exc):
+            if ctx.strict:
+                raise ToolDefect(f"check {check.id} on {data.spec.param}: {type(exc).__name__}: {exc}") from exc
+            return tool_defect(check, data.spec, exc)
+        return not_assessable(check, data.spec, data_reason(exc))
 
 
-def _exception_text(exc: BaseException) -> str:
-    return one_line_text(f"{type(exc).__name__}: {exc}", MAX_REASON_CHARS)
+def tool_defect(check, spec, exc: BaseException) -> CheckResult:
+    reason = defect_reason(exc)
+    return CheckResult(check_id=check.id, check_title=check.title, outcome=spec.param,
+                       outcome_label=spec.display_name, verdict=Verdict.TOOL_DEFECT,
+                       headline=f"Not computed: {reason}.", reason=reason)
+
+
+def draw_figures(res: CheckResult, strict: bool) -> CheckResult:
+    """Draw each of a result's figures once, keeping the SVG in the record; a figure that fails is
+    recorded in the figure (and as a caveat) rather than blamed silently on the data."""
+    from .figures import to_svg
+
+    figures, caveats = [], list(res.caveats)
+    for f in res.figures:
+        try:
+            figures.append(replace(f, svg=to_svg(f)))
+        except Exception as exc:
+            if strict and is_defect(exc):
+                raise ToolDefect(f"figure {f.id} of {res.check_id} on {res.outcome}: "
+                                 f"{type(exc).__name__}: {exc}") from exc
+            why = defect_reason(exc) if is_defect(exc) else "its data could not be drawn"
+            figures.append(replace(f, problem=why))
+            caveats.append(f"Figure '{f.title}' could not be drawn: {why}. The numbers above are unaffected.")
+    return replace(res, figures=figures, caveats=caveats)
 
 
 def outcome_screen(data, ctx: CheckContext) -> str | None:
@@ -194,7 +233,7 @@ def audit_study(study: Study, options: AuditOptions | None = None) -> Audit:
     meta = study.metadata
     blinded = meta.study.blinded if options.blinded is None else options.blinded
     seed = meta.study.seed if options.seed is None else options.seed
-    ctx = CheckContext(seed=seed, blinded=blinded, quick=options.quick)
+    ctx = CheckContext(seed=seed, blinded=blinded, quick=options.quick, strict=options.strict)
     results: list[CheckResult] = []
     listing: list[LeftOut] | None = [] if options.list_left_out else None
     for spec in meta.outcomes:

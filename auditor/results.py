@@ -29,13 +29,16 @@ class Verdict(str, Enum):
     """The data contradict the planned analysis; an alternative is recommended."""
     NOT_ASSESSABLE = "not assessable"
     """The check could not be computed (too little data, a model that would not fit, blinding)."""
+    TOOL_DEFECT = "tool defect"
+    """A defect of the tool stopped the check; it says nothing about the data (please report it)."""
 
     @property
     def rank(self) -> int:
         return _VERDICT_RANK[self]
 
 
-_VERDICT_RANK = {Verdict.SOUND: 0, Verdict.NOT_ASSESSABLE: 1, Verdict.CAUTION: 2, Verdict.UNSUPPORTED: 3}
+_VERDICT_RANK = {Verdict.SOUND: 0, Verdict.NOT_ASSESSABLE: 1, Verdict.CAUTION: 2, Verdict.UNSUPPORTED: 3,
+                 Verdict.TOOL_DEFECT: 4}
 
 
 def _clean(value: Any) -> Any:
@@ -108,6 +111,10 @@ class Figure:
     data: dict[str, Any]
     caption: str = ""
     by_arm: bool = False
+    svg: str = ""
+    """The drawing, made once by the pipeline (not written to findings.json)."""
+    problem: str = ""
+    """Why the figure could not be drawn, when it could not."""
 
 
 @dataclass(frozen=True)
@@ -142,7 +149,14 @@ class CheckResult:
     """Why the check is not assessable, when it is not."""
 
     def to_dict(self) -> dict[str, Any]:
-        return _clean(asdict(self))
+        return _without_drawings(_clean(asdict(self)))
+
+
+def _without_drawings(d: dict[str, Any]) -> dict[str, Any]:
+    """A result's dictionary without the figures' SVG markup (findings.json carries their data)."""
+    for f in d.get("figures", []):
+        f.pop("svg", None)
+    return d
 
 
 @dataclass(frozen=True)
@@ -198,6 +212,8 @@ class Audit:
 
     def to_dict(self) -> dict[str, Any]:
         d = _clean(asdict(self))
+        for r in d["results"]:
+            _without_drawings(r)
         if self.left_out is None:
             del d["left_out"]  # identifiers are never written unless asked for, not even as an empty key
         return d

@@ -27,6 +27,8 @@ class CheckContext:
     level: float = 0.95
     quick: bool = False
     """Fewer resamples (used by tests and the quick self-check)."""
+    strict: bool = False
+    """Raise defects of the tool instead of reporting them (see :mod:`auditor.failures`)."""
 
 
 @dataclass(frozen=True)

@@ -15,6 +15,7 @@ VERDICT_CLASS = {
     Verdict.CAUTION: "v-caution",
     Verdict.UNSUPPORTED: "v-unsupported",
     Verdict.NOT_ASSESSABLE: "v-na",
+    Verdict.TOOL_DEFECT: "v-defect",
 }
 
 PLANNED_TEXT = {
@@ -89,14 +90,17 @@ def _numeric_column(rows, i: int) -> bool:
     return bool(cells) and all(_is_number(c) for c in cells)
 
 
-def _figure_src(f) -> str:
-    """The figure as an inline data URI, or None when drawing it fails.
-
-    A figure that cannot be drawn from unusual data must not cost the whole report.
-    """
+def _figure_src(f) -> str | None:
+    """The figure as an inline data URI: the pipeline's drawing when it made one, else drawn here
+    (for records built outside the pipeline); None when it could not be drawn (the pipeline has then
+    recorded why in the figure and the result's caveats)."""
+    if f.problem:
+        return None
+    if f.svg:
+        return _svg_data_uri(f.svg)
     try:
         return _svg_data_uri(to_svg(f))
-    except Exception:  # any drawing failure, confined to this figure
+    except Exception:  # confined to this figure; the pipeline path records the reason
         return None
 
 
@@ -105,7 +109,7 @@ def result_view(r: CheckResult, figure_no: list[int]) -> dict:
     for f in r.figures:
         figure_no[0] += 1
         src = _figure_src(f)
-        caption = f.caption if src else "This figure could not be drawn from these data."
+        caption = f.caption if src else f"This figure could not be drawn: {f.problem or 'drawing failed'}."
         figs.append({"number": figure_no[0], "title": f.title, "caption": caption,
                      "src": src or _svg_data_uri(UNDRAWN_SVG)})
     return {

@@ -15,6 +15,7 @@ from __future__ import annotations
 import csv
 import dataclasses
 import io
+import json
 import os
 import re
 import socket
@@ -677,22 +678,72 @@ def test_one_participant_single_arm_study_audits_to_not_assessable(tmp_path):
     assert all(r.verdict.value == "not assessable" and "only 1 participants" in r.reason for r in audit.results)
 
 
-def test_exception_inside_a_check_is_confined(tmp_path, monkeypatch):
-    """Any exception type, not only the numeric ones, becomes that check's "not assessable" finding."""
+def _flaky_pre_post(monkeypatch, exc: BaseException) -> None:
+    """Make the pre-post check raise ``exc`` on outcome DBP only."""
     check = registry.get_check("pre-post")
     original = check.run
 
     def flaky(data, ctx):
         if data.spec.param == "DBP":
-            raise AttributeError("'NoneType' object has no attribute 'x'\nsecond line")
+            raise exc
         return original(data, ctx)
 
     monkeypatch.setitem(registry._REGISTRY, "pre-post", dataclasses.replace(check, run=flaky))
+
+
+def test_a_library_failure_inside_a_check_is_confined_and_worded_for_the_user(tmp_path, monkeypatch):
+    """A numerical failure raised by a library becomes that check's "not assessable" finding, with a
+    reason in the user's terms rather than the library's exception text."""
+    _flaky_pre_post(monkeypatch, np.linalg.LinAlgError("SVD did not converge in Linear Least Squares"))
     audit = audit_study(load_study(Synthetic().write(tmp_path / "study")), AuditOptions(checks=("pre-post",), quick=True))
     by = {r.outcome: r for r in audit.results}
     assert by["DBP"].verdict.value == "not assessable"
-    assert "AttributeError" in by["DBP"].reason and "\n" not in by["DBP"].reason
-    assert by["SBP"].verdict.value != "not assessable"
+    assert "singular or ill-conditioned" in by["DBP"].reason and "SVD" not in by["DBP"].reason
+    assert by["SBP"].verdict.value not in ("not assessable", "tool defect")
+
+
+@pytest.mark.parametrize("exc", [AttributeError("'NoneType' object has no attribute 'x'\nsecond line"),
+                                 KeyError("baseline"), TypeError("unsupported operand"), IndexError("out of range")],
+                         ids=lambda e: type(e).__name__)
+def test_a_defect_inside_a_check_is_a_tool_defect_not_a_data_limitation(tmp_path, monkeypatch, exc):
+    _flaky_pre_post(monkeypatch, exc)
+    folder = Synthetic().write(tmp_path / "study")
+    monkeypatch.setenv("AUDITOR_STRICT", "0")
+    audit = audit_study(load_study(folder), AuditOptions(checks=("pre-post",), quick=True))
+    by = {r.outcome: r for r in audit.results}
+    assert by["DBP"].verdict.value == "tool defect"
+    assert type(exc).__name__ in by["DBP"].reason and "\n" not in by["DBP"].reason
+    assert "says nothing about the data" in by["DBP"].headline
+    assert by["SBP"].verdict.value not in ("not assessable", "tool defect")
+    from auditor.failures import ToolDefect
+
+    with pytest.raises(ToolDefect, match=type(exc).__name__):
+        audit_study(load_study(folder), AuditOptions(checks=("pre-post",), quick=True, strict=True))
+
+
+def test_run_reports_a_defect_on_the_terminal_and_strict_exits_1(tmp_path, monkeypatch):
+    _flaky_pre_post(monkeypatch, KeyError("baseline"))
+    monkeypatch.setenv("AUDITOR_STRICT", "0")
+    folder = Synthetic().write(tmp_path / "study")
+    res = runner.invoke(app, ["run", str(folder), "-o", str(tmp_path / "a"), "--check", "pre-post"])
+    assert res.exit_code == 0 and "defect in auditor" in _stderr(res)
+    res = runner.invoke(app, ["run", str(folder), "-o", str(tmp_path / "b"), "--check", "pre-post", "--strict"])
+    assert res.exit_code == 1 and "Traceback" not in _stderr(res)
+    assert not (tmp_path / "b").exists()
+
+
+def test_a_figure_that_fails_to_draw_is_recorded_in_the_result(tmp_path, monkeypatch):
+    import auditor.figures as figures
+
+    monkeypatch.setenv("AUDITOR_STRICT", "0")
+    real = figures.to_svg
+    monkeypatch.setattr(figures, "to_svg", lambda f: (_ for _ in ()).throw(KeyError("x")) if f.kind else real(f))
+    audit = audit_study(load_study(Synthetic().write(tmp_path / "study")), AuditOptions(checks=("pre-post",), quick=True))
+    drawn = [f for r in audit.results for f in r.figures]
+    assert drawn and all("defect in auditor" in f.problem for f in drawn)
+    assert all(any("could not be drawn" in c for c in r.caveats) for r in audit.results if r.figures)
+    assert "could not be drawn: a defect in auditor" in report_html(audit)
+    assert all("svg" not in f for r in json.loads(findings_json(audit))["results"] for f in r["figures"])
 
 
 def test_run_completes_with_damaged_outcomes_end_to_end(tmp_path):
