@@ -311,10 +311,11 @@ def repeated_caveat_and_fit(data, ctx, arms):
     from ..stats.repeated import fit_post_baseline_model
 
     visits = [c for c in data.frame.columns if c.startswith("fu:")]
-    fit = fit_post_baseline_model(data.frame, visits, arms, data.control_arm)
-    rows = [[row.visit, row.contrast, row.estimate, row.se, row.lower, row.upper, row.p_value] for row in fit]
+    fit = fit_post_baseline_model(data.frame, visits, arms, data.control_arm, ctx.level)
+    rows = [[row.visit, row.contrast, row.estimate, row.se, row.lower, row.upper, row.p_value] for row in fit.effects]
+    notes = [f"The longitudinal model's fit warned: {n}." for n in fit.notes]
     return Table("repeated", "Post-baseline visits as responses, baseline as a covariate only",
-                 ["Visit", "Arm vs control", "Effect", "SE", "lower", "upper", "p"], rows, by_arm=True)
+                 ["Visit", "Arm vs control", "Effect", "SE", "lower", "upper", "p"], rows, by_arm=True), notes
 
 
 # ----------------------------------------------------------------------------- figures
@@ -458,7 +459,9 @@ def run(data, ctx: CheckContext):
                        "the treatment effect is distorted. Model post-baseline visits as responses with baseline "
                        "as a covariate only.")
         if len(arms) > 1:
-            tables.append(repeated_caveat_and_fit(data, ctx, arms))
+            table, notes = repeated_caveat_and_fit(data, ctx, arms)
+            tables.append(table)
+            caveats += notes
     verdict, headline = decide(data.spec.planned_analysis, parts, r)
     return result(check, data, verdict, headline, subfindings=[p.sub for p in parts.values()],
                   estimates=estimates, tables=tables, figures=_figures(data, df, arms, flex_fit, plan, ctx.seed),

@@ -15,11 +15,12 @@ one: the rate ratio's CI stays valid whatever the dispersion, as long as the mea
 from __future__ import annotations
 
 import math
-import warnings
 from dataclasses import dataclass
 
 import numpy as np
 from scipy import stats
+
+from .fitnotes import fit_notes
 
 SPREAD_CV = 0.10
 """Observation times whose coefficient of variation is below this count as equal (a convention)."""
@@ -61,6 +62,8 @@ class LogLinearFit:
     se: np.ndarray
     n: int
     level: float
+    notes: tuple[str, ...] = ()
+    """What the fitting routine warned about (see :mod:`auditor.stats.fitnotes`)."""
 
     def _index(self, name: str) -> int:
         return self.names.index(name)
@@ -87,19 +90,22 @@ class LogLinearFit:
 
 def fit_log_linear(y, columns: dict[str, np.ndarray], offset=None, level: float = 0.95) -> LogLinearFit:
     """Poisson log-linear model of counts ``y`` on an intercept plus ``columns``, with an optional
-    offset (log observation time), by maximum likelihood; HC0 sandwich standard errors."""
+    offset (log observation time), by maximum likelihood; HC0 sandwich standard errors.
+
+    Raises ``ArithmeticError`` when the fit does not converge or gives non-finite numbers; other
+    warnings of the fitting routine are kept in ``notes``."""
     import statsmodels.api as sm
 
     y = np.asarray(y, dtype=float)
     names = ["intercept", *columns]
     X = np.column_stack([np.ones(len(y)), *[np.asarray(c, dtype=float) for c in columns.values()]])
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
+    with fit_notes() as notes:
         res = sm.GLM(y, X, family=sm.families.Poisson(),
                      offset=None if offset is None else np.asarray(offset, dtype=float)).fit(cov_type="HC0")
-    if not np.all(np.isfinite(res.params)) or not np.all(np.isfinite(res.bse)):
+    converged = bool(getattr(res, "converged", True))
+    if not converged or not np.all(np.isfinite(res.params)) or not np.all(np.isfinite(res.bse)):
         raise ArithmeticError("the log-linear count model did not converge")
-    return LogLinearFit(names, np.asarray(res.params), np.asarray(res.bse), len(y), level)
+    return LogLinearFit(names, np.asarray(res.params), np.asarray(res.bse), len(y), level, tuple(notes))
 
 
 def log_baseline_rate(count, time, half: float = 0.5) -> np.ndarray:

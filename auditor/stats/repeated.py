@@ -9,12 +9,13 @@ longitudinal alternatives are discussed by Liu et al., Stat Med 2009;28:2509-253
 
 from __future__ import annotations
 
-import warnings
 from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 from scipy import stats
+
+from .fitnotes import fit_notes
 
 
 @dataclass(frozen=True)
@@ -28,10 +29,20 @@ class VisitEffect:
     p_value: float
 
 
-def fit_post_baseline_model(frame: pd.DataFrame, visit_columns: list[str], arms: list[str], control: str
-                            ) -> list[VisitEffect]:
-    """Arm-versus-control effect at each post-baseline visit. ``frame`` holds ``baseline``, ``arm``
-    and one column per visit (names in ``visit_columns``)."""
+@dataclass(frozen=True)
+class PostBaselineFit:
+    effects: list[VisitEffect]
+    notes: tuple[str, ...]
+    """What the fitting routine warned about (see :mod:`auditor.stats.fitnotes`)."""
+
+
+def fit_post_baseline_model(frame: pd.DataFrame, visit_columns: list[str], arms: list[str], control: str,
+                            level: float = 0.95) -> PostBaselineFit:
+    """Arm-versus-control effect at each post-baseline visit, with Wald intervals at ``level``.
+    ``frame`` holds ``baseline``, ``arm`` and one column per visit (names in ``visit_columns``).
+
+    Raises ``ArithmeticError`` when the REML fit does not converge or gives non-finite effects;
+    other warnings of the fitting routine are kept in ``notes``."""
     import statsmodels.api as sm
 
     long = frame[["arm", "baseline", *visit_columns]].copy()
@@ -46,11 +57,12 @@ def fit_post_baseline_model(frame: pd.DataFrame, visit_columns: list[str], arms:
             cols[f"{a}@{v}"] = ((long["visit"] == v) & (long["arm"] == a)).to_numpy(dtype=float)
     names = list(cols)
     X = np.column_stack([cols[k] for k in names])
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
+    with fit_notes() as notes:
         res = sm.MixedLM(long["y"].to_numpy(dtype=float), X, groups=long["pid"].to_numpy()).fit(reml=True)
     params, bse = np.asarray(res.fe_params), np.asarray(res.bse_fe)
-    q = stats.norm.ppf(0.975)
+    if not bool(getattr(res, "converged", True)) or not (np.all(np.isfinite(params)) and np.all(np.isfinite(bse))):
+        raise ArithmeticError("the longitudinal model (post-baseline visits as responses) did not converge")
+    q = stats.norm.ppf(0.5 + level / 2)
     out = []
     for v in visit_columns:
         for a in others:
@@ -58,4 +70,4 @@ def fit_post_baseline_model(frame: pd.DataFrame, visit_columns: list[str], arms:
             est, se = float(params[i]), float(bse[i])
             out.append(VisitEffect(v.removeprefix("fu:"), a, est, se, est - q * se, est + q * se,
                                    float(2 * stats.norm.sf(abs(est / se)))))
-    return out
+    return PostBaselineFit(out, tuple(notes))
