@@ -617,6 +617,9 @@ def _responder_baseline(inp: _Inputs, spec, ctx: CheckContext, resp: np.ndarray,
     try:
         curve = rc.responder_on_baseline(inp.b, resp, ctx.level)
     except ValueError as exc:
+        # The question stays visibly unanswered; it adds nothing to the check's verdict either way.
+        out.sub("responder-baseline", "Is the chance of responding free of baseline?", Verdict.NOT_ASSESSABLE,
+                f"not assessable: {exc}")
         out.caveats.append(f"The responder probability could not be related to baseline: {exc}.")
         return Verdict.SOUND
     spread = curve.prob_high - curve.prob_low

@@ -237,3 +237,17 @@ def test_example_acs_responder_rule_is_flagged_with_its_inflation(example_result
     assert _est(acs, "Sample-size inflation").value > 1.5
     assert "times the participants of the continuous ANCOVA" in acs.headline
     assert set(example_results) == {"EOS", "ACS"}  # the check applies to no other outcome
+
+
+def test_a_responder_probability_that_cannot_be_related_to_baseline_is_shown_not_assessable():
+    # Everyone improves by at least 5 units, so everyone is a responder at "change <= -1": the
+    # logistic model of responding on baseline has no data to fit, and the question must say so
+    # rather than read as answered.
+    rng = np.random.default_rng(4)
+    n = 200
+    b = rng.normal(50, 8, n)
+    f = b - 5 - rng.gamma(2.0, 1.0, n)
+    rule = ResponderRule(basis="change", threshold=-1.0, direction="at-most")
+    res = run(_data(b, f, _arms(n), planned="responder", responder=rule), UNBLINDED)
+    sub = _sub(res, "responder-baseline")
+    assert sub.verdict.value == "not assessable" and "same responder status" in sub.evidence
