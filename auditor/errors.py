@@ -67,10 +67,20 @@ class ProblemLog:
     """Accumulates problems while a study is read; raise once at the end."""
 
     problems: list[InputProblem] = field(default_factory=list)
+    row_offsets: dict[str, int] = field(default_factory=dict)
+    """Lines before the header of a file (a spreadsheet's ``sep=,`` line, say), by file label: row
+    numbers counted from the header are moved down by this much so that they match the file's lines."""
 
     def add(self, file: str, where: str, column: str, problem: str, fix: str,
             severity: str = "error") -> None:
+        offset = self.row_offsets.get(file, 0)
+        if offset:
+            where = shifted_rows(where, offset)
         self.problems.append(InputProblem(file, where, column, problem, fix, severity))
+
+    def skip_lines(self, file: str, lines: int) -> None:
+        """Record that ``file``'s header is preceded by ``lines`` lines that were not read."""
+        self.row_offsets[file] = self.row_offsets.get(file, 0) + lines
 
     @property
     def errors(self) -> list[InputProblem]:
@@ -83,6 +93,15 @@ class ProblemLog:
     def raise_if_errors(self) -> None:
         if self.errors:
             raise StudyInputError(self.errors)
+
+
+def shifted_rows(where: str, offset: int) -> str:
+    """``rows 2, 5 and 3 more`` with every row number (not the count of further rows) moved by
+    ``offset``; a place that is not a row reference is returned unchanged."""
+    if not re.match(r"^rows? \d", where):
+        return where
+    head, sep, tail = where.partition(" and ")
+    return re.sub(r"\d+", lambda m: str(int(m.group()) + offset), head) + sep + tail
 
 
 def did_you_mean(word: str, choices) -> str:

@@ -35,6 +35,10 @@ PlannedAnalysis = Literal[
     "responder",
     "repeated-with-baseline-response",
 ]
+DEFAULT_MAX_ROWS = 20_000_000
+"""Data rows a data file may hold unless ``files.max_rows`` raises the limit: checked from the file's
+header or footer before it is parsed, so that a small file that expands to a huge table is refused
+in a second instead of taking minutes and gigabytes."""
 MAX_NAME_CHARS = 200
 """Longest code, arm, column or visit name accepted (labels and titles may run to 2000 characters)."""
 
@@ -103,6 +107,8 @@ class FilesInfo(_Strict):
     layout: Literal["long", "wide"] = "long"
     wide_pattern: StrictStr = Field(default="{param}_{visit}", max_length=MAX_NAME_CHARS)
     """In a wide file, how a column name is built from a parameter code and a visit name."""
+    max_rows: StrictInt = Field(default=DEFAULT_MAX_ROWS, ge=1, le=2**40)
+    """Most data rows accepted in any one data file (checked before the file is parsed)."""
 
     @field_validator("wide_pattern")
     @classmethod

@@ -19,7 +19,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import InputProblem, ProblemLog, StudyInputError, did_you_mean, rows_text
-from .metadata import METADATA_FILE, OutcomeSpec, StudyMetadata, read_metadata
+from .metadata import DEFAULT_MAX_ROWS, METADATA_FILE, OutcomeSpec, StudyMetadata, read_metadata
 from .results import InputFile
 
 MAX_FILE_BYTES = 2 * 1024**3
@@ -114,27 +114,120 @@ def _inside(folder: Path, rel: str, key: str, log: ProblemLog) -> Path | None:
     return target
 
 
-def _encoding_of(raw: bytes) -> str:
-    """UTF-16 when the file starts with a UTF-16 byte-order mark; else UTF-8 (with or without a
-    byte-order mark) when it decodes as such; else Latin-1, which decodes any byte."""
-    if raw.startswith((b"\xff\xfe", b"\xfe\xff")):
-        try:
-            raw.decode("utf-16")
-            return "utf-16"
-        except UnicodeDecodeError:
-            pass
+UTF32_BOMS = (b"\xff\xfe\x00\x00", b"\x00\x00\xfe\xff")
+UTF16_BOMS = (b"\xff\xfe", b"\xfe\xff")
+BINARY_HEAD_BYTES = 65536
+"""A NUL byte this early means the file is not text at all; later, a text file with a binary tail."""
+_UTF8_MULTIBYTE = re.compile(
+    rb"[\xc2-\xdf][\x80-\xbf]|\xe0[\xa0-\xbf][\x80-\xbf]|[\xe1-\xec\xee\xef][\x80-\xbf]{2}"
+    rb"|\xed[\x80-\x9f][\x80-\xbf]|\xf0[\x90-\xbf][\x80-\xbf]{2}|[\xf1-\xf3][\x80-\xbf]{3}"
+    rb"|\xf4[\x80-\x8f][\x80-\xbf]{2}")
+"""One well-formed multi-byte UTF-8 sequence (RFC 3629, section 4): text that holds one was written
+as UTF-8, since Latin-1 text almost never pairs a lead byte with continuation bytes."""
+_SEP_LINE = re.compile(rb'^(?:\xef\xbb\xbf)?"?sep=(.)"?\r?$', re.IGNORECASE)
+"""The ``sep=<c>`` first line a spreadsheet writes to name a CSV file's delimiter."""
+XPT_RECORD = 80
+XPT_LIBRARY = b"HEADER RECORD*******LIBRARY HEADER RECORD!!!!!!!"
+XPT_LIBRARY_V8 = b"HEADER RECORD*******LIBV8   HEADER RECORD!!!!!!!"
+XPT_MEMBER = b"HEADER RECORD*******MEMBER  HEADER RECORD!!!!!!!"
+XPT_NAMESTR = b"HEADER RECORD*******NAMESTR HEADER RECORD!!!!!!!"
+XPT_OBS = b"HEADER RECORD*******OBS     HEADER RECORD!!!!!!!"
+XPT_MISSING_LEADS = frozenset(b"._ABCDEFGHIJKLMNOPQRSTUVWXYZ")
+"""First byte of a SAS missing value (``.``, ``._``, ``.A`` to ``.Z``) in a transport file."""
+
+
+def _row_of(raw: bytes, offset: int) -> int:
+    """The 1-based line of the file (header = row 1) that holds byte ``offset``."""
+    return raw.count(b"\n", 0, offset) + 1
+
+
+def _text_bytes(raw: bytes, label: str, log: ProblemLog) -> tuple[bytes, str] | None:
+    """The CSV bytes and the codec pandas should read them with.
+
+    UTF-32 and UTF-16 (named by their byte-order marks; UTF-32 first, since the UTF-16 LE mark is a
+    prefix of UTF-32 LE's) are decoded and handed on as UTF-8, so that every later check sees one
+    byte per ASCII character. Otherwise the bytes are UTF-8 when they decode as such, UTF-8 with
+    damage when they hold UTF-8 sequences and invalid bytes (refused, naming the first bad byte), and
+    else Latin-1, which decodes any byte.
+    """
+    for boms, codec in ((UTF32_BOMS, "utf-32"), (UTF16_BOMS, "utf-16")):
+        if raw.startswith(boms):
+            try:
+                raw = raw.decode(codec).encode("utf-8")
+            except UnicodeDecodeError as exc:
+                log.add(label, "-", "-", f"starts with a {codec.upper()} byte-order mark but is not valid "
+                        f"{codec.upper()} text (at byte {exc.start})", "save the file again as UTF-8")
+                return None
+            return (raw, "utf-8") if _no_nul_bytes(raw, label, log) else None
+    if not _no_nul_bytes(raw, label, log):
+        return None
     try:
-        raw.decode("utf-8-sig")
-        return "utf-8-sig"
-    except UnicodeDecodeError:
-        return "latin-1"
+        raw.decode("utf-8")
+        return raw, "utf-8-sig"
+    except UnicodeDecodeError as exc:
+        if _UTF8_MULTIBYTE.search(raw) is None:
+            return raw, "latin-1"
+        log.add(label, f"row {_row_of(raw, exc.start)}", "-",
+                f"is UTF-8 text with a damaged byte: byte 0x{raw[exc.start]:02X} is not valid UTF-8",
+                "save the file again as UTF-8 (correct or retype the character on that row)")
+        return None
 
 
-def read_table(path: Path, label: str, log: ProblemLog) -> pd.DataFrame | None:
+def _no_nul_bytes(raw: bytes, label: str, log: ProblemLog) -> bool:
+    """Refuse a file holding a NUL byte anywhere: text never does, and pandas would otherwise parse
+    a long binary tail whole. The row of the first NUL is named."""
+    first = raw.find(b"\x00")
+    if first < 0:
+        return True
+    where = f"row {_row_of(raw, first)}"
+    if first < BINARY_HEAD_BYTES:
+        log.add(label, where, "-", "is not a text file (it holds binary data; the first NUL byte is on this row)",
+                "export the data as CSV, Parquet or SAS transport (.xpt)")
+    else:
+        log.add(label, where, "-", "is not a text file from this row on (NUL bytes, i.e. binary data, "
+                "follow the text)", "export the file again, or cut it after the last data row")
+    return False
+
+
+def _without_sep_line(raw: bytes, label: str, log: ProblemLog) -> bytes | None:
+    """A spreadsheet's ``sep=,`` first line removed (and recorded, so that row numbers still match
+    the file's lines); ``sep=`` with another delimiter refused."""
+    end = raw.find(b"\n")
+    first = raw if end < 0 else raw[:end]
+    m = _SEP_LINE.match(first)
+    if m is None:
+        return raw
+    sep = m.group(1).decode("latin-1")
+    if sep != ",":
+        name = dict(DELIMITERS).get(sep, f"'{sep}'")
+        log.add(label, "row 1", "-", f"the first line 'sep={sep}' says columns are separated by {name}, "
+                "not commas", "save it as comma-separated CSV (a spreadsheet's CSV UTF-8 format)")
+        return None
+    log.skip_lines(label, 1)
+    return b"" if end < 0 else raw[end + 1:]
+
+
+def _csv_rows_within(raw: bytes, label: str, max_rows: int, log: ProblemLog) -> bool:
+    """Refuse a CSV with more lines than the row limit allows, counted before it is parsed (each
+    data row takes at least one line; the header takes one)."""
+    lines = raw.count(b"\n") + (0 if raw.endswith(b"\n") else 1)
+    if lines - 1 <= max_rows:
+        return True
+    _too_many_rows(label, f"{lines - 1:,} lines after the header", max_rows, log)
+    return False
+
+
+def _too_many_rows(label: str, found: str, max_rows: int, log: ProblemLog) -> None:
+    log.add(label, "-", "-", f"has {found}, more than the limit of {max_rows:,} rows",
+            f"split the data or drop unused parameters, or raise the limit with max_rows = "
+            f"{max_rows * 2} (say) under [files] in study.toml")
+
+
+def read_table(path: Path, label: str, log: ProblemLog, max_rows: int = DEFAULT_MAX_ROWS) -> pd.DataFrame | None:
     """Read a CSV, Parquet or SAS transport file into a DataFrame of the file's own columns.
 
     Every failure becomes a problem in ``log`` naming the file (and the row where the parser says),
-    never an exception.
+    never an exception. A file with more than ``max_rows`` data rows is refused before it is parsed.
     """
     try:
         size = path.stat().st_size
@@ -146,11 +239,11 @@ def read_table(path: Path, label: str, log: ProblemLog) -> pd.DataFrame | None:
             return None
         suffix = path.suffix.lower()
         if suffix == ".parquet":
-            df = pd.read_parquet(path)
+            df = _read_parquet(path, label, max_rows, log)
         elif suffix == ".xpt":
-            df = pd.read_sas(path, format="xport", encoding="latin-1")
+            df = _read_xpt(path.read_bytes(), label, max_rows, log)
         elif suffix in (".csv", ".txt"):
-            df = _read_csv(path.read_bytes(), label, log)
+            df = _read_csv(path.read_bytes(), label, log, max_rows)
         else:
             log.add(label, "-", "-", f"has an unsupported type '{suffix}'",
                     "use .csv, .parquet or .xpt")
@@ -166,6 +259,174 @@ def read_table(path: Path, label: str, log: ProblemLog) -> pd.DataFrame | None:
     return None if df is None else _checked_columns(df, label, log)
 
 
+def _read_parquet(path: Path, label: str, max_rows: int, log: ProblemLog) -> pd.DataFrame | None:
+    """A Parquet file, refused unread when its footer declares more than ``max_rows`` rows (a few
+    megabytes of repeated values can expand to tens of millions of rows)."""
+    import pyarrow.parquet as pq
+
+    rows = pq.ParquetFile(path).metadata.num_rows
+    if rows > max_rows:
+        _too_many_rows(label, f"{rows:,} rows", max_rows, log)
+        return None
+    return pd.read_parquet(path)
+
+
+# --------------------------------------------------------------------------- SAS transport
+
+
+@dataclass(frozen=True)
+class XptVariable:
+    """One variable of a transport file's member, from its NAMESTR record."""
+
+    name: str
+    numeric: bool
+    length: int
+    position: int
+    """Offset of the variable within an observation."""
+
+
+@dataclass(frozen=True)
+class XptLayout:
+    """Where the first member's observations lie in a SAS transport (version 5) file."""
+
+    variables: tuple[XptVariable, ...]
+    record_length: int
+    """Bytes per observation: the sum of the variables' lengths."""
+    data_start: int
+    data_end: int
+    """End of the observations: the next member's header, or the end of the file."""
+
+    @property
+    def observations(self) -> int:
+        """Complete observations in the data area (trailing blank padding may add a few blank ones
+        when observations are shorter than a record; never fewer than the file holds)."""
+        return (self.data_end - self.data_start) // self.record_length
+
+
+class XptStructureError(ValueError):
+    """The file does not have the record structure of a SAS transport file."""
+
+
+def _xpt_layout(raw: bytes) -> XptLayout:
+    """The first member's variables and observation area, read from the header records.
+
+    Layout (SAS transport format, version 5): 80-byte records; a library header, a member header whose
+    last digits give the NAMESTR length (140, or 136 from VAX/VMS), a NAMESTR header with the number of
+    variables in columns 55-58, one NAMESTR per variable (big-endian: type at 0, length at 4, name at 8,
+    position at 84) padded to whole records, then an OBS header and the observations.
+    """
+    if raw.startswith(XPT_LIBRARY_V8):
+        raise XptStructureError("it is a version 8 transport file; only version 5 is read")
+    if not raw.startswith(XPT_LIBRARY):
+        raise XptStructureError("it does not start with a SAS transport library header")
+    member = 3 * XPT_RECORD
+    if raw[member:member + len(XPT_MEMBER)] != XPT_MEMBER:
+        raise XptStructureError("the member header is not where the format puts it")
+    namestr_len = int(raw[member + 74:member + 78])
+    names_head = member + 4 * XPT_RECORD
+    if raw[names_head:names_head + len(XPT_NAMESTR)] != XPT_NAMESTR:
+        raise XptStructureError("the variable list header is not where the format puts it")
+    count = int(raw[names_head + 54:names_head + 58])
+    start = names_head + XPT_RECORD
+    variables = tuple(_xpt_variable(raw[start + i * namestr_len:start + (i + 1) * namestr_len])
+                      for i in range(count))
+    obs_head = start + -(-count * namestr_len // XPT_RECORD) * XPT_RECORD
+    if raw[obs_head:obs_head + len(XPT_OBS)] != XPT_OBS:
+        raise XptStructureError("the observation header does not follow the variable list")
+    data_start = obs_head + XPT_RECORD
+    record_length = sum(v.length for v in variables)
+    if count == 0 or record_length == 0:
+        raise XptStructureError("it declares no variables")
+    return XptLayout(variables, record_length, data_start, _xpt_data_end(raw, data_start))
+
+
+def _xpt_variable(namestr: bytes) -> XptVariable:
+    """One NAMESTR record: type 1 is numeric, 2 character."""
+    if len(namestr) < 88:
+        raise XptStructureError("a variable description is cut short")
+    kind, length = int.from_bytes(namestr[0:2], "big"), int.from_bytes(namestr[4:6], "big")
+    if kind not in (1, 2) or length == 0 or (kind == 1 and not 2 <= length <= 8):
+        raise XptStructureError("a variable description is not valid")
+    return XptVariable(namestr[8:16].decode("latin-1").strip(), kind == 1, length,
+                       int.from_bytes(namestr[84:88], "big"))
+
+
+def _xpt_data_end(raw: bytes, data_start: int) -> int:
+    """Where the first member's observations end: a following member header on a record boundary,
+    or the end of the file."""
+    at = raw.find(XPT_MEMBER, data_start)
+    while at >= 0 and (at - data_start) % XPT_RECORD:
+        at = raw.find(XPT_MEMBER, at + 1)
+    return len(raw) if at < 0 else at
+
+
+def _xpt_cut_at(raw: bytes, layout: XptLayout) -> int | None:
+    """The byte at which a transport file appears cut short, or None when it is whole.
+
+    A whole file is a sequence of 80-byte records, and its observation area holds whole observations
+    followed by fewer than 80 bytes of blank padding. (A file cut exactly after an observation that
+    ends on a record boundary cannot be told from a whole one: version 5 records no count.)
+    """
+    if len(raw) % XPT_RECORD:
+        return len(raw)
+    used = layout.data_start + layout.observations * layout.record_length
+    tail = raw[used:layout.data_end]
+    if len(tail) >= XPT_RECORD or tail.strip(b" "):
+        return layout.data_end
+    return None
+
+
+def _read_xpt(raw: bytes, label: str, max_rows: int, log: ProblemLog) -> pd.DataFrame | None:
+    """A SAS transport file: its structure checked (truncation, row limit) before pandas decodes it,
+    then its IBM zeros set to exactly zero."""
+    try:
+        layout = _xpt_layout(raw)
+    except (XptStructureError, ValueError, IndexError) as exc:
+        reason = str(exc) if isinstance(exc, XptStructureError) else "its header records are not valid"
+        if len(raw) < 10 * XPT_RECORD and raw.startswith(XPT_LIBRARY):
+            reason = f"it ends at byte {len(raw)}, inside the header records"
+        log.add(label, "-", "-", f"cannot be parsed as a SAS transport file ({reason})",
+                "export the file again as SAS transport version 5 (.xpt)")
+        return None
+    cut = _xpt_cut_at(raw, layout)
+    if cut is not None:
+        log.add(label, "-", "-", "is incomplete: its last observation is cut short",
+                f"export the file again; it appears cut short at byte {cut}")
+        return None
+    if layout.observations > max_rows:
+        _too_many_rows(label, f"{layout.observations:,} observations", max_rows, log)
+        return None
+    df = pd.read_sas(io.BytesIO(raw), format="xport", encoding="latin-1")
+    return _with_exact_zeros(df, raw, layout)
+
+
+def _with_exact_zeros(df: pd.DataFrame, raw: bytes, layout: XptLayout) -> pd.DataFrame:
+    """Numeric cells stored as an IBM zero (every byte after the first zero, the first 0x00 or its
+    sign bit 0x80) set to 0.0.
+
+    pandas' decoder turns that pattern into 5.397605e-79, which makes a valid ordinal 0 unknown and a
+    percent change from 0 enormous. Missing values (first byte ``.``, ``_`` or a letter) stay missing.
+    """
+    n = min(len(df), layout.observations)
+    if n == 0:
+        return df
+    obs = np.frombuffer(raw, dtype=np.uint8, count=n * layout.record_length,
+                        offset=layout.data_start).reshape(n, layout.record_length)
+    for j, var in enumerate(layout.variables):
+        if not var.numeric or j >= df.shape[1]:
+            continue
+        cells = obs[:, var.position:var.position + var.length]
+        zero = (cells[:, 1:] == 0).all(axis=1) & ((cells[:, 0] == 0x00) | (cells[:, 0] == 0x80))
+        if zero.any():
+            column = df.iloc[:, j].to_numpy(dtype=float, copy=True)
+            column[:n][zero] = 0.0
+            df.isetitem(j, column)
+    return df
+
+
+# --------------------------------------------------------------------------- CSV
+
+
 def _checked_columns(df: pd.DataFrame, label: str, log: ProblemLog) -> pd.DataFrame | None:
     """Column names stripped of spaces; refuse a file with no data rows or a repeated column name."""
     df.columns = [str(c).strip() for c in df.columns]
@@ -179,13 +440,16 @@ def _checked_columns(df: pd.DataFrame, label: str, log: ProblemLog) -> pd.DataFr
     return df
 
 
-def _read_csv(raw: bytes, label: str, log: ProblemLog) -> pd.DataFrame | None:
-    """A CSV file as text cells; the header is examined first so that a wrong delimiter, a binary
-    file or a repeated column name is named as such rather than as a parser failure."""
-    encoding = _encoding_of(raw)
-    if encoding != "utf-16" and b"\x00" in raw[:65536]:
-        log.add(label, "-", "-", "is not a text file (it holds binary data)",
-                "export the data as CSV, Parquet or SAS transport (.xpt)")
+def _read_csv(raw: bytes, label: str, log: ProblemLog, max_rows: int = DEFAULT_MAX_ROWS) -> pd.DataFrame | None:
+    """A CSV file as text cells. The whole file is screened before it is parsed (encoding, NUL bytes,
+    a ``sep=`` line, the row limit), and the header is examined first, so that a wrong delimiter, a
+    binary file or a repeated column name is named as such rather than as a parser failure."""
+    decoded = _text_bytes(raw, label, log)
+    if decoded is None:
+        return None
+    raw, encoding = decoded
+    raw = _without_sep_line(raw, label, log)
+    if raw is None or not _csv_rows_within(raw, label, max_rows, log):
         return None
     header = _header_cells(raw[:1 << 20].decode(encoding, errors="replace"))
     if header is None:
@@ -355,10 +619,10 @@ def load_study(folder: str | Path) -> Study:
     log.raise_if_errors()
 
     visits_label = meta.files.visits
-    raw_visits = read_table(visits_path, visits_label, log)
+    raw_visits = read_table(visits_path, visits_label, log, meta.files.max_rows)
     raw_part = None
     if part_path is not None:
-        raw_part = read_table(part_path, meta.files.participants, log)
+        raw_part = read_table(part_path, meta.files.participants, log, meta.files.max_rows)
     log.raise_if_errors()
 
     files.append(InputFile("visits", meta.files.visits, _sha256(visits_path), int(len(raw_visits))))
@@ -407,6 +671,11 @@ def _normalise_long(df: pd.DataFrame, meta: StudyMetadata, label: str, log: Prob
         "visit": _keys(df[visit_col], _visit_number_key if visit_col == cm.visit_number else _visit_key),
         "value": _as_numbers(df[cm.value], label, cm.value, log),
     })
+    if _is_boolean(df[cm.value]):
+        present = set(out["param"].dropna().unique())
+        for spec in meta.outcomes:
+            if spec.param in present:
+                _refuse_boolean_values(spec, label, cm.value, log)
     if cm.visit_number in df.columns and visit_col != cm.visit_number:
         out["visit_number"] = _keys(df[cm.visit_number], _visit_number_key)
     if arm_col is not None:
@@ -434,14 +703,19 @@ def _wide_to_long(df: pd.DataFrame, meta: StudyMetadata, label: str, log: Proble
     arm_col = _arm_column(df, cm.arm)
     _check_ids(df[cm.subject].astype("string").str.strip(), label, cm.subject, log)
     pieces = []
+    ambiguous = _ambiguous_wide_columns(meta, label, log)
     for spec in meta.outcomes:
         for visit in _visits_of(spec):
             col = meta.files.wide_pattern.format(param=spec.param, visit=_visit_key(visit))
+            if col in ambiguous:
+                continue
             if col not in df.columns:
                 log.add(label, "row 1", col, f"no column for parameter '{spec.param}' at visit "
                         f"'{_visit_key(visit)}'", f"add it or change files.wide_pattern "
                         f"({did_you_mean(col, df.columns)})")
                 continue
+            if _is_boolean(df[col]):
+                _refuse_boolean_values(spec, label, col, log)
             piece = pd.DataFrame({
                 "row": np.arange(len(df)),
                 "subject": df[cm.subject].astype("string").str.strip(),
@@ -458,6 +732,47 @@ def _wide_to_long(df: pd.DataFrame, meta: StudyMetadata, label: str, log: Proble
     out["param"] = out["param"].astype("string")
     out["visit"] = out["visit"].astype("string")
     return out
+
+
+def _ambiguous_wide_columns(meta: StudyMetadata, label: str, log: ProblemLog) -> set[str]:
+    """Wide-layout column names that ``files.wide_pattern`` builds for two different outcomes
+    (``HR`` at ``Week_4`` and ``HR_Week`` at ``4`` both give ``HR_Week_4``); each is reported and
+    used for neither, since nothing in the file says whose values it holds."""
+    claims: dict[str, list[tuple[str, str]]] = {}
+    for spec in meta.outcomes:
+        for visit in _visits_of(spec):
+            col = meta.files.wide_pattern.format(param=spec.param, visit=_visit_key(visit))
+            claims.setdefault(col, []).append((spec.param, _visit_key(visit)))
+    ambiguous = set()
+    for col in sorted(claims):
+        owners = claims[col]
+        if len({p for p, _ in owners}) > 1:
+            ambiguous.add(col)
+            both = " and ".join(f"outcome '{p}' at visit '{v}'" for p, v in owners)
+            log.add(label, "row 1", col, f"column name matches more than one outcome: {both}",
+                    "rename the parameter codes or visits so that each column names one outcome and visit, or "
+                    "set files.wide_pattern with a separator none of them contains (e.g. \"{param}__{visit}\")")
+    return ambiguous
+
+
+def _is_boolean(series: pd.Series) -> bool:
+    """True for a column of true/false values (a Parquet boolean, with or without missing cells)."""
+    if pd.api.types.is_bool_dtype(series):
+        return True
+    if series.dtype != object:
+        return False
+    present = series.dropna()
+    return len(present) > 0 and isinstance(present.iloc[0], (bool, np.bool_)) and \
+        present.map(lambda v: isinstance(v, (bool, np.bool_))).all()
+
+
+def _refuse_boolean_values(spec: OutcomeSpec, label: str, column: str, log: ProblemLog) -> None:
+    """A true/false value column is read as 0/1, which is right only for a binary outcome: on any
+    other scale it would be analysed as a continuous 0/1 measurement."""
+    if spec.scale == "binary":
+        return
+    log.add(label, "-", column, f"values of '{spec.param}' are true/false, but its scale is '{spec.scale}'",
+            "store the measured values as numbers, or declare scale = \"binary\" if the outcome is yes/no")
 
 
 def _participants(raw: pd.DataFrame | None, long: pd.DataFrame, meta: StudyMetadata,
