@@ -88,16 +88,32 @@ def test_boxcox_finds_log_scale_for_multiplicative_data():
     assert prof.includes(0.0) and not prof.includes(1.0)
 
 
-def test_boxcox_without_covariates_matches_scipy_profile():
-    # With baseline constant-free model replaced by an intercept-only fit, the profile is scipy's
-    # boxcox log-likelihood; check the location of the maximum against scipy.stats.boxcox_normmax.
+def test_boxcox_profile_matches_statsmodels_likelihoods_of_the_transformed_fits():
+    # Reference: statsmodels OLS log-likelihood of h(follow-up) on h(baseline) and the covariate at
+    # each lambda, plus the Jacobian (lambda - 1) sum log(follow-up) (Box and Cox 1964). The tool's
+    # profile may differ from it by a constant only, and must peak at the same lambda.
+    import statsmodels.api as sm
     from scipy import stats
 
     rng = np.random.default_rng(9)
-    y = np.exp(rng.normal(2, 0.4, 300)) + 1
-    grid = np.round(np.arange(-1, 2.0001, 0.01), 4)
-    ll = [stats.boxcox_llf(l, y) for l in grid]
-    assert grid[int(np.argmax(ll))] == pytest.approx(stats.boxcox_normmax(y, method="mle"), abs=0.01)
+    n = 300
+    b = np.exp(rng.normal(2, 0.4, n)) + 1
+    arm = (np.arange(n) % 2).astype(float)
+    f = np.exp(0.2 + 0.9 * np.log(b) - 0.2 * arm + rng.normal(0, 0.3, n))
+    grid = np.round(np.arange(-1, 2.0001, 0.05), 4)
+    prof = boxcox_profile(f, b, {"arm": arm}, grid=grid)
+
+    def h(y, lam):
+        return np.log(y) if lam == 0 else (y ** lam - 1) / lam
+
+    ref = np.array([sm.OLS(h(f, lam), np.column_stack([np.ones(n), h(b, lam), arm])).fit().llf
+                    + (lam - 1) * np.log(f).sum() for lam in grid])
+    diff = np.asarray(prof.loglik) - ref
+    assert np.ptp(diff) < 1e-6
+    assert prof.lam == grid[int(np.argmax(ref))]
+    # The interval is the set within chi2_1(0.95)/2 = 1.9207 of the maximum (scipy.stats.chi2.ppf).
+    inside = grid[ref >= ref.max() - stats.chi2.ppf(0.95, 1) / 2]
+    assert (prof.lower, prof.upper) == (inside.min(), inside.max())
 
 
 def test_anorexia_change_score_is_unsupported():

@@ -162,7 +162,9 @@ def test_count_outcomes_carry_the_rate_caveat():
 def test_blinded_run_never_reads_the_arm_column():
     b, f, arm = _multiplicative(noise=0.4)
     res = run(_data(b, f, arm, drop_arm=True), BLINDED)
-    assert res.verdict.value in ("sound", "caution", "unsupported")
+    # Multiplicative data with a log-scale SD of 0.4: percent change is right-skewed where the log
+    # ratio is not, which the pooled data show without the arms.
+    assert res.verdict.value == "caution" and "skewness" in res.headline, res.headline
     assert blind(res) == res  # nothing by arm to remove
     assert not any(e.by_arm for e in res.estimates)
     names = " ".join(e.name for e in res.estimates)
