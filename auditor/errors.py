@@ -14,7 +14,10 @@ MAX_PART_CHARS = 400
 """A problem or fix longer than this is clipped in its one-line form (a 100,000-character cell
 quoted in a message would bury every other problem)."""
 
-_CONTROL = re.compile("[\x00-\x1f\x7f-\x9f\u2028\u2029]")
+BIDI_CONTROL_CHARS = "\u061c\u200e\u200f\u202a-\u202e\u2066-\u2069"
+"""The bidirectional formatting characters (marks, embeddings, overrides, isolates) as a regex
+character range. Quoted from a label, one of them can reverse the tool's own text that follows."""
+_CONTROL = re.compile(f"[\x00-\x1f\x7f-\x9f\u2028\u2029{BIDI_CONTROL_CHARS}]")
 
 
 @dataclass(frozen=True)
@@ -39,10 +42,12 @@ class InputProblem:
 
 
 def one_line_text(text, limit: int = MAX_PART_CHARS) -> str:
-    """``text`` with line breaks and other control characters shown as escapes, clipped to ``limit``.
+    """``text`` with line breaks, bidirectional controls and other control characters shown as escapes
+    (``\\u202e``), clipped to ``limit``.
 
     Messages quote cells and labels from the user's files; a quoted newline must not split a problem
-    over two lines, and a huge cell must not flood the terminal.
+    over two lines, a quoted right-to-left override must not reverse the rest of the message, and a
+    huge cell must not flood the terminal.
     """
     text = _CONTROL.sub(lambda m: m.group().encode("unicode_escape").decode("ascii"), str(text))
     return text if len(text) <= limit else text[: limit - 1] + "…"

@@ -75,12 +75,8 @@ def _verdict(ok: bool, soft: bool = False) -> Verdict:
 
 def selection_part(data, df, ctx) -> Part:
     q = "Did the baseline value select the participants?"
-    ec = data.spec.entry_criterion
-    if ec is not None:
-        ev = (f"entry criterion {ec.visit} {ec.operator} {ec.value:g}: regression to the mean is expected "
-              f"(sized in the regression-to-the-mean check)")
-        return Part(SubFinding("selection", q, Verdict.CAUTION, ev), [],
-                    "participants were selected on this measurement, so regression to the mean is expected")
+    if data.spec.entry_criterion is not None:
+        return declared_selection_part(data, ctx)
     b = df["baseline"].to_numpy()
     if len(np.unique(b)) < EDGE_MIN_DISTINCT:
         return Part(SubFinding("selection", q, Verdict.SOUND,
@@ -98,6 +94,36 @@ def selection_part(data, df, ctx) -> Part:
                                f"possible selection"), est, f"a sharp {test.edge_side} edge in baseline")
     return Part(SubFinding("selection", q, Verdict.SOUND,
                            f"no entry criterion declared; no sharp edge in baseline ({fmt_p(test.p_value)})"), est)
+
+
+def declared_selection_part(data, ctx) -> Part:
+    """The selection sub-finding for a declared entry criterion: caution (regression to the mean is
+    expected) unless the criterion, as declared, selects no one out, judged as in the
+    regression-to-the-mean check by the share of the fitted population beyond the cutoff."""
+    from .regression_to_mean import NEGLIGIBLE_EXCLUDED, declared_criterion_reach, share_text
+    from .registry import NotAssessable
+
+    q = "Did the baseline value select the participants?"
+    ec = data.spec.entry_criterion
+    lead = f"entry criterion {ec.visit} {ec.operator} {ec.value:g}"
+    try:
+        share_out = declared_criterion_reach(data, ctx)
+    except NotAssessable as exc:
+        return Part(SubFinding("selection", q, Verdict.CAUTION,
+                               f"{lead}: regression to the mean is expected (its reach could not be estimated: "
+                               f"{exc})"), [],
+                    "participants were selected on this measurement, so regression to the mean is expected")
+    est = [estimate("Share of the fitted population the entry criterion leaves out", 100 * share_out, unit="%",
+                    note="truncated-normal fit of the entry reading, as in the regression-to-the-mean check")]
+    reach = f"the population fitted to the entry readings puts {share_text(share_out)} beyond the cutoff"
+    if share_out < NEGLIGIBLE_EXCLUDED:
+        return Part(SubFinding("selection", q, Verdict.SOUND,
+                               f"{lead}, but {reach} (below {NEGLIGIBLE_EXCLUDED:.0%}, a convention of this "
+                               f"tool): as declared, the criterion selects no one out"), est)
+    return Part(SubFinding("selection", q, Verdict.CAUTION,
+                           f"{lead}: {reach}, so regression to the mean is expected (sized in the "
+                           f"regression-to-the-mean check)"), est,
+                "participants were selected on this measurement, so regression to the mean is expected")
 
 
 def linearity_part(df, arm_cols, plan) -> tuple[Part, object]:
@@ -145,8 +171,9 @@ def bounds_part(df, spec) -> Part:
                 worst, where = share, f"{side} at {fmt(s.lower if side == 'floor' else s.upper)} ({name})"
     src = "declared" if spec.lower_bound is not None or spec.upper_bound is not None else "observed"
     ok = worst <= BOUND_SHARE
-    ev = (f"largest share at a bound ({src} bounds): {100 * worst:.0f}%, {where}; threshold "
-          f"{100 * BOUND_SHARE:.0f}%")
+    at = f"{100 * worst:.0f}%, {where}" if worst > 0 else "0%, no value equals either bound"
+    ev = (f"largest share at a bound ({src} bounds; a value is at a bound when it equals it): {at}; "
+          f"threshold {100 * BOUND_SHARE:.0f}%")
     est = [estimate(f"Share at the {side} bound, {name.replace('followup', 'follow-up')}", share,
                     note=f"bound {fmt(bound)}") for name, side, bound, share in rows]
     return Part(SubFinding("bounds", q, _verdict(ok, soft=True), ev), est,

@@ -208,7 +208,14 @@ def run(data, ctx: CheckContext):
                                f"ratio over rate ratio {', '.join(fmt(c['count'][0] / c['rate'][0]) for c in comparisons)}"
                                f" (material at {MATERIAL_RATIO:g} or its inverse)", by_arm=True))
 
-    verdict, headline = _verdict(spread, spread_text, arm_differs, material, comparisons, scale_ok)
+    if ctx.blinded and not spread.equal:
+        subs.append(SubFinding("time-by-arm", "Does observation time differ between arms enough to move the "
+                                              "treatment comparison?", Verdict.NOT_ASSESSABLE,
+                               "withheld: a blinded audit does not read the arms, so whether the unequal times "
+                               "differ between arms, and what ignoring them does to the treatment comparison, "
+                               "cannot be judged without unblinding"))
+    verdict, headline = _verdict(spread, spread_text, arm_differs, material, comparisons, scale_ok,
+                                 _arm_view(ctx, data, arms))
     figure = _figure(df, arms, spec, ctx, _expected_rates(rate, arms, cols))
     return result(check, data, verdict, headline, subfindings=subs, estimates=estimates, tables=tables,
                   figures=[figure], caveats=caveats,
@@ -222,7 +229,18 @@ def run(data, ctx: CheckContext):
                          f"{MATERIAL_RATIO:g} or more (a convention).")
 
 
-def _verdict(spread, spread_text, arm_differs, material, comparisons, scale_ok) -> tuple[Verdict, str]:
+def _arm_view(ctx, data, arms) -> str:
+    """What this audit can say about the arms: ``blinded`` (withheld), ``single`` (no comparison
+    between arms exists) or ``compared``."""
+    if ctx.blinded:
+        return "blinded"
+    return "compared" if len(arms) > 1 else "single"
+
+
+def _verdict(spread, spread_text, arm_differs, material, comparisons, scale_ok,
+             arm_view: str = "compared") -> tuple[Verdict, str]:
+    """Verdict and headline. Only an audit that compared the arms may say the unequal times leave the
+    treatment comparison unchanged; a blinded one says that consequence is withheld."""
     if spread.equal:
         return Verdict.SOUND, (f"Observation time is nearly equal ({spread_text}): comparing the counts "
                                "compares rates.")
@@ -238,6 +256,15 @@ def _verdict(spread, spread_text, arm_differs, material, comparisons, scale_ok) 
         return Verdict.CAUTION, (f"Observation time varies ({spread_text}); the count ratio "
                                  f"{fmt(c['count'][0])} and the rate ratio {fmt(c['rate'][0])} differ, though not "
                                  f"both materially and beyond chance: analyse rates (log time as offset){tail}.")
+    if arm_view == "blinded":
+        return Verdict.CAUTION, (f"Observation time varies ({spread_text}); whether it differs between arms, "
+                                 f"and so what ignoring it does to the treatment comparison, is withheld in this "
+                                 f"blinded audit and cannot be judged without unblinding: analyse rates (log "
+                                 f"time as offset){tail}.")
+    if arm_view == "single":
+        return Verdict.CAUTION, (f"Observation time varies ({spread_text}); with a single arm there is no "
+                                 f"comparison between arms, but each count mixes the rate with the time "
+                                 f"observed: analyse rates (log time as offset){tail}.")
     return Verdict.CAUTION, (f"Observation time varies ({spread_text}) without changing the treatment "
                              f"comparison here; a rate model (log time as offset) is still the analysis that "
                              f"matches how the counts were made{tail}.")

@@ -699,7 +699,8 @@ def run(data, ctx: CheckContext):
         out.caveats.append("No treatment effects are estimated: the audit is blinded or has fewer than two arms, "
                            "so only pooled diagnostics are shown.")
     verdict = _worst(*verdicts)
-    return result(check, data, verdict, _headline(spec, verdict, out.clauses), subfindings=out.subfindings,
+    withheld = ctx.blinded and data.design == "parallel" and spec.planned_analysis != "responder"
+    return result(check, data, verdict, _headline(spec, verdict, out.clauses, withheld), subfindings=out.subfindings,
                   estimates=out.estimates, tables=out.tables, figures=out.figures, caveats=out.caveats,
                   references=cite(out.references),
                   method="Percent change 100(f - b)/b and log ratio log(f/b) per participant; near zero: baseline "
@@ -718,8 +719,21 @@ _LEAD = {
 }
 
 
-def _headline(spec, verdict: Verdict, clauses: dict[str, str]) -> str:
-    """One sentence: the leading judgement and up to three quantitative clauses."""
+BLINDED_SOUND_LEAD = "Percent change shows no problem in the pooled data"
+"""The sound lead of a blinded audit, which cannot call percent change harmless: its cost to the
+treatment comparison against ANCOVA needs the arms."""
+WITHHELD_CLAUSE = "its cost to the treatment comparison is withheld in this blinded audit (it needs the arms)"
+
+
+def _headline(spec, verdict: Verdict, clauses: dict[str, str], withheld: bool = False) -> str:
+    """One sentence: the leading judgement and up to three quantitative clauses. In a blinded audit
+    (``withheld``) the sentence says that the cost to the treatment comparison is not judged."""
+    text = _headline_text(spec, verdict, clauses, withheld)
+    return text[:-1] + f"; {WITHHELD_CLAUSE}." if withheld else text
+
+
+def _headline_text(spec, verdict: Verdict, clauses: dict[str, str], withheld: bool) -> str:
+    """The headline before any blinded-audit clause."""
     if spec.planned_analysis == "responder":
         order = ["dichotomy", "responder-baseline", "defined", "coding", "asymmetry"]
         lead = {Verdict.UNSUPPORTED: "The responder definition discards information",
@@ -727,7 +741,7 @@ def _headline(spec, verdict: Verdict, clauses: dict[str, str]) -> str:
                 Verdict.SOUND: "The responder definition is harmless here"}[verdict]
     else:
         order = ["defined", "coding", "cost", "asymmetry", "baseline"]
-        lead = _LEAD[verdict]
+        lead = BLINDED_SOUND_LEAD if withheld and verdict is Verdict.SOUND else _LEAD[verdict]
         if verdict is not Verdict.SOUND and "defined" in clauses:
             lead = "Percent change is unstable here" if "undefined" not in clauses["defined"] else \
                 "Percent change is undefined here"

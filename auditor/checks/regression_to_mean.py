@@ -48,6 +48,9 @@ MATERIAL_SHARE = 0.10
 """Expected RTM of at least this share of the observed change is material (convention of this tool)."""
 MATERIAL_SD = 0.10
 """Expected RTM of at least this many population SDs is material (convention of this tool)."""
+NEGLIGIBLE_EXCLUDED = 0.01
+"""A declared criterion whose cutoff leaves less than this share of the fitted unselected population
+on its excluded side selects no one out (convention of this tool)."""
 VIOLATION_SHARE = 0.05
 """More than this share of entry readings on the wrong side of the criterion is reported as the
 criterion not being honoured (convention of this tool)."""
@@ -259,6 +262,13 @@ def edge_finding(values, column, spec, side, level, ctx) -> EdgeFinding | None:
     return EdgeFinding(column, _visit_of(spec, column), scale.name, test, level, edge)
 
 
+def declared_selection(spec) -> Selection:
+    """The declared entry criterion as a selection: its reading, cutoff and kept side."""
+    ec = spec.entry_criterion
+    column = criterion_column(spec)
+    return Selection(column, _visit_of(spec, column), float(ec.value), ec.direction, "criterion", ec.operator)
+
+
 def _declared_selection(spec, rd: Readings, ctx) -> tuple[Selection, list[EdgeFinding]]:
     """The declared criterion, with an edge test of the kept readings as corroboration."""
     ec = spec.entry_criterion
@@ -270,8 +280,7 @@ def _declared_selection(spec, rd: Readings, ctx) -> tuple[Selection, list[EdgeFi
     kept = values[values >= ec.value] if ec.direction == "above" else values[values <= ec.value]
     side = "lower" if ec.direction == "above" else "upper"
     found = edge_finding(kept, column, spec, side, ALPHA, ctx)
-    sel = Selection(column, _visit_of(spec, column), float(ec.value), ec.direction, "criterion", ec.operator)
-    return sel, [found] if found else []
+    return declared_selection(spec), [found] if found else []
 
 
 def find_selection(spec, rd: Readings, ctx) -> tuple[Selection | None, list[EdgeFinding]]:
@@ -350,6 +359,36 @@ def choose_scale(spec, rd: Readings, sel: Selection) -> Scale:
     why = (f"log-likelihood {fmt(raw.loglik, 1)} raw against {fmt(l_log, 1)} on the log scale"
            if logged.converged else "the truncated normal fits only on the raw scale")
     return Scale(False, why, raw)
+
+
+def excluded_share(scale: Scale, sel: Selection) -> float:
+    """Share of the fitted unselected population on the excluded side of the cutoff: how many the
+    criterion leaves out of the population the selected readings imply."""
+    fit, cut = scale.fit, float(scale.to(sel.cutoff))
+    side = stats.norm.cdf if sel.direction == "above" else stats.norm.sf
+    return float(side(cut, fit.mu, fit.sigma))
+
+
+def selects_no_one(sel: Selection, share_out: float) -> bool:
+    """A declared criterion that, as declared, excludes no one: its cutoff lies where the fitted
+    population has less than NEGLIGIBLE_EXCLUDED of its mass (beyond the range of the readings, say).
+    A selection found in the data always excludes someone, since its cutoff is the data's own edge."""
+    return sel.source == "criterion" and share_out < NEGLIGIBLE_EXCLUDED
+
+
+def declared_criterion_reach(data, ctx) -> float:
+    """The fitted share of the unselected population that the declared entry criterion leaves out,
+    on the scale this check uses (for the change-score check's selection sub-finding). Raises
+    NotAssessable when the share cannot be estimated."""
+    spec = data.spec
+    sel = declared_selection(spec)
+    if sel.column not in data.frame.columns:
+        raise NotAssessable(f"the {sel.visit} reading the entry criterion was applied to is missing")
+    rd, _ = selected(Readings.of(data, ctx), sel)
+    scale = choose_scale(spec, rd, sel)
+    if not scale.fit.converged:
+        raise NotAssessable(f"the truncated-normal fit of {sel.visit} did not converge")
+    return excluded_share(scale, sel)
 
 
 # ----------------------------------------------------------------------------- reliability
@@ -596,7 +635,9 @@ def _unit_label(spec, visit) -> str:
 # ----------------------------------------------------------------------------- sections
 
 
-def selection_section(sel, finds, n_kept, n_excluded, out: Out) -> None:
+def selection_section(sel, finds, n_kept, n_excluded, out: Out, share_out: float | None = None) -> None:
+    """The selection sub-finding (and the criterion-honoured one); ``share_out`` is the fitted
+    population share on the excluded side of the cutoff, when known."""
     q = "Were participants selected on this outcome?"
     tests = "; ".join(f"{f.visit}{f.scale_note}: edge LR {fmt(f.test.statistic)}, "
                       f"{fmt_p(f.test.p_value)}, {f.test.edge_side} edge at {fmt(f.edge)}" for f in finds)
@@ -609,11 +650,19 @@ def selection_section(sel, finds, n_kept, n_excluded, out: Out) -> None:
         out.sub("selection", q, Verdict.SOUND,
                 f"no entry criterion declared; no truncation edge ({tests or 'too few distinct values to test'})")
         return
+    verdict = Verdict.CAUTION
     if sel.source == "criterion":
         ev = f"entry criterion {sel.visit} {sel.operator} {sel.cutoff:g}" + (f"; in the data: {tests}" if tests else "")
+        if share_out is not None:
+            ev += (f"; the population fitted to the entry readings puts {share_text(share_out)} on the "
+                   f"excluded side of the cutoff")
+        if share_out is not None and selects_no_one(sel, share_out):
+            verdict = Verdict.SOUND
+            ev += (f" (below {NEGLIGIBLE_EXCLUDED:.0%}, a convention of this tool): as declared, the criterion "
+                   f"selects no one out")
     else:
         ev = f"no entry criterion declared, but {tests}"
-    out.sub("selection", q, Verdict.CAUTION, ev)
+    out.sub("selection", q, verdict, ev)
     out.estimates.append(estimate(f"Participants with the entry reading ({sel.visit}) meeting the cutoff",
                                   float(n_kept)))
     if n_excluded:
@@ -641,10 +690,8 @@ def population_section(spec, scale, sel, out: Out) -> None:
             estimate("Mean of the unselected population (truncated-normal MLE)", fit.mu, lo, hi, unit=spec.unit,
                      note="Wald interval"),
             estimate("SD of the unselected population", fit.sigma, s_lo, s_hi, unit=spec.unit)]
-    cut = float(scale.to(sel.cutoff))
-    kept = stats.norm.sf(cut, fit.mu, fit.sigma) if sel.direction == "above" else stats.norm.cdf(cut, fit.mu, fit.sigma)
     out.estimates.append(estimate("Share of the unselected population meeting the cutoff (fitted)",
-                                  100 * float(kept), unit="%"))
+                                  100 * (1 - excluded_share(scale, sel)), unit="%"))
     out.sub("scale", "On which scale is the reading close to normal?", Verdict.SOUND,
             f"{'log' if scale.log else 'raw'} scale: {scale.reason}")
 
@@ -840,9 +887,14 @@ def is_material(target: Interval, observed: float, sigma: float) -> bool:
     return bool(excludes and (size >= MATERIAL_SHARE * abs(observed) or size >= MATERIAL_SD * sigma))
 
 
-def decide(spec, design, material: bool) -> Verdict:
+def decide(spec, design, material: bool, no_one_out: bool = False) -> Verdict:
+    """Unsupported when a material expected change meets a plan that carries it; sound when the
+    declared criterion selects no one out and the computed expected change is not material; else
+    caution (a real selection)."""
     if material and (spec.planned_analysis in CHANGE_PLANS or design == "single-arm"):
         return Verdict.UNSUPPORTED
+    if no_one_out and not material:
+        return Verdict.SOUND
     return Verdict.CAUTION
 
 
@@ -881,6 +933,21 @@ def recommendation(spec, design, second_share: float | None) -> str:
         return f"{second}, or compare arms by ANCOVA" if second else "compare arms by ANCOVA"
     return ("the planned comparison between arms does not subtract baseline and is not biased by it, but "
             "within-arm changes are" + (f"; {second}" if second else ""))
+
+
+def no_one_out_headline(spec, sel, finds, scale, rtm, target, share_out: float) -> str:
+    """Headline for a declared criterion that excludes no one: says so, with the computed size."""
+    lead = _criterion_text(spec, sel, finds)
+    size = amount(target.estimate, target.lower, target.upper, scale, spec.unit)
+    return (f"{lead}, but as declared the criterion selects no one out: the population fitted to the "
+            f"entry readings puts {share_text(share_out)} on the excluded side of the cutoff, and regression to "
+            f"the mean alone is expected to move the change from baseline by {size}.")
+
+
+def share_text(share: float) -> str:
+    """A small share as a percentage that does not round a positive share to a flat 0%."""
+    pct = 100 * share
+    return f"{pct:.1f}%" if pct >= 0.05 or pct == 0 else "less than 0.1%"
 
 
 def headline(spec, design, sel, finds, scale, rtm, target, obs, second, ctx) -> str:
@@ -948,11 +1015,13 @@ def run(data, ctx: CheckContext):
         selection_section(None, finds, 0, 0, out)
         return no_selection_result(check, data, finds, out)
     rd, n_excluded = selected(everyone, sel)
-    selection_section(sel, finds, len(rd.present(sel.column)), n_excluded, out)
     scale = choose_scale(spec, rd, sel)
     if not scale.fit.converged:
         raise NotAssessable(f"the truncated-normal fit of {sel.visit} did not converge (the selected values are "
                             f"more skewed than a truncated normal allows)")
+    share_out = excluded_share(scale, sel)
+    no_one_out = selects_no_one(sel, share_out)
+    selection_section(sel, finds, len(rd.present(sel.column)), n_excluded, out, share_out)
     population_section(spec, scale, sel, out)
     rel = choose_reliability(data, ctx, rd, scale, sel)
     reliability_section(spec, rel, out)
@@ -968,13 +1037,15 @@ def run(data, ctx: CheckContext):
     shrinkage_section(spec, rd, scale, rho, sel, rel, out)
     second = second_baseline_share(data, ctx, rd, scale, sel, rel, rho, out)
     material = is_material(target, obs.mean, scale.fit.sigma)
-    verdict = decide(spec, data.design, material)
+    verdict = decide(spec, data.design, material, no_one_out)
     bias_sub(spec, sel, target, scale, material, verdict, target_by_arm, out)
     figures = [f for f in (pairs_figure(spec, rd, scale, sel, rel), truncation_figure(spec, rd, scale, sel)) if f]
     out.figures = figures + out.figures + [
         comparison_figure(spec, scale, figure_rows(sel, rtm, target, obs, pre), by_arm)]
     caveats(ctx, rel, out)
-    return result(check, data, verdict, headline(spec, data.design, sel, finds, scale, rtm, target, obs, second, ctx),
+    text = (no_one_out_headline(spec, sel, finds, scale, rtm, target, share_out) if verdict == Verdict.SOUND
+            else headline(spec, data.design, sel, finds, scale, rtm, target, obs, second, ctx))
+    return result(check, data, verdict, text,
                   subfindings=out.subfindings, estimates=out.estimates, figures=out.figures, caveats=out.caveats,
                   references=cite(["barnett-2005", "shrout-fleiss-1979", "pearson-1903", "cohen-1991",
                                    "kelley-1947"] + (["goodman-1960"] if sel.column != "baseline" else [])),

@@ -8,6 +8,7 @@ hash salt, no timestamps) that is inlined into the HTML and carried into the PDF
 from __future__ import annotations
 
 import io
+import re
 from typing import Callable
 
 import matplotlib
@@ -15,6 +16,7 @@ import matplotlib
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 
+from ..errors import BIDI_CONTROL_CHARS  # noqa: E402
 from ..results import Figure  # noqa: E402
 
 PALETTE = ("#1b4f72", "#b9770e", "#1e8449", "#6c3483", "#922b21", "#5d6d7e")
@@ -32,7 +34,29 @@ STYLE = {
     "legend.fontsize": 7.5,
     "legend.frameon": False,
     "figure.dpi": 100,
+    # Labels come from the user's files: a `$` must print as a dollar sign, never switch on mathtext
+    # or LaTeX. Every Text (titles, axis labels, legends, tick labels) reads these at creation.
+    "text.parse_math": False,
+    "text.usetex": False,
 }
+
+_BIDI = re.compile(f"[{BIDI_CONTROL_CHARS}]")
+
+
+def plain_labels(value):
+    """The figure data with bidirectional controls removed from every string.
+
+    Matplotlib lays text out in the order it is stored and draws a control as a missing glyph, so a
+    right-to-left override in a label would only print as a box; removing it keeps the label as
+    written. Numbers and the structure of the data are returned unchanged.
+    """
+    if isinstance(value, str):
+        return _BIDI.sub("", value)
+    if isinstance(value, dict):
+        return {k: plain_labels(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)) and any(isinstance(v, (str, dict, list, tuple)) for v in value):
+        return type(value)(plain_labels(v) for v in value)
+    return value
 
 
 def drawer(kind: str, size: tuple[float, float] = (5.2, 3.4)):
@@ -67,7 +91,7 @@ def to_svg(fig: Figure) -> str:
     with plt.rc_context(STYLE):
         mfig = plt.figure(figsize=fn.size)
         try:
-            fn(fig.data, mfig)
+            fn(plain_labels(fig.data), mfig)
             buf = io.StringIO()
             mfig.savefig(buf, format="svg", bbox_inches="tight", metadata={"Date": None, "Creator": None})
         finally:

@@ -10,6 +10,7 @@ import jinja2
 import markupsafe
 
 from ..results import Audit
+from .bidi import contained
 from .view import audit_view
 
 
@@ -42,9 +43,17 @@ def soft_breaks(value):
                                                    for i in range(0, len(m.group()), SOFT_BREAK_EVERY)), value)
 
 
+def printed(value):
+    """What every template expression goes through: bidirectional controls contained
+    (:func:`~auditor.render.bidi.contained`), then soft breaks in very long words."""
+    if isinstance(value, str) and not isinstance(value, markupsafe.Markup) and not value.startswith("data:"):
+        value = contained(value)
+    return soft_breaks(value)
+
+
 def environment() -> jinja2.Environment:
     return jinja2.Environment(
-        finalize=soft_breaks,
+        finalize=printed,
         loader=jinja2.FileSystemLoader(str(_template_dir())),
         autoescape=True,
         undefined=jinja2.StrictUndefined,

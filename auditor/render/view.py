@@ -9,6 +9,7 @@ from ..checks.registry import all_checks
 from ..figures import to_svg
 from ..references import REFERENCES
 from ..results import Audit, CheckResult, Verdict
+from .bidi import UserText, audit_user_strings
 
 VERDICT_CLASS = {
     Verdict.SOUND: "v-sound",
@@ -133,7 +134,13 @@ def result_view(r: CheckResult, figure_no: list[int]) -> dict:
 
 
 def audit_view(audit: Audit) -> dict:
-    """Everything the HTML template prints, as display strings."""
+    """Everything the HTML template prints, as display strings, with every user-supplied string in a
+    bidirectional isolate (:mod:`auditor.render.bidi`) wherever it appears."""
+    return UserText(audit_user_strings(audit)).view(_audit_strings(audit))
+
+
+def _audit_strings(audit: Audit) -> dict:
+    """The report's display strings before user text is isolated."""
     checks = [c for c in all_checks() if any(r.check_id == c.id for r in audit.results)]
     by_key = {(r.outcome, r.check_id): r for r in audit.results}
     grid = []

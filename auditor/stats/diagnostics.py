@@ -86,15 +86,49 @@ class BoundShares:
     declared: bool
 
 
+AT_BOUND_RTOL = 1e-9
+"""Relative tolerance (to the bound's own magnitude) for a value to count as equal to a bound: float
+rounding only (a convention of this tool)."""
+
+
+def at_bound_tolerance(values, bound: float) -> float:
+    """How close a value must be to ``bound`` to count as sitting at it.
+
+    Equality up to float rounding (AT_BOUND_RTOL times the bound's magnitude), never more than half
+    the smallest gap between the data's distinct values: a value one recorded step from the bound is
+    off it. The tolerance is tied to the bound and the data's resolution, not to the width of the
+    bound range, so declared bounds far wider than the data (0 to 1e12 on a 1-5 scale) do not put
+    every value "at the floor".
+    """
+    v = np.unique(np.asarray(values, dtype=float))
+    tol = AT_BOUND_RTOL * max(1.0, abs(float(bound)))
+    if len(v) > 1:
+        tol = min(tol, 0.5 * float(np.min(np.diff(v))))
+    return tol
+
+
+def share_at_bound(values, bound: float | None) -> float:
+    """Share of ``values`` equal to ``bound`` (within :func:`at_bound_tolerance`); 0 for an open or
+    infinite bound, which no finite value reaches."""
+    v = np.asarray(values, dtype=float)
+    v = v[np.isfinite(v)]
+    if bound is None or not np.isfinite(bound) or len(v) == 0:
+        return 0.0
+    return float(np.mean(np.abs(v - bound) <= at_bound_tolerance(v, bound)))
+
+
 def bound_shares(values, lower: float | None, upper: float | None) -> BoundShares:
-    """Share of observations at the scale's lower and upper bounds (declared, else observed extremes)."""
+    """Share of observations at the scale's lower and upper bounds (declared, else observed extremes).
+
+    A value is at a bound when it equals it (:func:`share_at_bound`), not when it lies within some
+    share of the bound range.
+    """
     v = np.asarray(values, dtype=float)
     v = v[np.isfinite(v)]
     declared = lower is not None or upper is not None
     lo = float(np.min(v)) if lower is None else float(lower)
     hi = float(np.max(v)) if upper is None else float(upper)
-    tol = 1e-9 * max(1.0, abs(hi - lo))
-    return BoundShares(lo, hi, float(np.mean(v <= lo + tol)), float(np.mean(v >= hi - tol)), declared)
+    return BoundShares(lo, hi, share_at_bound(v, lo), share_at_bound(v, hi), declared)
 
 
 @dataclass(frozen=True)
