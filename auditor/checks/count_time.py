@@ -67,12 +67,11 @@ def _design(df, arms, control, with_baseline: bool) -> dict[str, np.ndarray]:
     return cols
 
 
-def _scaling(df, cols, ctx) -> tuple[float, float, float]:
-    """Coefficient of log time in a log-linear model without offset: 1 when counts grow in
-    proportion to time (the rate model's assumption)."""
-    fit = fit_log_linear(df["followup"], {"log observation time": np.log(df["followup_time"]), **cols},
-                         level=ctx.level)
-    return fit.coefficient("log observation time")
+def _scaling(df, cols, ctx):
+    """The log-linear model without offset and with log time as a covariate: its coefficient of log
+    time is 1 when counts grow in proportion to time (the rate model's assumption)."""
+    return fit_log_linear(df["followup"], {"log observation time": np.log(df["followup_time"]), **cols},
+                          level=ctx.level)
 
 
 def _time_table(df, arms) -> Table:
@@ -91,16 +90,23 @@ def _rate_model(df, cols, ctx):
     return fit_log_linear(df["followup"], cols, offset=np.log(df["followup_time"]), level=ctx.level)
 
 
-def _comparisons(df, arms, control, cols, rate, ctx) -> list[dict]:
+def _comparisons(df, arms, control, cols, rate, ctx) -> tuple[list[dict], tuple[str, ...]]:
     """Each active arm against control: the rate ratio (from ``rate``, the rate model) and the count
-    ratio (the same model without the offset), fitted on the same participants."""
+    ratio (the same model without the offset), fitted on the same participants; and what the count
+    model's fit warned about."""
     counts_cols = dict(cols)
     if "log baseline rate" in counts_cols:  # the analysis that ignores time adjusts for the baseline count
         counts_cols["log baseline rate"] = np.log(df["baseline"].to_numpy() + 0.5)
     count = fit_log_linear(df["followup"], counts_cols, level=ctx.level)
     ref = control if control is not None else arms[0]
     return [{"name": f"{a} vs {ref}", "rate": rate.ratio(f"arm[{a}]"), "count": count.ratio(f"arm[{a}]")}
-            for a in arms if a != ref]
+            for a in arms if a != ref], count.notes
+
+
+def _fit_caveats(notes: list[str]) -> list[str]:
+    """One caveat per kind of warning the log-linear fits gave (the numbers above came from them)."""
+    seen = list(dict.fromkeys(notes))
+    return [f"A log-linear fit behind these numbers warned: {n}; read its intervals with care." for n in seen]
 
 
 def _figure(df, arms, spec, ctx, expected) -> Figure:
@@ -161,10 +167,13 @@ def run(data, ctx: CheckContext):
                        Verdict.SOUND if spread.equal else Verdict.CAUTION,
                        f"{spread_text}; times count as equal below a coefficient of variation of 0.10")]
     tables, caveats = [], []
+    fit_warnings = list(rate.notes)
 
     scale_ok = True
     if not spread.equal:
-        b, lo, hi = _scaling(df, cols, ctx)
+        scaling = _scaling(df, cols, ctx)
+        fit_warnings += scaling.notes
+        b, lo, hi = scaling.coefficient("log observation time")
         scale_ok = lo <= 1.0 <= hi
         estimates.append(estimate("Growth of the count with observation time (log-log slope)", b, lo, hi,
                                   note="1 when the count is proportional to time"))
@@ -181,7 +190,8 @@ def run(data, ctx: CheckContext):
         h, p = times_differ_by_arm(df["followup_time"], df["arm"])
         arm_differs = p < ARM_TIME_ALPHA and not spread.equal
         tables.append(_time_table(df, arms))
-        comparisons = _comparisons(df, arms, data.control_arm, cols, rate, ctx)
+        comparisons, count_notes = _comparisons(df, arms, data.control_arm, cols, rate, ctx)
+        fit_warnings += count_notes
         rows = []
         for c in comparisons:
             (rr, rl, ru, rp), (cr, cl, cu, cp) = c["rate"], c["count"]
@@ -218,7 +228,7 @@ def run(data, ctx: CheckContext):
                                  _arm_view(ctx, data, arms))
     figure = _figure(df, arms, spec, ctx, _expected_rates(rate, arms, cols))
     return result(check, data, verdict, headline, subfindings=subs, estimates=estimates, tables=tables,
-                  figures=[figure], caveats=caveats,
+                  figures=[figure], caveats=caveats + _fit_caveats(fit_warnings),
                   references=cite(["cameron-trivedi-2013", "wedderburn-1974", "kruskal-wallis-1952"]),
                   method="Observation time summarised by its coefficient of variation (equal below 0.10, a "
                          "convention); Kruskal-Wallis test of time across arms; Poisson log-linear models of the "

@@ -158,3 +158,25 @@ def test_observation_time_errors_are_reported(example_copy, edit, message):
     code, text = _validate(example_copy)
     assert code == 2
     assert message in text
+
+
+def test_a_warning_from_the_rate_fit_becomes_a_caveat(monkeypatch):
+    # The fitting library's warnings are not silenced: one raised inside the fit reaches the finding.
+    import warnings
+
+    import statsmodels.api as sm
+    from statsmodels.tools.sm_exceptions import ConvergenceWarning
+
+    real_fit = sm.GLM.fit
+
+    def warning_fit(self, *a, **k):
+        warnings.warn("iteration limit reached", ConvergenceWarning)
+        return real_fit(self, *a, **k)
+
+    monkeypatch.setattr(sm.GLM, "fit", warning_fit)
+    rng = np.random.default_rng(1)
+    fit = fit_log_linear(rng.poisson(3, 50), {"x": rng.normal(size=50)})
+    assert fit.notes == ("the fitting routine reported that it did not fully converge",)
+    res = cases.run_check(cases.simulate(np.random.default_rng(2), days_active=(8, 28)))
+    warned = [c for c in res.caveats if "did not fully converge" in c]
+    assert len(warned) == 1, res.caveats
