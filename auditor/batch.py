@@ -12,12 +12,13 @@ import io
 import os
 import re
 import time
+import warnings
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable
 
-from .errors import StudyInputError
+from .errors import InputProblem, StudyInputError
 from .results import Verdict
 
 
@@ -37,11 +38,25 @@ class StudyOutcome:
 
 
 def read_manifest(path: Path) -> list[Path]:
-    """Study folders listed one per line (blank lines and # comments ignored), relative to the file."""
+    """Study folders listed one per line, relative to the file.
+
+    A blank line, or a line whose first non-blank character is ``#``, is skipped; any other line is
+    a path, whole once stripped of surrounding spaces. There are no comments after a path, so a
+    folder whose name holds ``#`` is audited under its own name, never cut short into another one.
+    A manifest that cannot be read is an input problem (exit 2) naming the file.
+    """
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        reason = "is not UTF-8 text" if isinstance(exc, UnicodeDecodeError) else (
+            f"cannot be read ({exc.strerror or type(exc).__name__})")
+        raise StudyInputError([InputProblem(str(path), "-", "-", reason,
+                                            "give a text file listing one study folder per line")],
+                              "in the batch manifest") from None
     out = []
-    for line in path.read_text(encoding="utf-8").splitlines():
-        line = line.split("#", 1)[0].strip()
-        if line:
+    for line in text.splitlines():
+        line = line.strip()
+        if line and not line.startswith("#"):
             p = Path(line)
             out.append(p if p.is_absolute() else path.parent / p)
     return out
@@ -139,7 +154,8 @@ def run_batch(folders: list[Path], out_dir: Path, options: dict, jobs: int, pape
             if progress:
                 progress(results[i])
     else:
-        with ProcessPoolExecutor(max_workers=jobs) as pool:
+        with ProcessPoolExecutor(max_workers=jobs, initializer=_use_warning_filters,
+                                 initargs=(list(warnings.filters),)) as pool:
             futures = {pool.submit(audit_one, t): i for i, t in enumerate(tasks)}
             from concurrent.futures import as_completed
 
@@ -149,6 +165,13 @@ def run_batch(folders: list[Path], out_dir: Path, options: dict, jobs: int, pape
                 if progress:
                     progress(results[i])
     return [r for r in results if r is not None]
+
+
+def _use_warning_filters(filters: list) -> None:
+    """Worker start-up: apply the caller's warning filters, so that a command that keeps library
+    warnings off the terminal does so in every worker too, whatever the process start method."""
+    warnings.resetwarnings()
+    warnings.filters.extend(filters)
 
 
 SUMMARY_COLUMNS = ["study", "folder_name", "status", "outcome", "check_id", "verdict", "headline", "error"]

@@ -6,8 +6,10 @@ the command line, with every problem listed; 3 a ``--fail-on`` gate that was rea
 
 from __future__ import annotations
 
+import contextlib
 import sys
 import traceback
+import warnings
 from pathlib import Path
 from typing import List, Optional
 
@@ -51,17 +53,42 @@ def main_options(
 
 
 def _report_problems(exc: StudyInputError) -> None:
-    err.print(f"[bold]{len(exc.problems)} problem(s) in the study folder:[/bold]", markup=True)
+    err.print(f"[bold]{len(exc.problems)} problem(s) {exc.heading}:[/bold]", markup=True)
     for p in exc.problems:
         err.print(p.one_line(), markup=False)
 
 
+def _print_study_warnings(study, blinded: Optional[bool] = None) -> None:
+    """Print the study's warnings, one line each; in a blinded run (``blinded``, else study.toml's
+    setting) a warning about an arm could reveal allocations, so those are counted, never shown."""
+    is_blinded = study.metadata.study.blinded if blinded is None else blinded
+    withheld = [w for w in study.warnings if is_blinded and w.by_arm]
+    for w in study.warnings:
+        if w not in withheld:
+            err.print("warning: " + w.one_line(), markup=False)
+    if withheld:
+        err.print(f"warning: {len(withheld)} warning(s) concern arms and are withheld in a blinded run.",
+                  markup=False)
+
+
+@contextlib.contextmanager
+def _python_warnings_hidden():
+    """A context in which numpy, scipy and statsmodels warnings are not printed (their text means
+    nothing to a reader of the audit, whose findings carry the caveats); with --debug they show."""
+    with warnings.catch_warnings():
+        if not _STATE["debug"]:
+            warnings.simplefilter("ignore")
+        yield
+
+
 def _guard(fn):
-    """Run a command body, turning user errors into exit 2 and bugs into exit 1."""
+    """Run a command body, turning user errors into exit 2 and bugs into exit 1, with library
+    warnings kept off the terminal unless --debug."""
     from .writeguard import OutputRefused
 
     try:
-        return fn()
+        with _python_warnings_hidden():
+            return fn()
     except StudyInputError as exc:
         _report_problems(exc)
         raise typer.Exit(EXIT_INPUT)
@@ -86,8 +113,7 @@ def validate(study_dir: Path = typer.Argument(..., help="The study folder (holdi
 
     def body():
         study = load_study(study_dir)
-        for w in study.warnings:
-            err.print("warning: " + w.one_line(), markup=False)
+        _print_study_warnings(study)
         n_out = len(study.metadata.outcomes)
         out.print(f"{study_dir}: valid ({n_out} outcome(s), {study.participants.shape[0]} participants, "
                   f"{len(study.visits)} visit rows).", markup=False)
@@ -145,25 +171,24 @@ def run(
              "leaves out and why. This writes participant identifiers: off by default."),
 ):
     """Audit a study folder: write audit.html, audit.pdf, findings.json and findings.csv."""
+    from .options import (check_id_problems, date_problems, paper_problems, paper_size, refuse_if_any,
+                          registered_check_ids, seed_problems)
     from .pipeline import AuditOptions, audit_study
     from .render.output import check_target, write_audit
     from .study import load_study
 
     def body():
-        if paper.lower() not in ("a4", "letter"):
-            err.print(f"--paper: '{paper}' is not a page size. Fix: use A4 or letter.", markup=False)
-            raise typer.Exit(EXIT_INPUT)
+        refuse_if_any(seed_problems(seed), date_problems(analysis_date, "--analysis-date"),
+                      check_id_problems(check, registered_check_ids()), paper_problems(paper))
         check_target(output, force, protected=[study_dir])
         study = load_study(study_dir)
-        for w in study.warnings:
-            err.print("warning: " + w.one_line(), markup=False)
+        _print_study_warnings(study, blinded)
         opts = AuditOptions(blinded=blinded, analysis_date=analysis_date, use_clock=today, seed=seed,
                             checks=tuple(check), list_left_out=list_left_out,
                             **({"strict": True} if strict else {}))
         a = audit_study(study, opts)
         _warn_defects(a)
-        paths, recovery = write_audit(a, output, force=force, paper="A4" if paper.lower() == "a4" else "letter",
-                                      protected=[study_dir])
+        paths, recovery = write_audit(a, output, force=force, paper=paper_size(paper), protected=[study_dir])
         _report_recovery(recovery, output)
         if not quiet:
             out.print(_summary_table(a))
@@ -183,15 +208,16 @@ def init(
     force: bool = typer.Option(False, "--force", help="Replace an existing study.toml."),
 ):
     """Draft a study.toml from the data, with a comment on every guess to confirm."""
-    from .draft import draft_metadata
+    from .draft import checked_draft
+    from .options import data_file_problems, new_file_problems, refuse_if_any
+    from .writeguard import write_one_file
 
     def body():
         target = output or (data_files[0].parent / "study.toml")
-        if target.exists() and not force:
-            err.print(f"{target} already exists. Fix: use --force or -o another path.", markup=False)
-            raise typer.Exit(EXIT_INPUT)
-        text = draft_metadata(data_files, target.parent)
-        target.write_text(text, encoding="utf-8")
+        refuse_if_any(data_file_problems(data_files),
+                      new_file_problems(target, "-o/--output" if output else "study.toml", force))
+        text = checked_draft(data_files, target.parent)
+        write_one_file(target, text.encode("utf-8"), force=force, inputs=data_files)
         out.print(f"wrote {target}: confirm every line marked 'CHECK'.", markup=False)
 
     _guard(body)
@@ -214,16 +240,15 @@ def batch(
 ):
     """Audit many studies in parallel: OUT/<study>/, OUT/index.html and OUT/summary.csv."""
     from .batch import default_jobs, expand_inputs, gate_reached, index_view, refuse_unsafe_batch, summary_csv
+    from .options import (date_problems, fail_on_problems, jobs_problems, paper_problems, paper_size, refuse_if_any,
+                          seed_problems)
     from .pipeline import CAUTIONS
     from .render.html import render_view
     from .writeguard import write_file_set
 
-    levels = ("failed", "not assessable", "caution", "unsupported")
-
     def body():
-        if fail_on is not None and fail_on not in levels:
-            err.print(f"--fail-on: '{fail_on}' is not a level. Fix: use one of {', '.join(levels)}.", markup=False)
-            raise typer.Exit(EXIT_INPUT)
+        refuse_if_any(jobs_problems(jobs), fail_on_problems(fail_on), seed_problems(seed),
+                      date_problems(analysis_date, "--analysis-date"), paper_problems(paper))
         folders = expand_inputs(inputs)
         missing = [f for f in folders if not f.is_dir()]
         if missing:
@@ -233,7 +258,7 @@ def batch(
         refuse_unsafe_batch(folders, output, force)
         options = {"blinded": blinded, "analysis_date": analysis_date, "seed": seed}
         n_jobs = jobs or default_jobs()
-        results = _run_with_progress(folders, output, options, n_jobs, paper, force)
+        results = _run_with_progress(folders, output, options, n_jobs, paper_size(paper), force)
         view = {**index_view(results, {**options, "paper": paper}), "cautions": CAUTIONS}
         _, recovery = write_file_set({"index.html": render_view("batch_index.html.j2", view).encode("utf-8"),
                                       "summary.csv": summary_csv(results).encode("utf-8")},
@@ -281,15 +306,17 @@ def compare(
     """What changed between two audits of a study: verdicts, numbers, outcomes and checks."""
     from .compare import compare_findings, comparison_view, load_findings
     from .errors import ProblemLog
+    from .options import new_file_problems, refuse_if_any, tolerance_problems
     from .render.html import render_view
     from .writeguard import refuse_existing_file, write_one_file
 
     def body():
+        refuse_if_any(tolerance_problems(tolerance), new_file_problems(html, "--html"))
         if html is not None:
             refuse_existing_file(html, force, inputs=[old, new])
         log = ProblemLog()
         a, b = load_findings(old, log), load_findings(new, log)
-        log.raise_if_errors()
+        log.raise_if_errors("in the findings files")
         cmp = compare_findings(a, b, tolerance)
         if cmp.unchanged:
             out.print(f"No differences beyond a relative tolerance of {tolerance:g}.", markup=False)
@@ -335,12 +362,14 @@ def selfcheck(
     """Run the validation suite on the installed tool: validation.html, validation.pdf, validation.json."""
     from .render.html import render_view
     from .render.pdf import html_to_pdf
-    from .selfcheck import run_selfcheck, selfcheck_view
+    from .options import date_problems, only_problems, refuse_if_any, seed_problems
+    from .selfcheck import case_ids, run_selfcheck, selfcheck_view
     from .writeguard import refuse_existing, refuse_unsafe_folder, write_file_set
 
     names = ("validation.html", "validation.pdf", "validation.json")
 
     def body():
+        refuse_if_any(seed_problems(seed), date_problems(date, "--date"), only_problems(only, case_ids()))
         target = refuse_unsafe_folder(output)
         if target.is_dir():
             refuse_existing(target, names, force, "a validation report")

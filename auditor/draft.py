@@ -14,8 +14,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .errors import ProblemLog
-from .study import ARM_DEFAULTS, read_table
+from .errors import ProblemLog, StudyInputError
+from .study import ARM_DEFAULTS, load_study, read_table
 
 CHECK = "# CHECK:"
 
@@ -24,9 +24,13 @@ def guess_scale(values: pd.Series) -> tuple[str, list[float] | None, str]:
     """(scale, levels, reason) for a parameter's values."""
     v = pd.to_numeric(values, errors="coerce").dropna().to_numpy(dtype=float)
     distinct = np.unique(v)
-    if len(distinct) <= 2:
-        return "binary", None, f"{len(distinct)} distinct values"
     integer = bool(np.all(np.equal(np.mod(v, 1), 0)))
+    if set(distinct) <= {0.0, 1.0}:
+        return "binary", None, f"{len(distinct)} distinct values, coded 0/1"
+    if len(distinct) == 2 and integer:  # a binary outcome must be coded 0/1: two other codes are ordered levels
+        return "ordinal", [float(x) for x in distinct], "2 integer codes other than 0/1"
+    if len(distinct) <= 2:
+        return "continuous", None, f"{len(distinct)} distinct values, not all integers"
     if integer and len(distinct) <= 10:
         return "ordinal", [float(x) for x in distinct], f"{len(distinct)} integer levels"
     if integer and distinct.min() >= 0:
@@ -47,17 +51,53 @@ def _visits_in_order(df: pd.DataFrame) -> list[str]:
         order = (df[["AVISIT", "AVISITN"]].dropna().assign(n=lambda d: pd.to_numeric(d["AVISITN"], errors="coerce"))
                  .groupby("AVISIT")["n"].min().sort_values())
         return [str(v) for v in order.index]
-    col = "AVISIT" if "AVISIT" in df.columns else "AVISITN"
-    return [str(v) for v in pd.unique(df[col].dropna())]
+    if "AVISIT" in df.columns:
+        return [str(v) for v in pd.unique(df["AVISIT"].dropna())]
+    numbers = pd.to_numeric(df["AVISITN"], errors="coerce").dropna()
+    return [_num(v) for v in sorted(pd.unique(numbers))]
+
+
+def _visit_column(df: pd.DataFrame) -> str:
+    """The column the visits are read from: AVISIT, else AVISITN (visits then given as numbers)."""
+    return "AVISIT" if "AVISIT" in df.columns else "AVISITN"
+
+
+def _visit_text(v: str, numbered: bool) -> str:
+    """A visit as study.toml writes it: a quoted name, or a bare number when the visits come from
+    AVISITN (validation matches numbers to AVISITN and names to AVISIT)."""
+    return v if numbered else _q(v)
+
+
+def _visits_of_rows(rows: pd.DataFrame, order: list[str]) -> list[str]:
+    """The visits, in study order, at which a parameter has rows."""
+    col = _visit_column(rows)
+    cells = rows[col] if col == "AVISIT" else pd.to_numeric(rows[col], errors="coerce").dropna().map(_num)
+    present = set(cells.dropna().astype(str))
+    return [v for v in order if v in present]
 
 
 def _baseline_visit(rows: pd.DataFrame, visits: list[str]) -> str:
-    if "ABLFL" in rows.columns:
+    if "ABLFL" in rows.columns and "AVISIT" in rows.columns:
         flagged = rows.loc[rows["ABLFL"].astype(str).str.upper() == "Y", "AVISIT"].dropna().astype(str)
         if len(flagged):
             return flagged.mode().iloc[0]
     named = [v for v in visits if "base" in v.lower()]
     return named[0] if named else visits[0]
+
+
+def _visit_lines(base: str | None, later: list[str], visits: list[str], numbered: bool) -> list[str]:
+    """The visit keys of one outcome's draft. With visits after the baseline: the baseline, those
+    follow-ups and a change analysis. With a single visit there is nothing to compare it with, so
+    the draft names it as the follow-up with a follow-up-only analysis and no baseline (a visit
+    cannot be its own baseline, which validation refuses)."""
+    if base is not None and later:
+        return [f"baseline_visit = {_visit_text(base, numbered)}  {CHECK}",
+                f"followup_visits = [{', '.join(_visit_text(v, numbered) for v in later)}]  {CHECK} the main one is the last",
+                f'planned_analysis = "change"  {CHECK} as the protocol or SAP states it', ""]
+    only = visits[-1:]
+    return [f"followup_visits = [{', '.join(_visit_text(v, numbered) for v in only)}]  {CHECK} no visit after it was found, "
+            "so no baseline is named",
+            f'planned_analysis = "follow-up-only"  {CHECK} as the protocol or SAP states it', ""]
 
 
 def draft_metadata(data_files: list[Path], folder: Path) -> str:
@@ -70,12 +110,14 @@ def draft_metadata(data_files: list[Path], folder: Path) -> str:
     log.raise_if_errors()
     visits_path = next((p for p, d in tables.items() if {"PARAMCD", "AVAL"} <= set(d.columns)), None)
     if visits_path is None:
-        from .errors import StudyInputError
-
         log.add(Path(data_files[0]).name, "row 1", "PARAMCD", "no visit-level file (with PARAMCD and AVAL) "
                 "among the files given", "give the ADaM-style visit-level file first")
         raise StudyInputError(log.problems)
     visits = tables[visits_path]
+    if not {"AVISIT", "AVISITN"} & set(visits.columns):
+        log.add(visits_path.name, "row 1", "AVISIT", "no visit column (AVISIT or AVISITN) in the visit-level file",
+                "add the visit of each row, or write study.toml by hand with [columns] visit = ...")
+        raise StudyInputError(log.problems)
     part_path = next((p for p in tables if p != visits_path), None)
     part = tables.get(part_path)
     arm_source = part if part is not None else visits
@@ -113,7 +155,7 @@ def draft_metadata(data_files: list[Path], folder: Path) -> str:
     for param in sorted(visits["PARAMCD"].dropna().astype(str).unique()):
         rows = visits[visits["PARAMCD"].astype(str) == param]
         scale, levels, why = guess_scale(rows["AVAL"])
-        pv = [v for v in order if v in set(rows["AVISIT"].astype(str))] if "AVISIT" in rows.columns else order
+        pv = _visits_of_rows(rows, order)
         base = _baseline_visit(rows, pv) if pv else None
         later = [v for v in pv if base is None or pv.index(v) > pv.index(base)]
         label = rows["PARAM"].dropna().astype(str).iloc[0] if "PARAM" in rows.columns and rows["PARAM"].notna().any() else ""
@@ -128,12 +170,21 @@ def draft_metadata(data_files: list[Path], folder: Path) -> str:
         if scale == "count":
             lines.append(f'# exposure = "COLUMN"  {CHECK} the visit-file column with each count\'s observation '
                          "time, if it varied")
-        if base is not None:
-            lines.append(f"baseline_visit = {_q(base)}  {CHECK}")
-        fu = later or pv[-1:]
-        lines += [
-            f"followup_visits = [{', '.join(_q(v) for v in fu)}]  {CHECK} the main one is the last",
-            f'planned_analysis = "change"  {CHECK} as the protocol or SAP states it',
-            "",
-        ]
+        lines += _visit_lines(base, later, pv, _visit_column(visits) == "AVISITN")
     return "\n".join(lines) + "\n"
+
+
+def checked_draft(data_files: list[Path], folder: Path) -> str:
+    """The draft study.toml for ``folder``, loaded as ``auditor validate`` would load it.
+
+    A draft that validation would refuse is never handed out: its problems are raised instead
+    (exit 2), so ``init`` writes nothing rather than a file its own ``validate`` rejects.
+    Validation warnings are allowed, as they are for ``validate``.
+    """
+    text = draft_metadata(data_files, folder)
+    try:
+        load_study(folder, text.encode("utf-8"))
+    except StudyInputError as exc:
+        raise StudyInputError(exc.problems, "in the drafted study.toml, which was not written "
+                              "(mend the data, or write study.toml by hand)") from None
+    return text

@@ -32,6 +32,9 @@ class InputProblem:
     fix: str
     severity: str = "error"
     """``error`` stops the audit; ``warning`` is reported and the audit goes on."""
+    by_arm: bool = False
+    """The message names an arm or describes one (a lone participant's allocation, say): in a blinded
+    run it must not reach the terminal, so the command line prints a pooled count instead."""
 
     def one_line(self) -> str:
         """``file: where column X: problem. Fix: how.`` on a single line, whatever the data held."""
@@ -56,9 +59,29 @@ def one_line_text(text, limit: int = MAX_PART_CHARS) -> str:
 class StudyInputError(Exception):
     """Raised when a study folder has problems; carries all of them."""
 
-    def __init__(self, problems: list[InputProblem]):
+    heading = "in the study folder"
+    """What the problems concern, for the line printed above them."""
+
+    def __init__(self, problems: list[InputProblem], heading: str | None = None):
         self.problems = sorted(problems, key=_problem_sort_key)
+        if heading is not None:
+            self.heading = heading
         super().__init__("\n".join(p.one_line() for p in self.problems))
+
+
+class CommandLineError(StudyInputError):
+    """Raised when options of a command are invalid; carries every option problem at once.
+
+    A subclass of :class:`StudyInputError` so that every command maps it to exit code 2 the same way,
+    with its own heading, since the study folder is not at fault.
+    """
+
+    heading = "on the command line"
+
+
+def option_problem(option: str, problem: str, fix: str) -> InputProblem:
+    """A problem with one command-line option, printed ``--option: problem. Fix: how.``"""
+    return InputProblem(option, "-", "-", problem, fix)
 
 
 def _problem_sort_key(p: InputProblem):
@@ -77,11 +100,11 @@ class ProblemLog:
     numbers counted from the header are moved down by this much so that they match the file's lines."""
 
     def add(self, file: str, where: str, column: str, problem: str, fix: str,
-            severity: str = "error") -> None:
+            severity: str = "error", by_arm: bool = False) -> None:
         offset = self.row_offsets.get(file, 0)
         if offset:
             where = shifted_rows(where, offset)
-        self.problems.append(InputProblem(file, where, column, problem, fix, severity))
+        self.problems.append(InputProblem(file, where, column, problem, fix, severity, by_arm))
 
     def skip_lines(self, file: str, lines: int) -> None:
         """Record that ``file``'s header is preceded by ``lines`` lines that were not read."""
@@ -95,9 +118,11 @@ class ProblemLog:
     def warnings(self) -> list[InputProblem]:
         return [p for p in self.problems if p.severity == "warning"]
 
-    def raise_if_errors(self) -> None:
+    def raise_if_errors(self, heading: str | None = None) -> None:
+        """Raise one :class:`StudyInputError` carrying every error so far (``heading``: what they
+        concern, when not the study folder)."""
         if self.errors:
-            raise StudyInputError(self.errors)
+            raise StudyInputError(self.errors, heading)
 
 
 def shifted_rows(where: str, offset: int) -> str:

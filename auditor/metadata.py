@@ -9,6 +9,7 @@ from __future__ import annotations
 import datetime as dt
 import hashlib
 import math
+import re
 import string
 import sys
 from pathlib import Path
@@ -72,6 +73,41 @@ def _bound(value):
 
 Bound = Annotated[Optional[float], PlainValidator(_bound)]
 
+MAX_SEED = 2**32 - 1
+"""Largest seed accepted, in study.toml and on the command line alike: seeds are handed to
+``numpy.random.default_rng``, which accepts any non-negative integer; the upper limit keeps a seed
+recordable as an unsigned 32-bit number in every output."""
+
+_ISO_DATE = re.compile(r"\d{4}-\d{2}-\d{2}")
+
+
+def iso_date(value) -> dt.date | None:
+    """The calendar date ``value`` stands for (a ``datetime.date``, or text written YYYY-MM-DD), or
+    None when it is neither. One rule for study.toml's analysis_date and the date options, so that a
+    date refused in one place is refused everywhere (``2026-13-45``, ``20260102``, a number)."""
+    if isinstance(value, dt.date) and not isinstance(value, dt.datetime):
+        return value
+    if isinstance(value, str) and _ISO_DATE.fullmatch(value):
+        try:
+            return dt.date.fromisoformat(value)
+        except ValueError:
+            return None
+    return None
+
+
+def _analysis_date(value):
+    """study.toml's analysis_date: a TOML date or the text YYYY-MM-DD of a real calendar date."""
+    if value is None:
+        return None
+    date = iso_date(value)
+    if date is None:
+        raise ValueError(f"analysis_date {value!r:.60} is not a calendar date written YYYY-MM-DD "
+                         "(for example 2026-11-20)")
+    return date
+
+
+AnalysisDate = Annotated[Optional[dt.date], PlainValidator(_analysis_date)]
+
 
 class _Strict(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True)
@@ -84,8 +120,8 @@ class StudyInfo(_Strict):
     arms: list[Name] = Field(default_factory=list)
     control_arm: Optional[Name] = None
     blinded: StrictBool = False
-    analysis_date: Optional[dt.date] = None
-    seed: StrictInt = Field(default=20240101, ge=0, le=2**32 - 1)
+    analysis_date: AnalysisDate = None
+    seed: StrictInt = Field(default=20240101, ge=0, le=MAX_SEED)
 
     @model_validator(mode="after")
     def _arms_consistent(self):
@@ -310,8 +346,14 @@ def _fix_for(err: dict) -> str:
     return "correct the value (see docs/study-folder.md)"
 
 
-def read_metadata(folder: Path, log: ProblemLog) -> tuple[StudyMetadata | None, str]:
-    """Read and validate ``study.toml``; problems go to ``log``. Returns (metadata, sha256)."""
+def read_metadata(folder: Path, log: ProblemLog, raw: bytes | None = None) -> tuple[StudyMetadata | None, str]:
+    """Read and validate ``study.toml``; problems go to ``log``. Returns (metadata, sha256).
+
+    ``raw``: the bytes of a study.toml not yet written (``auditor init`` validating its draft), read
+    in place of the folder's file.
+    """
+    if raw is not None:
+        return _parsed_metadata(raw, log)
     path = folder / METADATA_FILE
     if path.is_dir():
         log.add(METADATA_FILE, "-", "-", "is a folder, not a file", f"replace it with the study's {METADATA_FILE}")
@@ -325,6 +367,11 @@ def read_metadata(folder: Path, log: ProblemLog) -> tuple[StudyMetadata | None, 
     except OSError as exc:
         log.add(METADATA_FILE, "-", "-", f"cannot be read ({exc.strerror})", "check the file permissions")
         return None, ""
+    return _parsed_metadata(raw, log)
+
+
+def _parsed_metadata(raw: bytes, log: ProblemLog) -> tuple[StudyMetadata | None, str]:
+    """The metadata held by the bytes of a study.toml, validated; problems go to ``log``."""
     digest = hashlib.sha256(raw).hexdigest()
     try:
         text = raw.decode("utf-8-sig")

@@ -38,6 +38,11 @@ class SelfcheckReport:
         return json.dumps(d, indent=2, sort_keys=True) + "\n"
 
 
+def case_ids() -> list[str]:
+    """The id of every reference and simulation case, which ``--only`` selects from by prefix."""
+    return sorted(c.id for c in reference_cases() + simulation_cases())
+
+
 def run_selfcheck(full: bool = False, seed: int = 20261201, date: str | None = None, only: str = "",
                   progress=None) -> SelfcheckReport:
     """Run every reference case and every simulation case (quick: few replicates; full: >= 200)."""

@@ -602,14 +602,38 @@ def _check_ids(ids: pd.Series, label: str, column: str, log: ProblemLog) -> None
 # --------------------------------------------------------------------------- loading
 
 
-def load_study(folder: str | Path) -> Study:
-    """Read and validate a study folder. Raises StudyInputError with every problem found."""
-    folder = Path(folder)
+def load_study(folder: str | Path, metadata: bytes | None = None) -> Study:
+    """Read and validate a study folder. Raises StudyInputError with every problem found.
+
+    A permission refused anywhere on the way (the folder, a sub-folder, a file) is an input problem
+    naming the path, never an internal error: the user can mend it, the tool cannot. ``metadata``:
+    the bytes of a study.toml to use instead of the folder's (a draft not yet written).
+    """
+    try:
+        return _load_study_folder(Path(folder), metadata)
+    except PermissionError as exc:
+        raise StudyInputError([_permission_problem(Path(folder), exc)]) from None
+
+
+def _permission_problem(folder: Path, exc: PermissionError) -> InputProblem:
+    """The refused path, relative to the study folder when inside it, as a one-line problem."""
+    refused = Path(exc.filename) if exc.filename else folder
+    shown = str(refused)
+    for base in (folder, folder.resolve()):
+        if refused != base and refused.is_relative_to(base):
+            shown = refused.relative_to(base).as_posix()
+            break
+    return InputProblem(shown, "-", "-", "cannot be read (permission denied)",
+                        "give read permission on it and search permission on the folders above it")
+
+
+def _load_study_folder(folder: Path, metadata: bytes | None = None) -> Study:
+    """:func:`load_study` without the translation of refused permissions."""
     log = ProblemLog()
     if not folder.is_dir():
         log.add(str(folder), "-", "-", "is not a folder", "give the path of a study folder")
         log.raise_if_errors()
-    meta, meta_hash = read_metadata(folder, log)
+    meta, meta_hash = read_metadata(folder, log, metadata)
     if meta is None:
         log.raise_if_errors()
     files: list[InputFile] = []
@@ -880,7 +904,7 @@ def _arms_against_design(part: pd.DataFrame, present: set, meta: StudyMetadata, 
             rows = np.flatnonzero((part["arm"] == arm).fillna(False).to_numpy())
             log.add(label, rows_text(rows), arm_name, f"arm '{arm}' has a single participant",
                     "no comparison with this arm is possible: its outcomes are reported as not assessable",
-                    severity="warning")
+                    severity="warning", by_arm=True)
 
 
 def _subjects_in_both(long: pd.DataFrame, part: pd.DataFrame, meta: StudyMetadata, log: ProblemLog) -> None:
