@@ -32,8 +32,12 @@ _STATE = {"debug": False}
 
 
 def _cells(*values) -> list[Text]:
-    """Table cells as plain text, so brackets or colons in study codes are never read as markup."""
-    return [Text(str(v)) for v in values]
+    """Table cells as plain text, so brackets or colons in study codes are never read as markup, and
+    with control and bidirectional characters shown as escapes, so a label's right-to-left override
+    cannot reverse the table around it."""
+    from .errors import one_line_text
+
+    return [Text(one_line_text(v, 10_000)) for v in values]
 
 
 def _version(value: bool):

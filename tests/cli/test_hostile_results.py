@@ -249,3 +249,10 @@ def test_the_pdf_is_laid_out_from_the_isolated_html(tmp_path):
     html = report_html(_audit_with_labels(tmp_path, f"Pressure {RLO}reversed", HOSTILE))
     assert _outside_isolates(html) == []
     assert html_to_pdf(html).startswith(b"%PDF")
+
+
+def test_bidi_controls_are_escapes_in_the_terminal_tables():
+    from auditor.cli import _cells
+
+    (cell,) = _cells("Arm \u202eevil\u202c")
+    assert cell.plain == "Arm \\u202eevil\\u202c"
