@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import os
+from contextlib import contextmanager
+
 import weasyprint
 from weasyprint import urls as wp_urls
 
@@ -44,7 +47,28 @@ else:  # pragma: no cover - older WeasyPrint takes a function
         return fetch
 
 
+FIXED_FONT_EPOCH = "0"
+"""Timestamp written into the embedded font subsets (the font tools stamp the clock otherwise)."""
+
+
+@contextmanager
+def _fixed_font_timestamps():
+    """Make the embedded font subsets carry a fixed timestamp, so the same HTML gives the same PDF
+    bytes at any time (the subsetter honours SOURCE_DATE_EPOCH). The variable is restored after."""
+    before = os.environ.get("SOURCE_DATE_EPOCH")
+    os.environ["SOURCE_DATE_EPOCH"] = FIXED_FONT_EPOCH
+    try:
+        yield
+    finally:
+        if before is None:
+            os.environ.pop("SOURCE_DATE_EPOCH", None)
+        else:
+            os.environ["SOURCE_DATE_EPOCH"] = before
+
+
 def html_to_pdf(html: str, fetcher=None) -> bytes:
+    """The PDF of ``html``: byte-identical for identical HTML, whenever it is made."""
     fetcher = fetcher or make_fetcher()
     doc = weasyprint.HTML(string=html, base_url="about:blank", url_fetcher=fetcher)
-    return doc.write_pdf()
+    with _fixed_font_timestamps():
+        return doc.write_pdf()

@@ -48,8 +48,8 @@ def test_outputs_do_not_depend_on_the_number_of_jobs(studies, tmp_path):
     two = run_batch(folders, tmp_path / "j2", QUICK, jobs=2)
     assert [r.rows for r in one] == [r.rows for r in two]
     for name in ("alpha", "beta"):
-        for f in ("findings.json", "audit.html", "findings.csv"):
-            assert (tmp_path / "j1" / name / f).read_bytes() == (tmp_path / "j2" / name / f).read_bytes()
+        for f in ("findings.json", "audit.html", "findings.csv", "audit.pdf"):
+            assert (tmp_path / "j1" / name / f).read_bytes() == (tmp_path / "j2" / name / f).read_bytes(), f
 
 
 def test_batch_command_writes_index_and_summary_and_gates(studies, tmp_path):

@@ -72,8 +72,20 @@ def test_rerun_with_force_is_byte_identical(audit_dir, tmp_path):
     shutil.copytree(audit_dir, copy)
     res = runner.invoke(app, ["run", str(EXAMPLE), "-o", str(copy), "--force", "--check", "pre-post"])
     assert res.exit_code == 0, res.output
-    for name in ("findings.json", "audit.html", "findings.csv"):
+    for name in ("findings.json", "audit.html", "findings.csv", "audit.pdf"):
         assert (copy / name).read_bytes() == (audit_dir / name).read_bytes(), name
+
+
+def test_the_pdf_of_the_same_html_is_the_same_at_any_time():
+    # The embedded font subsets carry a timestamp; a second later it must not show in the bytes.
+    import time
+
+    from auditor.render.pdf import html_to_pdf
+
+    html = "<html><body><h1>Title</h1><p>Some text in the report font.</p></body></html>"
+    first = html_to_pdf(html)
+    time.sleep(1.1)
+    assert html_to_pdf(html) == first
 
 
 def test_version_and_help():
