@@ -22,7 +22,7 @@ from .checks.registry import CheckContext, NotAssessable, all_checks
 from .errors import one_line_text
 from .failures import ToolDefect, data_reason, defect_reason, is_defect
 from .listing import left_out
-from .results import Audit, CheckResult, LeftOut, Provenance, Verdict
+from .results import Audit, CheckInfo, CheckResult, LeftOut, Provenance, Verdict
 from .study import MIN_PER_ARM, Study, load_study, outcome_data
 
 CAUTIONS = [
@@ -263,7 +263,14 @@ def audit_study(study: Study, options: AuditOptions | None = None) -> Audit:
         provenance=prov,
         cautions=list(CAUTIONS),
         left_out=listing,
+        checks=checks_in(results),
     )
+
+
+def checks_in(results: list[CheckResult]) -> list[CheckInfo]:
+    """The registered checks that gave at least one of ``results``, in report order."""
+    present = {r.check_id for r in results}
+    return [CheckInfo(c.id, c.title, c.order, c.summary) for c in all_checks() if c.id in present]
 
 
 def audit(folder: str | Path, **options) -> Audit:

@@ -12,7 +12,8 @@ from dataclasses import asdict, dataclass, field
 from enum import Enum
 from typing import Any
 
-SCHEMA_VERSION = "1.0"
+SCHEMA_VERSION = "1.1"
+"""1.1: the ``checks`` list (id, title, order, summary of every check in the audit)."""
 
 
 class Verdict(str, Enum):
@@ -160,6 +161,16 @@ def _without_drawings(d: dict[str, Any]) -> dict[str, Any]:
 
 
 @dataclass(frozen=True)
+class CheckInfo:
+    """What the report says about a check: its stable id, title, place in the report and summary."""
+
+    id: str
+    title: str
+    order: int
+    summary: str = ""
+
+
+@dataclass(frozen=True)
 class InputFile:
     """An input file and its content hash, for the provenance block."""
 
@@ -208,6 +219,8 @@ class Audit:
     cautions: list[str]
     left_out: list[LeftOut] | None = None
     """Participants each outcome's analysis leaves out, with identifiers; None unless asked for."""
+    checks: list[CheckInfo] = field(default_factory=list)
+    """The checks that produced ``results``, in report order (so that rendering needs no registry)."""
     schema_version: str = SCHEMA_VERSION
 
     def to_dict(self) -> dict[str, Any]:

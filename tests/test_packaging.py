@@ -28,3 +28,16 @@ def test_template_files_match_package_data():
         if f.is_file() and f.suffix in (".j2", ".css"):
             rel = f.relative_to(ROOT / "templates")
             assert any(rel.match(p) for p in patterns), rel
+
+
+def test_rendering_knows_nothing_about_checks_or_models():
+    # The layers call downwards only: importing every renderer loads no check, no statistics module,
+    # no pipeline and no model library.
+    import subprocess
+
+    code = ("import sys, auditor.render.html, auditor.render.pdf, auditor.render.jsonout, auditor.render.csvout; "
+            "print(sorted(m for m in sys.modules if m.startswith(('auditor.checks', 'auditor.stats', "
+            "'auditor.pipeline', 'statsmodels'))))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=ROOT, timeout=120)
+    assert out.returncode == 0, out.stderr
+    assert out.stdout.strip() == "[]"

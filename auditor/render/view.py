@@ -5,7 +5,6 @@ from __future__ import annotations
 import base64
 import math
 
-from ..checks.registry import all_checks
 from ..figures import to_svg
 from ..references import REFERENCES
 from ..results import Audit, CheckResult, Verdict
@@ -141,7 +140,7 @@ def audit_view(audit: Audit) -> dict:
 
 def _audit_strings(audit: Audit) -> dict:
     """The report's display strings before user text is isolated."""
-    checks = [c for c in all_checks() if any(r.check_id == c.id for r in audit.results)]
+    checks = sorted(audit.checks, key=lambda c: (c.order, c.id))
     by_key = {(r.outcome, r.check_id): r for r in audit.results}
     grid = []
     for o in audit.outcomes:

@@ -44,7 +44,9 @@ def test_html_is_self_contained(audit_dir):
 
 def test_findings_json_carries_schema_and_provenance(audit_dir):
     d = json.loads((audit_dir / "findings.json").read_text())
-    assert d["schema_version"] == "1.0"
+    assert d["schema_version"] == "1.1"
+    assert [c["id"] for c in d["checks"]] == ["pre-post"]  # the fixture runs --check pre-post only
+    assert all(c["title"] and c["summary"] for c in d["checks"])
     assert d["study_id"] == "TQ-ASTH-02"
     assert len(d["provenance"]["files"]) == 2
     assert all(len(f["sha256"]) == 64 for f in d["provenance"]["files"])
