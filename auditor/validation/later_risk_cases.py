@@ -43,6 +43,8 @@ class Scenario:
     """True when the risk is monotone in the latest value (a flag is then a false alarm)."""
     n: int | None = None
     """Participants per trial when not the common ``--n``."""
+    declared: str | None = None
+    """The ``risk_definition`` the simulated study declares (change, ratio, latest or None)."""
 
 
 SCENARIOS = (
@@ -54,11 +56,20 @@ SCENARIOS = (
              lambda l, e: -2.6 + 4.0 * (l - TRUE_MINIMUM) ** 2, False),
     Scenario("u-shaped-n900", "as u-shaped, with 900 participants", False,
              lambda l, e: -2.6 + 4.0 * (l - TRUE_MINIMUM) ** 2, False, n=900),
-    Scenario("change-linear", "logit linear in the change latest - earlier", False,
-             lambda l, e: -1.75 + 3.5 * (l - e), True),
-    Scenario("ratio-linear", "log-normal values; logit linear in log(latest / earlier)", True,
-             lambda l, e: -1.75 + 2.0 * np.log(l / e), True),
+    Scenario("change-linear", "logit linear in the change latest - earlier; change declared", False,
+             lambda l, e: -1.75 + 3.5 * (l - e), True, declared="change"),
+    Scenario("ratio-linear", "log-normal values; logit linear in log(latest / earlier); ratio declared", True,
+             lambda l, e: -1.75 + 2.0 * np.log(l / e), True, declared="ratio"),
+    Scenario("linear-change-declared", "logit linear in the latest value, earlier irrelevant; change declared",
+             False, lambda l, e: -1.75 + 2.0 * (l - 4.3), True, declared="change"),
+    Scenario("u-shaped-change-declared", "as u-shaped; change declared", False,
+             lambda l, e: -2.6 + 4.0 * (l - TRUE_MINIMUM) ** 2, False, declared="change"),
+    Scenario("u-shaped-n900-change-declared", "as u-shaped, 900 participants; change declared", False,
+             lambda l, e: -2.6 + 4.0 * (l - TRUE_MINIMUM) ** 2, False, n=900, declared="change"),
 )
+"""The first four declare no definition (risk follows the latest value and nothing is defined by
+change): a verdict there is about the shape alone. Appended scenarios keep the seeds of the earlier ones
+(a scenario's seed includes its position)."""
 
 
 def simulate(scenario: Scenario, n: int, rng: np.random.Generator):
@@ -82,7 +93,8 @@ def replicate(scenario: Scenario, n: int, rng: np.random.Generator, resamples: i
     """Run the check's analysis on one simulated trial; None when it is not assessable."""
     y, latest, earlier = simulate(scenario, n, rng)
     try:
-        an = analyse(y, latest, earlier, resamples=resamples, seed=int(rng.integers(2**31)))
+        an = analyse(y, latest, earlier, resamples=resamples, seed=int(rng.integers(2**31)),
+                     definition=scenario.declared)
     except NotAssessable:
         return None
     by = {d.definition.kind: d for d in an.derived}
@@ -97,6 +109,9 @@ def replicate(scenario: Scenario, n: int, rng: np.random.Generator, resamples: i
         "ratio_information": (by[LOG_RATIO.kind].information.p_value < 0.05) if LOG_RATIO.kind in by else None,
         "log_scale": an.log_scale,
         "verdict": overall_verdict(an).value,
+        "unsupported": overall_verdict(an).value == "unsupported",
+        "not_sound": overall_verdict(an).value != "sound",
+        "same_value_material": an.same_value.material(an.level),
         "monotone_finding": sub["monotone"].value,
         "lowest": an.lowest.at,
         "covered": (None if an.lowest.lower is None else an.lowest.lower <= TRUE_MINIMUM <= an.lowest.upper),
