@@ -355,3 +355,18 @@ def test_template_renders_the_intro(k_results):
     html = environment().get_template("checks/later-risk.html.j2").render(
         r=result_view(k_results[1], [0]), s={"param": "K"})
     assert "equal and opposite weight" in html and "Later risk and the latest value" in html
+
+
+def test_validation_requirements_catch_an_unsupported_verdict_nobody_planned():
+    # The script's requirements (shared with `auditor selfcheck` through later_risk_cases) must fail
+    # on a summary in which an undeclared scenario is ever unsupported, or a true declared change is
+    # unsupported far above 5% (30 of 200: binomial p far below 0.05).
+    base = {"flagged": 0.0, "flagged_count": 0, "assessable": 200}
+    ok = [{**base, "scenario": "monotone-linear", "unsupported": 0.0},
+          {**base, "scenario": "change-linear", "unsupported": 0.02}]
+    assert V.requirements(ok) == []
+    bad = [{**base, "scenario": "monotone-linear", "unsupported": 0.005},
+           {**base, "scenario": "change-linear", "unsupported": 0.15}]
+    failures = V.requirements(bad)
+    assert any(f.startswith("monotone-linear: no definition declared") for f in failures)
+    assert any(f.startswith("change-linear: the declared definition is the truth") for f in failures)
