@@ -209,6 +209,11 @@ class OutcomeSpec(_Strict):
     entry_criterion: Optional[EntryCriterion] = None
     reliability: Optional[Finite] = Field(default=None, gt=0, lt=1)
     risk_endpoint: Optional[Name] = None
+    risk_definition: Optional[Literal["change", "ratio", "latest"]] = None
+    """How the risk endpoint, or an entry rule tied to it, uses the two measurements of the value as
+    the protocol or SAP defines it: by the change (latest minus earlier), by the ratio (latest /
+    earlier) or by the latest value alone. Default: no such definition (the later-risk check then
+    describes the relation and judges no definition). Needs ``risk_endpoint``."""
     covariates: list[Name] = Field(default_factory=list)
     log_scale: Optional[StrictBool] = None
     """Analyse on the log scale where a check offers it; default: decided from the data."""
@@ -245,6 +250,9 @@ class OutcomeSpec(_Strict):
         self._visits_distinct()
         if len(set(self.covariates)) != len(self.covariates):
             raise ValueError("covariates are listed more than once")
+        if self.risk_definition is not None and self.risk_endpoint is None:
+            raise ValueError("'risk_definition' describes how the risk endpoint uses the value; give "
+                             "'risk_endpoint' too, or remove 'risk_definition'")
         if self.exposure is not None and self.scale != "count":
             raise ValueError("'exposure' (observation time) applies only to an outcome with scale 'count'")
         return self

@@ -7,7 +7,9 @@ participant-level event on restricted cubic splines of the latest measurement (t
 and of the earlier one (baseline), partitions their likelihood-ratio chi-square, compares the models
 a change- or ratio-based definition implies against encompassing models in which they are nested,
 tests whether the risk curve of the latest value has an interior turning point the data support, and
-locates the lowest risk with a bootstrap interval. Formulas and thresholds:
+locates the lowest risk with a bootstrap interval. The verdict concerns the definition the study
+declares (``risk_definition``): a declared change or ratio is judged; with none declared the findings
+are reported and only a supported turning point gives caution. Formulas and thresholds:
 docs/methods/later-risk.md.
 """
 
@@ -24,7 +26,7 @@ from ..references import add_reference, cite
 from ..results import Figure, SubFinding, Table, Verdict
 from ..stats.linear import arm_indicators
 from ..stats.logistic import (INTERCEPT, ChiSquarePartition, ExtremumTest, LogisticFit, LRTest,
-                              SeparationError, block_columns, chi_square_partition, fit_logistic,
+                              SeparationError, block_columns, chi_square_partition, contrast, fit_logistic,
                               interior_extremum, lr_test, risk_band)
 from ..stats.splines import SplinePlan, choose_knots, flexible_basis, knot_count
 from .common import estimate, fmt, fmt_p, result
@@ -37,7 +39,15 @@ ALPHA = 0.05
 """Level of every test whose failure gives caution (nonlinearity, each one-sided end test, the
 information and weight tests). Convention of this tool."""
 STRONG = 0.01
-"""A derived definition losing information at p below this gives 'unsupported'. Convention of this tool."""
+"""A declared derived definition losing information at p below this is one of the two conditions of
+'unsupported' (the other is a material consequence, MATERIAL_ODDS_RATIO). Convention of this tool."""
+MATERIAL_ODDS_RATIO = 2.0
+"""Materiality threshold: an odds ratio of the event between participants a declared definition
+treats alike (no change, starting at the 90th against the 10th percentile of the earlier value), or
+between an end of the range and an interior turning point, is material when its interval lies wholly
+beyond this factor (above 2 or below 1/2). Convention of this tool."""
+SAME_START_QUANTILES = (0.10, 0.90)
+"""Starting points (percentiles of the earlier value) compared at no change. Convention of this tool."""
 MIN_EVENTS = 10
 """Fewer events (or non-events) than this and the check is not assessed. Convention of this tool."""
 SKEW_FOR_LOG = 1.0
@@ -148,6 +158,8 @@ class Definition:
 
 CHANGE = Definition("change", "change", False, lambda l, e: l - e, lambda e, d: e + d)
 LOG_RATIO = Definition("log ratio", "log ratio", True, lambda l, e: np.log(l / e), lambda e, r: e * np.exp(r))
+DECLARED = {"change": CHANGE, "ratio": LOG_RATIO}
+"""The derived definitions a study.toml ``risk_definition`` can declare; ``latest`` declares none."""
 
 
 @dataclass(frozen=True)
@@ -254,6 +266,44 @@ class Lowest:
 
 
 @dataclass(frozen=True)
+class SameValue:
+    """Participants whose value did not change (latest = earlier), starting high against low.
+
+    ``log_or`` is the difference of the full model's fitted logits at (latest, earlier) = (h, h) and
+    (l, l), h and l the 90th and 10th percentiles of the earlier value, with its delta-method SE: a
+    change- or ratio-based definition gives both the same risk, so it is 0 when such a definition is
+    adequate. Adjustment columns cancel from the difference.
+    """
+
+    low: float
+    high: float
+    log_or: float
+    se: float
+
+    def interval(self, level: float) -> tuple[float, float, float]:
+        """(odds ratio, lower, upper), Wald on the logit scale."""
+        z = stats.norm.ppf(0.5 + level / 2)
+        return (math.exp(self.log_or), math.exp(self.log_or - z * self.se), math.exp(self.log_or + z * self.se))
+
+    def detectable(self, level: float) -> bool:
+        _, lo, hi = self.interval(level)
+        return lo > 1 or hi < 1
+
+    def material(self, level: float) -> bool:
+        """The interval lies wholly beyond MATERIAL_ODDS_RATIO (or its inverse)."""
+        _, lo, hi = self.interval(level)
+        return lo > MATERIAL_ODDS_RATIO or hi < 1 / MATERIAL_ODDS_RATIO
+
+
+def end_odds_ratios(test: ExtremumTest, level: float) -> list[tuple[float, float, float, float]]:
+    """(end, odds ratio, lower, upper) of each end against an interior extremum, Wald intervals;
+    oriented so that the ratio exceeds 1 when the end lies away from the extremum."""
+    z = stats.norm.ppf(0.5 + level / 2)
+    return [(e.at, math.exp(e.difference), math.exp(e.difference - z * e.se), math.exp(e.difference + z * e.se))
+            for e in (test.low_end, test.high_end)]
+
+
+@dataclass(frozen=True)
 class Analysis:
     """Everything the check computes for one outcome, before any wording: data, terms, fits, tests."""
 
@@ -268,8 +318,12 @@ class Analysis:
     partition: ChiSquarePartition
     shape: Shape
     lowest: Lowest
+    same_value: SameValue
     derived: list[DerivedTest]
     skipped: list[str] = field(default_factory=list)
+    declared: str | None = None
+    """``risk_definition`` from study.toml: change, ratio, latest or None."""
+    level: float = 0.95
 
     @property
     def full(self) -> LogisticFit:
@@ -281,8 +335,31 @@ class Analysis:
 
     @property
     def best(self) -> DerivedTest | None:
-        """The derived definition that fits better (lower AIC); the verdict is judged on it."""
+        """The derived definition that fits better (lower AIC), shown when none is declared."""
         return min(self.derived, key=lambda d: d.fit.aic) if self.derived else None
+
+    @property
+    def judged(self) -> DerivedTest | None:
+        """The declared change- or ratio-based definition, the only one a verdict is about."""
+        want = DECLARED.get(self.declared or "")
+        return next((d for d in self.derived if d.definition is want), None) if want else None
+
+    @property
+    def shown(self) -> DerivedTest | None:
+        """The definition the table and figure of a derived value show: the declared one, else the better."""
+        return self.judged or self.best
+
+    @property
+    def turning(self) -> ExtremumTest | None:
+        """The supported turning point's test, or None."""
+        kind = self.shape.flagged
+        return None if kind is None else self.shape.minimum if kind == "U-shaped" else self.shape.maximum
+
+    @property
+    def turning_material(self) -> bool:
+        """A supported turning point with both ends' odds-ratio intervals wholly above MATERIAL_ODDS_RATIO."""
+        t = self.turning
+        return t is not None and all(lo > MATERIAL_ODDS_RATIO for _, _, lo, _ in end_odds_ratios(t, self.level))
 
     def models(self) -> list[tuple[str, LogisticFit]]:
         out = [("Latest value only", self.partition.reduced[f"-{EARLIER}"]),
@@ -293,11 +370,15 @@ class Analysis:
 
 
 def analyse(y, latest, earlier, adjust: dict[str, np.ndarray] | None = None, log_scale: bool | None = None,
-            level: float = 0.95, resamples: int = 0, seed: int = 0) -> Analysis:
-    """Every model, test and estimate of the check, from arrays (no metadata, no verdict).
+            level: float = 0.95, resamples: int = 0, seed: int = 0, definition: str | None = None) -> Analysis:
+    """Every model, test and estimate of the check, from arrays (no verdict).
 
-    Raises NotAssessable for too few events or non-events and for separation.
+    ``definition``: the declared ``risk_definition`` (change, ratio, latest or None). Raises
+    NotAssessable for too few events or non-events, for separation, and for a declared ratio with
+    values that are not all positive or a declared definition whose model cannot be fitted.
     """
+    if definition not in (None, "latest", *DECLARED):
+        raise ValueError(f"unknown risk definition {definition!r}")
     y = np.asarray(y, dtype=float)
     latest, earlier = np.asarray(latest, dtype=float), np.asarray(earlier, dtype=float)
     adjust = dict(adjust or {})
@@ -326,13 +407,30 @@ def analyse(y, latest, earlier, adjust: dict[str, np.ndarray] | None = None, log
                   interior_extremum(partition.full, lt.names, grid, basis, "maximum", seed=seed))
     lowest = locate_lowest(y, latest, earlier, adjust, lt, et, grid, shape.minimum.at, resamples, seed, level)
     derived, skipped = [], []
-    definitions = [CHANGE] + ([LOG_RATIO] if np.all(latest > 0) and np.all(earlier > 0) else [])
-    for definition in definitions:
+    positive = bool(np.all(latest > 0) and np.all(earlier > 0))
+    if definition == "ratio" and not positive:
+        raise NotAssessable("risk_definition is 'ratio' but some values are zero or negative")
+    for kind in [CHANGE] + ([LOG_RATIO] if positive else []):
         try:
-            derived.append(derived_test(definition, y, latest, earlier, adjust, effective_n, level))
+            derived.append(derived_test(kind, y, latest, earlier, adjust, effective_n, level))
         except (ValueError, RuntimeError) as exc:
-            skipped.append(f"The {definition.label} model could not be fitted ({exc}).")
-    return Analysis(y, latest, earlier, adjust, log, reason, lt, et, partition, shape, lowest, derived, skipped)
+            if DECLARED.get(definition or "") is kind:
+                raise NotAssessable(f"the declared {kind.label} model cannot be fitted ({exc})") from exc
+            skipped.append(f"The {kind.label} model could not be fitted ({exc}).")
+    same = same_value_contrast(partition.full, lt, et, earlier)
+    return Analysis(y, latest, earlier, adjust, log, reason, lt, et, partition, shape, lowest, same, derived,
+                    skipped, definition, level)
+
+
+def same_value_contrast(full: LogisticFit, lt: Term, et: Term, earlier) -> SameValue:
+    """The full model's logit at latest = earlier = the 90th percentile of the earlier value minus that
+    at the 10th (see SameValue), by :func:`auditor.stats.logistic.contrast`."""
+    low, high = (float(v) for v in np.quantile(earlier, SAME_START_QUANTILES))
+    at = np.array([low, high])
+    cols = {**lt.columns(at), **et.columns(at)}
+    c = np.array([0.0 if k == INTERCEPT or k not in cols else cols[k][1] - cols[k][0] for k in full.names])
+    log_or, se = contrast(full, c)
+    return SameValue(low, high, log_or, se)
 
 
 def locate_lowest(y, latest, earlier, adjust, lt: Term, et: Term, grid, at: float, resamples: int,
@@ -451,7 +549,7 @@ def run(data, ctx: CheckContext):
     check = get_check(CHECK_ID)
     inputs = risk_inputs(data, ctx)
     an = analyse(inputs.y, inputs.latest, inputs.earlier, inputs.adjust, data.spec.log_scale, ctx.level,
-                 QUICK_RESAMPLES if ctx.quick else RESAMPLES, ctx.seed)
+                 QUICK_RESAMPLES if ctx.quick else RESAMPLES, ctx.seed, data.spec.risk_definition)
     view = _View(an, data.spec, inputs, ctx.level)
     verdict = overall_verdict(an)
     return result(check, data, verdict, view.headline(verdict), subfindings=view.subfindings(),
@@ -463,10 +561,6 @@ def run(data, ctx: CheckContext):
                   method=view.method())
 
 
-def _grade(p: float) -> Verdict:
-    return Verdict.UNSUPPORTED if p < STRONG else Verdict.CAUTION if p < ALPHA else Verdict.SOUND
-
-
 def _key(d: DerivedTest) -> str:
     return d.definition.kind.replace(" ", "-")
 
@@ -474,40 +568,70 @@ def _key(d: DerivedTest) -> str:
 def finding_verdicts(an: Analysis) -> dict[str, Verdict]:
     """The verdict of each sub-finding, keyed by its id.
 
-    monotone: unsupported for a supported turning point, caution for one significant only before the
-    adjustment for its choice. earlier-informative: caution when the latest value is informative and
-    the earlier adds nothing, or when the two values together explain nothing (the data cannot check
-    a derived definition). <definition>-information and -weights: unsupported at p < STRONG,
-    caution at p < ALPHA.
+    Only a declared change- or ratio-based definition (``risk_definition``) is judged. With one:
+    its information finding is unsupported when it loses information at p < STRONG and a consequence
+    is material (participants it treats alike differ in odds by an interval wholly beyond
+    MATERIAL_ODDS_RATIO, or a supported turning point with both ends' intervals wholly beyond it),
+    caution at p < ALPHA; the same-value finding likewise (unsupported when material with the loss,
+    caution when its interval excludes 1); the weights finding caution at p < ALPHA (a p-value alone
+    never gives unsupported); monotone unsupported for a material turning point with the loss,
+    caution for any supported or suggested one; earlier-informative caution when the latest value
+    is informative and the earlier adds nothing, or the two together explain nothing.
+
+    Without one (none declared, or ``latest``): every finding is reported for information with verdict
+    sound, except monotone, which is caution for a supported turning point (it matters to any use of
+    the value).
     """
-    sh, p = an.shape, an.partition
-    out = {"monotone": (Verdict.UNSUPPORTED if sh.flagged else
-                        Verdict.CAUTION if sh.suggested is not None else Verdict.SOUND),
-           "earlier-informative": (Verdict.CAUTION if p.joint.p_value >= ALPHA
-                                   or (p.total[EARLIER].p_value >= ALPHA and p.total[LATEST].p_value < ALPHA)
-                                   else Verdict.SOUND)}
+    sh, p, level, judged = an.shape, an.partition, an.level, an.judged
+    out: dict[str, Verdict] = {}
+    if judged is None:
+        out["monotone"] = Verdict.CAUTION if sh.flagged else Verdict.SOUND
+        out["earlier-informative"] = Verdict.SOUND
+        out["same-value"] = Verdict.SOUND
+        for d in an.derived:
+            out[f"{_key(d)}-information"] = out[f"{_key(d)}-weights"] = Verdict.SOUND
+        return out
+    lost = judged.information.p_value < STRONG
+    material = an.same_value.material(level) or an.turning_material
+    out["monotone"] = (Verdict.UNSUPPORTED if lost and an.turning_material else
+                       Verdict.CAUTION if sh.flagged or sh.suggested is not None else Verdict.SOUND)
+    out["earlier-informative"] = (Verdict.CAUTION if p.joint.p_value >= ALPHA
+                                  or (p.total[EARLIER].p_value >= ALPHA and p.total[LATEST].p_value < ALPHA)
+                                  else Verdict.SOUND)
+    out["same-value"] = (Verdict.UNSUPPORTED if lost and an.same_value.material(level) else
+                         Verdict.CAUTION if an.same_value.detectable(level) else Verdict.SOUND)
     for d in an.derived:
-        out[f"{_key(d)}-information"] = _grade(d.information.p_value)
-        out[f"{_key(d)}-weights"] = _grade(d.weights.p_value)
+        if d is judged:
+            out[f"{_key(d)}-information"] = (Verdict.UNSUPPORTED if lost and material else
+                                             Verdict.CAUTION if d.information.p_value < ALPHA else Verdict.SOUND)
+            out[f"{_key(d)}-weights"] = Verdict.CAUTION if d.weights.p_value < ALPHA else Verdict.SOUND
+        else:
+            out[f"{_key(d)}-information"] = out[f"{_key(d)}-weights"] = Verdict.SOUND
     return out
 
 
 def overall_verdict(an: Analysis) -> Verdict:
-    """The worst of the shape, the earlier value's contribution and the better derived definition's
-    two findings; the other definition's findings are reported but do not set the verdict.
+    """The verdict about the declared definition (see :func:`finding_verdicts`).
 
-    Unsupported for a supported turning point or when the better derived definition (lower AIC)
-    loses information at p < STRONG; caution for any weaker finding among those; sound otherwise.
+    Declared change or ratio: unsupported when it loses information at p < STRONG and a consequence
+    is material (an interval wholly beyond MATERIAL_ODDS_RATIO); caution for any other departure
+    among the monotone, earlier-value, same-value and the declared definition's two findings; sound
+    otherwise. None declared (or ``latest``): caution for a supported turning point, sound otherwise;
+    never unsupported.
     """
     v = finding_verdicts(an)
-    keys = ["monotone", "earlier-informative"]
-    if an.best is not None:
-        keys += [f"{_key(an.best)}-information", f"{_key(an.best)}-weights"]
-    if v["monotone"] == Verdict.UNSUPPORTED or (an.best is not None and an.best.information.p_value < STRONG):
+    if an.judged is None:
+        return v["monotone"]
+    if Verdict.UNSUPPORTED in v.values():
         return Verdict.UNSUPPORTED
-    if any(v[k] != Verdict.SOUND for k in keys):
-        return Verdict.CAUTION
-    return Verdict.SOUND
+    keys = ["monotone", "earlier-informative", "same-value",
+            f"{_key(an.judged)}-information", f"{_key(an.judged)}-weights"]
+    return Verdict.CAUTION if any(v[k] != Verdict.SOUND for k in keys) else Verdict.SOUND
+
+
+def _odds(v: float) -> str:
+    """An odds ratio to two significant digits (whole numbers from 10)."""
+    return "n/a" if not math.isfinite(v) else f"{v:.0f}" if v >= 10 else f"{v:.2g}"
 
 
 class _View:
@@ -533,15 +657,40 @@ class _View:
     def chi(self, t: LRTest) -> str:
         return f"chi-square {fmt(t.statistic, 1)} on {t.df} df ({fmt_p(t.p_value)})"
 
+    def odds_ci(self, v: float, lo: float, hi: float) -> str:
+        """Hedged: the point estimate is 'an estimated' value, never stated without its interval."""
+        return f"an estimated {_odds(v)} times (CI {_odds(lo)} to {_odds(hi)})"
+
+    @property
+    def declared_label(self) -> str | None:
+        """``change`` or ``ratio`` when one is declared and judged."""
+        return None if self.an.judged is None else self.an.declared
+
+    def _for_information(self) -> str:
+        if self.an.declared == "latest":
+            return "; the declared definition uses the latest value alone, so this is reported for information"
+        return ("; no change- or ratio-based definition is declared (risk_definition), so this is reported "
+                "for information")
+
     # -- sub-findings
 
     def subfindings(self) -> list[SubFinding]:
         an = self.an
-        subs = [self._shape_finding(), self._earlier_finding()]
+        subs = [self._shape_finding(), self._earlier_finding(), self._same_value_finding()]
         for d in an.derived:
             subs.append(self._information_finding(d))
             subs.append(self._weights_finding(d))
         return subs
+
+    def _ends(self, t: ExtremumTest) -> str:
+        """The consequence of a turning point: odds at each end against it, with intervals."""
+        (a, ra, la, ua), (b, rb, lb, ub) = end_odds_ratios(t, self.level)
+        if t.kind == "minimum":
+            return (f"the odds of {self.endpoint} are {self.odds_ci(ra, la, ua)} as high at the 5th percentile "
+                    f"({self.x(a)}) and {self.odds_ci(rb, lb, ub)} as high at the 95th ({self.x(b)}) as at "
+                    f"the lowest point")
+        return (f"the odds of {self.endpoint} at the highest point are {self.odds_ci(ra, la, ua)} those at the "
+                f"5th percentile ({self.x(a)}) and {self.odds_ci(rb, lb, ub)} those at the 95th ({self.x(b)})")
 
     def _shape_finding(self) -> SubFinding:
         sh = self.an.shape
@@ -549,26 +698,31 @@ class _View:
         q = "Does the risk change monotonically with the latest value?"
         v = self.verdicts["monotone"]
         if kind:
-            t = sh.minimum if kind == "U-shaped" else sh.maximum
-            word = "above the lowest" if t.kind == "minimum" else "below the highest"
-            ev = (f"nonlinear terms {self.chi(sh.nonlinear)}; the logit at the 5th percentile "
-                  f"({self.x(t.low_end.at)}) and at the 95th ({self.x(t.high_end.at)}) each lies {word} point "
-                  f"({self.x(t.at)}): one-sided {fmt_p(t.low_end.p_adjusted)} and "
-                  f"{fmt_p(t.high_end.p_adjusted)}, adjusted for the choice of that point")
-            return SubFinding("monotone", q, v, f"No: risk is {kind}; {ev}", by_arm=self.arm)
+            t = self.an.turning
+            word = "lowest" if t.kind == "minimum" else "highest"
+            ev = (f"{self._ends(t)} ({word} point {self.x(t.at)}); nonlinear terms {self.chi(sh.nonlinear)}; "
+                  f"one-sided {fmt_p(t.low_end.p_adjusted)} and {fmt_p(t.high_end.p_adjusted)} for the two "
+                  f"ends, adjusted for the choice of that point")
+            plain = ("risk rises on both sides of that point, so a rule that treats only high (or only low) "
+                     "values as risky misses the other side" if t.kind == "minimum" else
+                     "risk falls on both sides of that point, so a rule that treats only high (or only low) "
+                     "values as risky misses the other side")
+            return SubFinding("monotone", q, v, f"Not monotone: risk is {kind}; {ev}; {plain}", by_arm=self.arm)
         t = sh.suggested
         if t is not None:
             word = "lowest" if t.kind == "minimum" else "highest"
             return SubFinding("monotone", q, v,
-                              f"Perhaps not: nonlinear terms {self.chi(sh.nonlinear)}; both ends differ from the "
-                              f"{word} point ({self.x(t.at)}) pointwise (one-sided {fmt_p(t.low_end.p_value)} and "
-                              f"{fmt_p(t.high_end.p_value)}) but not after adjustment for the choice of that point "
+                              f"A turning point is suggested but not supported: nonlinear terms "
+                              f"{self.chi(sh.nonlinear)}; both ends differ from the {word} point ({self.x(t.at)}) "
+                              f"pointwise (one-sided {fmt_p(t.low_end.p_value)} and {fmt_p(t.high_end.p_value)}) "
+                              f"but not after adjustment for the choice of that point "
                               f"({fmt_p(t.low_end.p_adjusted)} and {fmt_p(t.high_end.p_adjusted)})",
                               by_arm=self.arm)
-        curved = "curved but " if sh.nonlinear.p_value < ALPHA else ""
-        return SubFinding("monotone", q, v,
-                          f"Yes: {curved}no turning point is supported; nonlinear terms {self.chi(sh.nonlinear)}",
-                          by_arm=self.arm)
+        if sh.nonlinear.p_value < ALPHA:
+            text = f"No evidence of a turning point, though the curve bends: nonlinear terms {self.chi(sh.nonlinear)}"
+        else:
+            text = f"No evidence of a turning point or of curvature: nonlinear terms {self.chi(sh.nonlinear)}"
+        return SubFinding("monotone", q, v, text, by_arm=self.arm)
 
     def _earlier_finding(self) -> SubFinding:
         p = self.an.partition
@@ -579,20 +733,51 @@ class _View:
         q = "Does the earlier value add information once the latest is known, as a change definition needs?"
         v = self.verdicts["earlier-informative"]
         if p.joint.p_value >= ALPHA:
-            text = f"Cannot tell: the two values together explain only {self.chi(p.joint)}; {ev}"
+            text = f"No evidence that either value relates to risk: the two values together {self.chi(p.joint)}; {ev}"
+        elif et.p_value < ALPHA:
+            text = f"Yes: {ev}"
         else:
-            text = f"{'Yes' if et.p_value < ALPHA else 'No'}: {ev}"
+            text = f"No evidence that it adds information: {ev}"
+        if self.an.judged is None:
+            text += self._for_information()
         return SubFinding("earlier-informative", q, v, text, by_arm=self.arm)
+
+    def _same_value_phrase(self) -> str:
+        sv = self.an.same_value
+        o, lo, hi = sv.interval(self.level)
+        return (f"participants whose value did not change have {self.odds_ci(o, lo, hi)} the odds of "
+                f"{self.endpoint} when they start at the 90th percentile of the earlier value ({self.x(sv.high)}) "
+                f"as when they start at the 10th ({self.x(sv.low)})")
+
+    def _same_value_finding(self) -> SubFinding:
+        sv, level = self.an.same_value, self.level
+        q = ("Do participants whose value did not change have the same risk whatever their starting value, as a "
+             "change- or ratio-based definition assumes?")
+        ev = self._same_value_phrase() + ", from the model of both values"
+        if sv.material(level):
+            text = f"No: {ev}; the interval lies wholly beyond the materiality threshold (odds ratio " \
+                   f"{MATERIAL_ODDS_RATIO:g} or 1/{MATERIAL_ODDS_RATIO:g})"
+        elif sv.detectable(level):
+            text = f"Not quite: {ev}; the interval excludes 1 but not the materiality threshold (odds ratio " \
+                   f"{MATERIAL_ODDS_RATIO:g} or 1/{MATERIAL_ODDS_RATIO:g})"
+        else:
+            text = f"No evidence of a difference: {ev}"
+        if self.an.judged is None:
+            text += self._for_information()
+        return SubFinding("same-value", q, self.verdicts["same-value"], text, by_arm=self.arm)
 
     def _information_finding(self, d: DerivedTest) -> SubFinding:
         v = self.verdicts[f"{_key(d)}-information"]
         label = d.definition.label
         ev = (f"the model in the {label} alone against the model of both values it is nested in: "
               f"{self.chi(d.information)}; AIC {fmt(d.fit.aic - d.encompassing.aic, 1)} against it")
-        answer = "Yes" if v == Verdict.SOUND else "No"
+        text = (f"It loses information: {ev}" if d.information.p_value < ALPHA
+                else f"No evidence that it loses information: {ev}")
+        if d is not self.an.judged:
+            text += self._for_information()
         return SubFinding(f"{_key(d)}-information",
                           f"Does a {label}-based definition keep the risk information in the two values?",
-                          v, f"{answer}: {ev}", by_arm=self.arm)
+                          v, text, by_arm=self.arm)
 
     def _weights_finding(self, d: DerivedTest) -> SubFinding:
         v = self.verdicts[f"{_key(d)}-weights"]
@@ -600,32 +785,47 @@ class _View:
         scale = "logs of the values" if d.definition.log else "values"
         ev = (f"weight of the earlier value relative to the latest {fmt(r)} (CI {fmt(lo)} to {fmt(hi)}; "
               f"a {d.definition.label} fixes it at -1), models linear in the {scale}: {self.chi(d.weights)}")
+        text = (f"The weights differ: {ev}" if d.weights.p_value < ALPHA
+                else f"No evidence against equal and opposite weights: {ev}")
+        if d is not self.an.judged:
+            text += self._for_information()
         return SubFinding(f"{_key(d)}-weights",
                           f"Do the two values carry equal and opposite weights, as a {d.definition.label} assumes?",
-                          v, f"{'Yes' if v == Verdict.SOUND else 'No'}: {ev}", by_arm=self.arm)
+                          v, text, by_arm=self.arm)
 
     # -- headline
 
     def headline(self, verdict: Verdict) -> str:
+        """Consequence with its interval first, then the evidence, then what it means for the declared
+        definition (or that none is declared)."""
         an = self.an
-        parts = [self._shape_phrase()]
-        parts.append(f"the latest value carries {fmt(100 * an.partition.share(LATEST), 0)}% of the "
-                     f"explainable chi-square (the earlier {fmt(100 * an.partition.share(EARLIER), 0)}%)")
-        best = an.best
-        if best is not None:
-            label = best.definition.label
-            t = best.information
-            parts.append(f"a {label}-based definition loses chi-square {fmt(t.statistic, 1)} on {t.df} df "
-                         f"({fmt_p(t.p_value)})")
-            for other in an.derived:
-                if other is not best and other.information.p_value < ALPHA <= t.p_value:
-                    o = other.information
-                    parts.append(f"a {other.definition.label}-based one loses {fmt(o.statistic, 1)} on {o.df} df "
-                                 f"({fmt_p(o.p_value)})")
-            advice = {Verdict.UNSUPPORTED: f"do not define the endpoint by {_derived_names(an)}",
-                      Verdict.CAUTION: f"a definition by {label} is doubtful",
-                      Verdict.SOUND: f"a definition by {label} is compatible with the data"}
-            parts.append(advice[verdict])
+        share = (f"the latest value carries {fmt(100 * an.partition.share(LATEST), 0)}% of the chi-square of "
+                 f"both values (the earlier {fmt(100 * an.partition.share(EARLIER), 0)}%)")
+        judged = an.judged
+        if judged is None:
+            parts = [self._shape_phrase(), share]
+            if an.shape.flagged:
+                parts.append("a rule that treats only high (or only low) values as risky misses the other side")
+            parts.append("the declared definition uses the latest value alone, so no change- or ratio-based "
+                         "definition is judged" if an.declared == "latest" else
+                         "no endpoint or entry rule is declared as defined by change or ratio "
+                         "(risk_definition), so no such definition is judged")
+        else:
+            label = self.declared_label
+            t = judged.information
+            parts = ([self._shape_phrase()] if an.turning is not None else []) + [self._same_value_phrase()]
+            parts.append(f"the declared {label}-based definition loses {self.chi(t)} against the model of both "
+                         f"values (AIC {fmt(judged.fit.aic - judged.encompassing.aic, 1)} against it)")
+            if an.turning is None:
+                parts.append(self._shape_phrase())
+            parts.append(share)
+            parts.append({
+                Verdict.UNSUPPORTED: f"the declared {label}-based definition misses risk that the two values carry",
+                Verdict.CAUTION: f"the declared {label}-based definition may miss some risk: the departure is "
+                                 f"detectable, but its size is uncertain or below the materiality threshold "
+                                 f"(odds ratio {MATERIAL_ODDS_RATIO:g})",
+                Verdict.SOUND: f"no evidence that the declared {label}-based definition misses risk the two "
+                               f"values carry"}[verdict])
         text = "; ".join(parts) + "."
         return text[0].upper() + text[1:]
 
@@ -635,19 +835,20 @@ class _View:
         low = an.lowest
         ci = (f", CI {self.x(low.lower)} to {self.x(low.upper)}{unit}" if low.lower is not None else unit)
         if sh.flagged == "U-shaped":
-            return f"risk is U-shaped in the latest value (lowest near {self.x(low.at)}{ci})"
+            return f"risk is U-shaped in the latest value, lowest near {self.x(low.at)}{ci}: {self._ends(an.turning)}"
         if sh.flagged:
-            return f"risk is highest at an interior latest value (near {self.x(sh.maximum.at)}{unit})"
+            return (f"risk is highest at an interior latest value, near {self.x(sh.maximum.at)}{unit}: "
+                    f"{self._ends(an.turning)}")
         if sh.suggested is not None:
             word = "lowest" if sh.suggested.kind == "minimum" else "highest"
             return (f"risk may be {word} at an interior latest value (near {self.x(sh.suggested.at)}{unit}), "
                     f"though not significantly after adjustment for the choice of that point")
         total = an.partition.total[LATEST]
         if total.p_value >= ALPHA:
-            return f"the latest value shows no clear relation to risk ({fmt_p(total.p_value)})"
+            return f"no evidence that the latest value relates to risk given the earlier ({fmt_p(total.p_value)})"
         direction = "rises" if sh.minimum.index == 0 else "falls" if sh.minimum.index == len(sh.grid) - 1 else \
             "changes"
-        return f"risk {direction} with the latest value without a supported turning point"
+        return f"risk {direction} with the latest value, with no evidence of a turning point"
 
     # -- estimates
 
@@ -674,6 +875,12 @@ class _View:
                                     math.exp(e.difference - z * e.se), math.exp(e.difference + z * e.se),
                                     e.p_adjusted, note=f"one-sided p adjusted for the choice of the lowest "
                                                        f"point (pointwise {fmt_p(e.p_value)})", by_arm=arm))
+        sv = an.same_value
+        o, lo, hi = sv.interval(self.level)
+        out.append(estimate(f"Odds ratio of the event with no change, starting at the 90th ({self.x(sv.high)}) "
+                            f"against the 10th ({self.x(sv.low)}) percentile of the earlier value", o, lo, hi,
+                            note="model of both values; a change- or ratio-based definition assumes 1",
+                            by_arm=arm))
         p = an.partition
         for block, what in ((LATEST, "latest"), (EARLIER, "earlier")):
             out.append(estimate(f"Share of the explainable chi-square carried by the {what} value alone",
@@ -698,8 +905,8 @@ class _View:
 
     def tables(self):
         out = [self._partition_table(), self._model_table()]
-        if self.an.best is not None:
-            table = self._same_change_table(self.an.best)
+        if self.an.shown is not None:
+            table = self._same_change_table(self.an.shown)
             if table.rows:
                 out.append(table)
         return out
@@ -793,8 +1000,8 @@ class _View:
                            caption=f"Model of both values, latest value at its median ({self.x(med_l)}); band: "
                                    f"pointwise {self.level:.0%} interval; ticks: observed earlier values.",
                            by_arm=arm))
-        if an.best is not None:
-            figs.append(self._compare_figure(an.best, ylabel))
+        if an.shown is not None:
+            figs.append(self._compare_figure(an.shown, ylabel))
         return figs
 
     def _compare_figure(self, d: DerivedTest, ylabel: str) -> Figure:
@@ -860,10 +1067,6 @@ class _View:
                   "fitted logits at the 5th and 95th percentiles each differ from it (one-sided, 0.05, "
                   "max-t adjusted for the choice of the point); "
                   "percentile bootstrap of the lowest point.")
-
-
-def _derived_names(an: Analysis) -> str:
-    return " or ".join(d.definition.label for d in an.derived)
 
 
 def _typical_steps(values: np.ndarray, definition: Definition) -> list[float]:

@@ -145,6 +145,22 @@ simulation(SimulationCase(
     "later-risk/u-shape", "later-risk", "U-shaped risk (N = 900): flagged as non-monotone", ">= 0.80",
     _later_risk_rate("u-shaped-n900", "flagged"), "detection", 0.80, quick_replicates=10))
 simulation(SimulationCase(
+    "later-risk/undeclared-latest-risk", "later-risk", "risk linear in the latest value, no change- or "
+    "ratio-based definition declared (N = 300): called unsupported", "<= 0.05 + 2 MCSE",
+    _later_risk_rate("monotone-linear", "unsupported"), "false-alarm", 0.05))
+simulation(SimulationCase(
+    "later-risk/declared-change-fits", "later-risk", "risk linear in the change, change declared (N = 300): "
+    "called unsupported", "<= 0.05 + 2 MCSE", _later_risk_rate("change-linear", "unsupported"), "false-alarm",
+    0.05))
+simulation(SimulationCase(
+    "later-risk/declared-change-latest-risk", "later-risk", "risk linear in the latest value, change declared "
+    "(N = 600): called unsupported", ">= 0.80", _later_risk_rate("linear-change-declared", "unsupported", 600),
+    "detection", 0.80))
+simulation(SimulationCase(
+    "later-risk/declared-change-u-shape", "later-risk", "U-shaped risk, change declared (N = 900): called "
+    "caution or unsupported", ">= 0.80", _later_risk_rate("u-shaped-n900-change-declared", "not_sound"),
+    "detection", 0.80, quick_replicates=10))
+simulation(SimulationCase(
     "later-risk/earlier-irrelevant", "later-risk", "earlier value irrelevant: its partial chi-square rejects "
     "at 5%", "<= 0.05 + 2 MCSE", _later_risk_rate("monotone-linear", "earlier"), "false-alarm", 0.05))
 

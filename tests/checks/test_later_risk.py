@@ -3,6 +3,7 @@ the nested comparisons against statsmodels, the data rules, blinding, and the ex
 
 from __future__ import annotations
 
+import dataclasses
 import importlib.util
 import json
 import sys
@@ -13,14 +14,20 @@ import pytest
 import statsmodels.api as sm
 
 from auditor.checks.later_risk import (
+    ALPHA,
     CHANGE,
     EARLIER,
     LATEST,
+    MATERIAL_ODDS_RATIO,
+    STRONG,
     Term,
     analyse,
     decide_log_scale,
+    end_odds_ratios,
+    finding_verdicts,
     overall_verdict,
 )
+from auditor.metadata import OutcomeSpec
 from auditor.checks.registry import CheckContext, NotAssessable, get_check
 from auditor.stats.logistic import fit_logistic, lr_test
 from auditor.study import load_study, outcome_data
@@ -59,7 +66,12 @@ def test_u_shaped_risk_is_flagged_and_its_minimum_located():
         errors.append(abs(an.lowest.at - V.TRUE_MINIMUM))
         if r == 0:
             assert an.lowest.lower <= V.TRUE_MINIMUM <= an.lowest.upper
-            assert overall_verdict(an).value == "unsupported"
+            # No definition declared: a supported U is caution (it matters to any use of the value),
+            # never unsupported; the same trial with a change-defined endpoint declared is unsupported
+            # (the change loses information and both ends' odds-ratio intervals lie above 2).
+            assert overall_verdict(an).value == "caution"
+            assert an.turning_material
+            assert overall_verdict(dataclasses.replace(an, declared="change")).value == "unsupported"
             # The earlier value is irrelevant by construction: given it, the latest still matters; the
             # two partial shares are of correlated values (r about 0.87), so neither need be near 1.
             assert an.partition.total[LATEST].p_value < 1e-4
@@ -92,14 +104,100 @@ def test_earlier_value_partial_chi_square_has_its_nominal_size():
     assert 0.015 <= rejections / reps <= 0.09
 
 
-def test_risk_depending_on_the_latest_value_rejects_a_change_definition():
+def test_risk_depending_on_the_latest_value_rejects_a_declared_change_definition():
     y, latest, earlier = _trial("monotone-linear", 600, 8)
-    an = analyse(y, latest, earlier)
+    an = analyse(y, latest, earlier, definition="change")
     change = next(d for d in an.derived if d.definition is CHANGE)
+    assert an.judged is change
     assert an.shape.flagged is None
     assert change.information.p_value < 0.01
     assert change.weights.p_value < 0.01   # weights 0 and 2 per mmol/L, not equal and opposite
+    # Truth: logit slope 2 per mmol/L in the latest value; the earlier value's 10th to 90th percentiles
+    # (SD about 0.41) are about 1.05 apart, so at no change the true odds ratio is about exp(2.1) = 8.
+    odds, lo, hi = an.same_value.interval(0.95)
+    assert lo > MATERIAL_ODDS_RATIO and lo < 8 < hi
     assert overall_verdict(an).value == "unsupported"
+    # The same data with nothing declared: reported, not judged.
+    undeclared = analyse(y, latest, earlier)
+    assert overall_verdict(undeclared).value == "sound"
+    assert set(finding_verdicts(undeclared).values()) == {overall_verdict(undeclared)}
+
+
+def test_latest_value_risk_without_a_declared_definition_is_never_unsupported():
+    # (a) Truth: risk linear in the latest value only, nothing defined by change. Over 30 seeded trials
+    # of 300 the rate of "unsupported" must be 0 (the rule forbids it; Monte Carlo SE of a rate of 0
+    # over 30 replicates is 0), and "caution" may come only from a flagged turning point (a false
+    # alarm of the monotonicity test, at most 5% of 200 in the validation script; here at most 3 of 30).
+    rows = [r for r in V.run_scenario(SCENARIO["monotone-linear"], 30, 300, 20261203, 0) if r is not None]
+    assert len(rows) == 30
+    assert sum(r["verdict"] == "unsupported" for r in rows) == 0
+    assert all(r["verdict"] == "sound" or r["flagged"] for r in rows)
+    assert sum(r["verdict"] == "caution" for r in rows) <= 3
+    # A declared latest-value definition is judged the same way.
+    y, latest, earlier = _trial("monotone-linear", 300, 21)
+    assert overall_verdict(analyse(y, latest, earlier, definition="latest")).value == "sound"
+
+
+def test_latest_value_risk_with_a_declared_change_definition_is_mostly_unsupported():
+    # (b) Truth: risk linear in the latest value; the endpoint is declared as defined by change.
+    # 12 seeded trials of 600: unsupported in at least 10 (rate 20/20 in a trial run; Monte Carlo SE
+    # at a true rate of 0.95 over 12 replicates is about 0.06). At 300 the rate is lower (75% of 20).
+    i = [s.name for s in V.SCENARIOS].index("linear-change-declared")
+    rows = [r for r in V.run_scenario(SCENARIO["linear-change-declared"], 12, 600, 20261204, i) if r is not None]
+    assert sum(r["verdict"] == "unsupported" for r in rows) >= 10
+
+
+def test_u_shaped_risk_is_still_found_with_a_declared_change_definition():
+    # (c) Truth: U-shaped risk in the latest value, change declared, trials of 900. The verdict is
+    # caution or unsupported in at least 7 of 8: unsupported exactly when the change loses information
+    # at p < 0.01 AND a consequence is material (both ends' odds-ratio intervals against the lowest
+    # point wholly above 2, or the no-change odds ratio wholly beyond 2), caution otherwise.
+    found = 0
+    for r in range(8):
+        y, latest, earlier = _trial("u-shaped", 900, 700 + r)
+        an = analyse(y, latest, earlier, definition="change", seed=r)
+        v = overall_verdict(an).value
+        found += v != "sound"
+        lost = an.judged.information.p_value < STRONG
+        material = an.turning_material or an.same_value.material(0.95)
+        assert (v == "unsupported") == (lost and material)
+        if an.turning is not None:
+            ends = end_odds_ratios(an.turning, 0.95)
+            assert an.turning_material == all(lo > MATERIAL_ODDS_RATIO for _, _, lo, _ in ends)
+    assert found >= 7
+
+
+def test_a_p_value_alone_never_gives_unsupported():
+    # Unsupported needs a material consequence: with the no-change odds ratio's interval inside (1/2, 2)
+    # and no supported turning point, a significant information loss gives at most caution.
+    for seed in range(500, 512):
+        y, latest, earlier = _trial("change-linear", 300, seed)
+        an = analyse(y, latest, earlier, definition="change")
+        if not an.same_value.material(0.95) and not an.turning_material:
+            assert overall_verdict(an).value != "unsupported"
+        v = finding_verdicts(an)
+        if an.judged.weights.p_value < ALPHA:
+            assert v["change-weights"].value == "caution"
+
+
+def test_risk_definition_key_is_strict():
+    base = dict(param="K", scale="continuous", baseline_visit="B", followup_visits=["W"],
+                planned_analysis="follow-up-adjusted", risk_endpoint="EVT")
+    assert OutcomeSpec.model_validate(base).risk_definition is None
+    for value in ("change", "ratio", "latest"):
+        assert OutcomeSpec.model_validate({**base, "risk_definition": value}).risk_definition == value
+    with pytest.raises(ValueError, match="risk_definition"):
+        OutcomeSpec.model_validate({**base, "risk_definition": "log-ratio"})
+    with pytest.raises(ValueError, match="risk_endpoint"):
+        OutcomeSpec.model_validate({k: v for k, v in base.items() if k != "risk_endpoint"} | {"risk_definition": "change"})
+    with pytest.raises(ValueError):
+        OutcomeSpec.model_validate({**base, "risk_definition": 1})
+
+
+def test_declared_ratio_with_non_positive_values_is_not_assessable():
+    y, latest, earlier = _trial("monotone-linear", 300, 3)
+    with pytest.raises(NotAssessable, match="ratio"):
+        analyse(y, latest - 4.3, earlier - 4.3, definition="ratio")
 
 
 def test_risk_depending_on_the_change_is_compatible_with_a_change_definition():
@@ -108,7 +206,7 @@ def test_risk_depending_on_the_change_is_compatible_with_a_change_definition():
     verdicts, rejected = [], 0
     for r in range(12):
         y, latest, earlier = _trial("change-linear", 300, 500 + r)
-        an = analyse(y, latest, earlier)
+        an = analyse(y, latest, earlier, definition="change")
         change = next(d for d in an.derived if d.definition is CHANGE)
         rejected += change.information.p_value < 0.05
         verdicts.append(overall_verdict(an).value)
@@ -195,17 +293,36 @@ def k_results():
             check.run(data, CheckContext(seed=seed, blinded=True, quick=True)))
 
 
-def test_example_potassium_is_u_shaped_and_unsupported(k_results):
+def test_example_potassium_is_u_shaped_and_caution(k_results):
     # example_study/generate.py: logit = -2.6 + 4 (latest - 4.3)^2, independent of the earlier value.
+    # The example's cardiac rhythm event is not defined by potassium, and no entry rule uses its change,
+    # so study.toml declares no risk_definition: no change or ratio definition is judged. The supported
+    # U matters to any use of potassium as a risk marker, so the verdict is caution (it was unsupported
+    # when the check judged a change definition nobody planned).
     res, _ = k_results
-    assert res.verdict.value == "unsupported"
+    assert res.verdict.value == "caution"
     assert "U-shaped" in res.headline
+    assert "no endpoint or entry rule is declared as defined by change or ratio" in res.headline
+    assert "doubtful" not in res.headline and "do not define" not in res.headline
     monotone = next(s for s in res.subfindings if s.id == "monotone")
-    assert monotone.verdict.value == "unsupported"
+    assert monotone.verdict.value == "caution" and monotone.evidence.startswith("Not monotone")
     lowest = next(e for e in res.estimates if e.name.startswith("Latest value at which"))
     assert 4.1 <= lowest.value <= 4.5 and lowest.lower < lowest.value < lowest.upper
     change = next(s for s in res.subfindings if s.id == "change-information")
-    assert change.verdict.value == "unsupported"
+    assert change.verdict.value == "sound" and "reported for information" in change.evidence
+    assert change.evidence.startswith("It loses information")  # the loss is still reported
+
+
+def test_example_potassium_with_a_declared_change_definition_is_judged():
+    # The same data with risk_definition = "change" (not the example's narrative): the change is then
+    # the definition judged, and the headline names it as declared.
+    study = load_study(ROOT / "example_study")
+    spec = next(o for o in study.metadata.outcomes if o.param == "K").model_copy(update={"risk_definition": "change"})
+    res = get_check("later-risk").run(outcome_data(study, spec),
+                                      CheckContext(seed=study.metadata.study.seed, blinded=True, quick=True))
+    assert res.verdict.value in ("caution", "unsupported")
+    assert "the declared change-based definition" in res.headline
+    assert "log ratio" not in res.headline
 
 
 def test_example_marks_arm_adjusted_items_and_blinded_run_uses_no_arm(k_results):
@@ -216,7 +333,7 @@ def test_example_marks_arm_adjusted_items_and_blinded_run_uses_no_arm(k_results)
     items = blinded.estimates + blinded.tables + blinded.figures + blinded.subfindings
     assert items and not any(x.by_arm for x in items)
     assert "arm" not in blinded.method
-    assert blinded.verdict.value == "unsupported"
+    assert blinded.verdict.value == "caution"   # as unblinded: the U-shape, no definition declared
 
 
 def test_example_outputs_carry_no_participant_identifiers_and_draw(k_results):
@@ -238,3 +355,18 @@ def test_template_renders_the_intro(k_results):
     html = environment().get_template("checks/later-risk.html.j2").render(
         r=result_view(k_results[1], [0]), s={"param": "K"})
     assert "equal and opposite weight" in html and "Later risk and the latest value" in html
+
+
+def test_validation_requirements_catch_an_unsupported_verdict_nobody_planned():
+    # The script's requirements (shared with `auditor selfcheck` through later_risk_cases) must fail
+    # on a summary in which an undeclared scenario is ever unsupported, or a true declared change is
+    # unsupported far above 5% (30 of 200: binomial p far below 0.05).
+    base = {"flagged": 0.0, "flagged_count": 0, "assessable": 200}
+    ok = [{**base, "scenario": "monotone-linear", "unsupported": 0.0},
+          {**base, "scenario": "change-linear", "unsupported": 0.02}]
+    assert V.requirements(ok) == []
+    bad = [{**base, "scenario": "monotone-linear", "unsupported": 0.005},
+           {**base, "scenario": "change-linear", "unsupported": 0.15}]
+    failures = V.requirements(bad)
+    assert any(f.startswith("monotone-linear: no definition declared") for f in failures)
+    assert any(f.startswith("change-linear: the declared definition is the truth") for f in failures)
