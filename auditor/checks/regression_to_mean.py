@@ -939,9 +939,7 @@ def bias_sub(spec, design, sel, target: Interval, sigma: float, scale, material:
 
 
 def share_clause(value: float, obs: Change) -> str:
-    """'64% of the fall seen on Placebo' (or the opposite-sign wording)."""
-    if obs.mean == 0 or np.sign(obs.mean) != np.sign(value):
-        return f"while the change seen {obs.where} was the other way"
+    """'64% of the fall seen on Placebo' (for an observed change of the same sign as ``value``)."""
     return f"{100 * value / obs.mean:.0f}% of the {'fall' if obs.mean < 0 else 'rise'} seen {obs.where}"
 
 
