@@ -1,10 +1,12 @@
 """Pre-post relationship: how follow-up relates to baseline, pooled and within arm.
 
 Reports the Pearson and Spearman correlations of baseline with follow-up (with CIs), the slope of
-follow-up on baseline adjusted for arm, and the number of complete pairs. Subtracting baseline is
-the same as ANCOVA only when that slope is 1 (Clifton and Clifton 2019), and it helps precision only
-when the correlation exceeds 0.5 (Frison and Pocock 1992), so this check already says whether a change
-score is plausible; the change-score check examines every assumption in depth.
+follow-up on baseline adjusted for arm, and the number of complete pairs. The check is descriptive:
+it judges nothing about the planned analysis, so its verdict is sound whenever the numbers can be
+computed. Whether a change score suits the data (slope 1, Clifton and Clifton 2019; correlation
+above 0.5, Frison and Pocock 1992) is judged by the change-score check, and selection on baseline by
+the regression-to-the-mean check. The two descriptive sub-findings set these numbers beside 1 and 0.5
+as reading aids only.
 """
 
 from __future__ import annotations
@@ -18,13 +20,13 @@ from ..references import cite
 from ..results import Figure, SubFinding, Table, Verdict
 from ..stats.correlation import pearson, spearman
 from ..stats.linear import arm_indicators, fit_ols
-from .common import arms_present, complete_pairs, estimate, fmt, fmt_ci, result, thin
+from .common import arms_present, complete_pairs, estimate, fmt_ci, result, thin
 from .registry import CheckContext, register
 
 CHECK_ID = "pre-post"
 RHO_HALF = 0.5
-"""Below this correlation a change score is less precise than ignoring baseline (Frison and Pocock 1992,
-equal variances)."""
+"""Reference value shown beside r: below it a change score is less precise than ignoring baseline
+(Frison and Pocock 1992, equal variances). Descriptive here; the change-score check judges it."""
 
 
 def _applies(spec, design) -> bool:
@@ -90,33 +92,10 @@ def run(data, ctx: CheckContext):
                             ["Arm", "N", "Pearson r", "lower", "upper", "Spearman rho", "lower", "upper"],
                             rows, by_arm=True))
 
-    slope_ok = s_lo <= 1.0 <= s_hi
-    rho_ok = pr.r >= RHO_HALF
-    subs = [
-        SubFinding("slope-one", "Is the slope of follow-up on baseline compatible with 1?",
-                   Verdict.SOUND if slope_ok else Verdict.CAUTION,
-                   f"slope {fmt_ci(slope, s_lo, s_hi)}; {'includes' if slope_ok else 'excludes'} 1"),
-        SubFinding("correlation-half", "Is baseline correlated with follow-up at 0.5 or more?",
-                   Verdict.SOUND if rho_ok else Verdict.CAUTION,
-                   f"Pearson r {fmt_ci(pr.r, pr.lower, pr.upper)}"),
-    ]
-    change_planned = data.spec.planned_analysis in ("change", "responder")
-    if slope_ok and rho_ok:
-        verdict = Verdict.SOUND
-        headline = (f"Follow-up tracks baseline: slope {fmt_ci(slope, s_lo, s_hi)} and r {fmt(pr.r)} "
-                    f"in {len(df)} participants, consistent with analysing change.")
-    elif not rho_ok and not slope_ok and change_planned:
-        verdict = Verdict.UNSUPPORTED
-        headline = (f"Baseline predicts follow-up weakly (r {fmt(pr.r)}) and the slope "
-                    f"{fmt_ci(slope, s_lo, s_hi)} excludes 1: subtracting baseline adds noise.")
-    else:
-        verdict = Verdict.CAUTION
-        why = []
-        if not slope_ok:
-            why.append(f"slope {fmt_ci(slope, s_lo, s_hi)} excludes 1")
-        if not rho_ok:
-            why.append(f"r {fmt(pr.r)} is below 0.5")
-        headline = f"Pre-post relationship departs from what a change score needs: {'; '.join(why)}."
+    subs = descriptive_subfindings(slope, s_lo, s_hi, pr)
+    kind = "arm-adjusted slope" if len(arms) > 1 else "slope"
+    headline = (f"Follow-up relates to baseline with {kind} {fmt_ci(slope, s_lo, s_hi)} and Pearson r "
+                f"{fmt_ci(pr.r, pr.lower, pr.upper)} in {len(df)} participants.")
 
     shown, note = thin(df, ctx.seed)
     if arms:
@@ -131,12 +110,28 @@ def run(data, ctx: CheckContext):
                      "xlabel": _axis(data.spec, "Baseline"), "ylabel": _axis(data.spec, "Follow-up")},
                     caption="Dashed: identity line (follow-up = baseline). Solid: LOWESS smooth, pooled." + note,
                     by_arm=bool(arms))
-    return result(check, data, verdict, headline, subfindings=subs, estimates=estimates, tables=tables,
+    return result(check, data, Verdict.SOUND, headline, subfindings=subs, estimates=estimates, tables=tables,
                   figures=[figure],
                   references=cite(["frison-pocock-1992", "clifton-2019", "fieller-1957", "cleveland-1979"]),
                   method="Pearson r with Fisher z interval; Spearman rho with the Fieller-Hartley-Pearson "
                          "interval; least-squares slope of follow-up on baseline with arm as a factor; "
                          "t-based 95% CI.")
+
+
+def descriptive_subfindings(slope: float, s_lo: float, s_hi: float, pr) -> list[SubFinding]:
+    """Where the slope stands against 1 and r against 0.5, as description (verdict sound): what a
+    change score would need is judged by the change-score check, not here."""
+    inside = "includes" if s_lo <= 1.0 <= s_hi else "excludes"
+    side = "at or above" if pr.r >= RHO_HALF else "below"
+    return [
+        SubFinding("slope-one", "Where does the slope of follow-up on baseline stand against 1?", Verdict.SOUND,
+                   f"slope {fmt_ci(slope, s_lo, s_hi)}; its interval {inside} 1 (descriptive; the change-score "
+                   f"check judges what this means for the planned analysis)"),
+        SubFinding("correlation-half", "Where does the correlation of baseline with follow-up stand against 0.5?",
+                   Verdict.SOUND,
+                   f"Pearson r {fmt_ci(pr.r, pr.lower, pr.upper)}, {side} {RHO_HALF:g} (descriptive; the "
+                   f"change-score check judges what this means for the planned analysis)"),
+    ]
 
 
 def _axis(spec, what: str) -> str:

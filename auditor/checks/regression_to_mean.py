@@ -45,9 +45,18 @@ MIN_SELECTED = 20
 MIN_PAIRS = 10
 """Fewest complete pairs for a slope, an ICC or an observed mean change (convention)."""
 MATERIAL_SHARE = 0.10
-"""Expected RTM of at least this share of the observed change is material (convention of this tool)."""
+"""The descriptive ``observed`` sub-finding is a caution when the expected shift is at least this share
+of the observed change (convention of this tool); it does not set the check's verdict."""
 MATERIAL_SD = 0.10
-"""Expected RTM of at least this many population SDs is material (convention of this tool)."""
+"""The one materiality threshold of the check: an expected shift is material when its whole confidence
+interval lies beyond this many SDs of the unselected population (sigma, on the analysis scale), on the
+side of the shift (convention of this tool)."""
+WITHIN_ARM_DESIGNS = ("single-arm",)
+"""Designs whose effect is a within-arm (before-after) change, which carries regression to the mean
+in full; in a randomised parallel design it affects both arms alike and the contrast is not biased."""
+BIASED_BY_RTM = ("within-arm change, before-after claims, readings of baseline subgroups (those who start "
+                 "worse seeming to benefit more) and responder shares")
+"""What regression to the mean biases in a randomised parallel trial."""
 NEGLIGIBLE_EXCLUDED = 0.01
 """A declared criterion whose cutoff leaves less than this share of the fitted unselected population
 on its excluded side selects no one out (convention of this tool)."""
@@ -60,8 +69,6 @@ DRAWS_FULL, DRAWS_QUICK = 4000, 1000
 """Parametric bootstrap draws for the CI of the expected RTM."""
 NULL_FULL, NULL_QUICK = 999, 499
 """Null samples for the Monte Carlo p-value of the edge test."""
-CHANGE_PLANS = ("change", "percent-change", "responder")
-"""Planned analyses whose within-participant change carries the RTM bias directly."""
 
 _READINGS = ("screening", "entry_value", "baseline", "followup")
 
@@ -879,33 +886,48 @@ def expected_in_change(data, ctx, rd, scale, sel, rtm, rel, out: Out) -> tuple[I
 # ----------------------------------------------------------------------------- verdict and headline
 
 
-def is_material(target: Interval, observed: float, sigma: float) -> bool:
-    """CI excludes 0 and the size is at least MATERIAL_SHARE of the observed change or MATERIAL_SD
-    population SDs."""
-    excludes = target.lower > 0 or target.upper < 0
-    size = abs(target.estimate)
-    return bool(excludes and (size >= MATERIAL_SHARE * abs(observed) or size >= MATERIAL_SD * sigma))
+def is_material(target: Interval, sigma: float) -> bool:
+    """The whole interval of the expected shift lies beyond MATERIAL_SD population SDs on one side."""
+    threshold = MATERIAL_SD * sigma
+    return bool(target.upper < -threshold or target.lower > threshold)
 
 
-def decide(spec, design, material: bool, no_one_out: bool = False) -> Verdict:
-    """Unsupported when a material expected change meets a plan that carries it; sound when the
-    declared criterion selects no one out and the computed expected change is not material; else
-    caution (a real selection)."""
-    if material and (spec.planned_analysis in CHANGE_PLANS or design == "single-arm"):
-        return Verdict.UNSUPPORTED
+def decide(design, material: bool, no_one_out: bool = False) -> Verdict:
+    """Single-arm (before-after) design: unsupported when the shift is material, else caution.
+    Randomised parallel design: caution when material, else sound, since the randomised contrast is
+    not biased by it. A declared criterion that selects no one out, with no material shift: sound."""
     if no_one_out and not material:
         return Verdict.SOUND
-    return Verdict.CAUTION
+    if design in WITHIN_ARM_DESIGNS:
+        return Verdict.UNSUPPORTED if material else Verdict.CAUTION
+    return Verdict.CAUTION if material else Verdict.SOUND
 
 
-def bias_sub(spec, sel, target: Interval, scale, material: bool, verdict: Verdict, by_arm: bool, out: Out) -> None:
+def sd_text(target: Interval, sigma: float, log: bool = False) -> str:
+    """'0.46 SD (0.38 to 0.55)': the size of a shift in SDs of the unselected population."""
+    a, b = sorted((abs(target.lower), abs(target.upper)))
+    unit = "SD of log values" if log else "SD"
+    if target.lower <= 0 <= target.upper:
+        return (f"{target.estimate / sigma:+.2f} {unit} ({target.lower / sigma:+.2f} to "
+                f"{target.upper / sigma:+.2f})")
+    return f"{abs(target.estimate) / sigma:.2f} {unit} ({a / sigma:.2f} to {b / sigma:.2f})"
+
+
+def material_rule(design) -> str:
+    rule = (f"material when the whole interval lies beyond {MATERIAL_SD:g} SD of the unselected population "
+            f"(a convention of this tool)")
+    if design in WITHIN_ARM_DESIGNS:
+        return f"{rule}; single-arm design: the before-after change carries it in full"
+    return f"{rule}; randomised parallel design: it affects both arms alike, so caution at most"
+
+
+def bias_sub(spec, design, sel, target: Interval, sigma: float, scale, material: bool, verdict: Verdict,
+             by_arm: bool, out: Out) -> None:
     def t(v):
         return value_text(v, scale, spec.unit)
 
-    size = f"{t(target.estimate)} ({t(target.lower)} to {t(target.upper)})"
-    rule = (f"material: a CI excluding 0 and at least {MATERIAL_SHARE:.0%} of the observed change or "
-            f"{MATERIAL_SD:g} population SD")
-    judged = f"{'material' if material else 'not material'} ({rule}); planned analysis: {spec.planned_analysis}"
+    size = f"{t(target.estimate)} ({t(target.lower)} to {t(target.upper)}), {sd_text(target, sigma, scale.log)}"
+    judged = f"{'material' if material else 'not material'} ({material_rule(design)})"
     if sel.column == "baseline":
         out.sub("bias", "Is the analysis baseline the reading that decided entry?", verdict,
                 f"yes: the change from baseline carries the whole expected regression to the mean, {size}: {judged}",
@@ -917,22 +939,17 @@ def bias_sub(spec, sel, target: Interval, scale, material: bool, verdict: Verdic
 
 
 def share_clause(value: float, obs: Change) -> str:
-    """'64% of the fall seen on Placebo' (or the opposite-sign wording)."""
-    if obs.mean == 0 or np.sign(obs.mean) != np.sign(value):
-        return f"while the change seen {obs.where} was the other way"
+    """'64% of the fall seen on Placebo' (for an observed change of the same sign as ``value``)."""
     return f"{100 * value / obs.mean:.0f}% of the {'fall' if obs.mean < 0 else 'rise'} seen {obs.where}"
 
 
-def recommendation(spec, design, second_share: float | None) -> str:
+def recommendation(design, second_share: float | None) -> str:
+    """What would reduce the shift: a second, later baseline; without a control arm, a concurrent control."""
     second = (f"a second, later baseline would remove about {100 * second_share:.0f}% of it"
               if second_share is not None else "")
-    if design == "single-arm":
-        return ("without a control arm it cannot be told apart from a treatment effect; "
-                + (f"{second}, or add a concurrent control" if second else "add a concurrent control"))
-    if spec.planned_analysis in CHANGE_PLANS:
-        return f"{second}, or compare arms by ANCOVA" if second else "compare arms by ANCOVA"
-    return ("the planned comparison between arms does not subtract baseline and is not biased by it, but "
-            "within-arm changes are" + (f"; {second}" if second else ""))
+    if design in WITHIN_ARM_DESIGNS:
+        return f"{second}, or add a concurrent control" if second else "add a concurrent control"
+    return second
 
 
 def no_one_out_headline(spec, sel, finds, scale, rtm, target, share_out: float) -> str:
@@ -950,20 +967,48 @@ def share_text(share: float) -> str:
     return f"{pct:.1f}%" if pct >= 0.05 or pct == 0 else "less than 0.1%"
 
 
-def headline(spec, design, sel, finds, scale, rtm, target, obs, second, ctx) -> str:
+def consequence(spec, design, sel, scale, target: Interval, sigma: float, material: bool) -> str:
+    """The first sentence of the headline: the expected shift in the analysed change with its interval,
+    its size in SDs, and what it does and does not bias in this design."""
+    size = amount(target.estimate, target.lower, target.upper, scale, spec.unit)
+    where = ("the change from baseline" if sel.column == "baseline" else
+             f"the change from baseline ({spec.baseline_visit}, after entry was decided at {sel.visit})")
+    lead = f"Regression to the mean alone is expected to shift {where} by {size}, {sd_text(target, sigma, scale.log)}"
+    beyond = (f"wholly beyond the {MATERIAL_SD:g} SD threshold of materiality" if material else
+              f"not wholly beyond the {MATERIAL_SD:g} SD threshold of materiality")
+    if design in WITHIN_ARM_DESIGNS:
+        if material:
+            return f"{lead}, {beyond}: without a control arm the before-after change cannot be told apart from it."
+        return (f"{lead}, {beyond}; without a control arm a before-after change may still include part of "
+                f"it.")
+    if material:
+        return (f"{lead}, {beyond}, in every arm alike: it biases {BIASED_BY_RTM}; the randomised comparison "
+                f"between arms is not biased by it.")
+    return f"{lead}, {beyond}; the randomised comparison between arms is not biased by it in any case."
+
+
+def evidence(spec, design, sel, finds, scale, rtm, target, obs, second, ctx) -> str:
+    """The second part of the headline: the selection, the expected change from the entry reading when
+    it is not the baseline, the share of the observed change, and what would reduce the shift."""
     lead = _criterion_text(spec, sel, finds)
-    size = amount(rtm.estimate, rtm.lower, rtm.upper, scale, spec.unit)
     inside = "inside" if target.lower <= obs.mean <= target.upper else "outside"
     seen = ("blinded audit: " if ctx.blinded else "") + value_text(obs.mean, scale, spec.unit)
-    if sel.column == "baseline":
-        share = share_clause(rtm.estimate, obs)
-        return (f"{lead}: regression to the mean alone predicts {size} from baseline, {share} ({seen}, {inside} "
-                f"that interval); {recommendation(spec, design, second)}.")
-    left = amount(target.estimate, target.lower, target.upper, scale, spec.unit)
-    share = share_clause(target.estimate, obs)
-    return (f"{lead}: regression to the mean alone predicts {size} from {sel.visit}; the analysis baseline "
-            f"({spec.baseline_visit}) is a later reading, which leaves {left} in the change from baseline, "
-            f"{share} ({seen}, {inside} that interval).")
+    parts = [lead[0].lower() + lead[1:] if sel.source == "criterion" else lead]
+    if sel.column != "baseline":
+        parts.append(f"regression to the mean from {sel.visit} is "
+                     f"{amount(rtm.estimate, rtm.lower, rtm.upper, scale, spec.unit)}")
+    if obs.mean == 0 or np.sign(obs.mean) != np.sign(target.estimate):
+        parts.append(f"the change seen {obs.where} went the other way ({seen}, {inside} its interval)")
+    else:
+        parts.append(f"the expected shift is {share_clause(target.estimate, obs)} ({seen}, {inside} its interval)")
+    advice = recommendation(design, second)
+    return "Evidence: " + "; ".join(parts) + (f". {advice[0].upper()}{advice[1:]}." if advice else ".")
+
+
+def headline(spec, design, sel, finds, scale, rtm, target, obs, second, ctx, sigma, material) -> str:
+    """Consequence first, with its interval; then the evidence."""
+    return (f"{consequence(spec, design, sel, scale, target, sigma, material)} "
+            f"{evidence(spec, design, sel, finds, scale, rtm, target, obs, second, ctx)}")
 
 
 def caveats(ctx, rel, out: Out) -> None:
@@ -993,8 +1038,8 @@ def no_selection_result(check, data, finds, out: Out):
     why = (f"no entry criterion declared; no truncation edge: {tested}" if finds else
            "no entry criterion declared; too few distinct values to look for a truncation edge")
     return result(check, data, Verdict.SOUND,
-                  f"No selection on this outcome: regression to the mean is not expected to bias the comparison "
-                  f"({why}).", subfindings=out.subfindings, estimates=out.estimates,
+                  f"No selection on this outcome was declared or detected: regression to the mean is not expected "
+                  f"to bias within-arm change or the comparison ({why}).", subfindings=out.subfindings, estimates=out.estimates,
                   references=cite(["barnett-2005"]), method=_METHOD)
 
 
@@ -1036,15 +1081,20 @@ def run(data, ctx: CheckContext):
     model_check_sub(spec, scale, rtm, pre, out)
     shrinkage_section(spec, rd, scale, rho, sel, rel, out)
     second = second_baseline_share(data, ctx, rd, scale, sel, rel, rho, out)
-    material = is_material(target, obs.mean, scale.fit.sigma)
-    verdict = decide(spec, data.design, material, no_one_out)
-    bias_sub(spec, sel, target, scale, material, verdict, target_by_arm, out)
+    sigma = scale.fit.sigma
+    material = is_material(target, sigma)
+    verdict = decide(data.design, material, no_one_out)
+    out.estimates.append(estimate("Expected shift in the analysed change, in SDs of the unselected population",
+                                  target.estimate / sigma, target.lower / sigma, target.upper / sigma,
+                                  note=f"material when the whole interval lies beyond {MATERIAL_SD:g} SD "
+                                       f"(convention of this tool)", by_arm=target_by_arm))
+    bias_sub(spec, data.design, sel, target, sigma, scale, material, verdict, target_by_arm, out)
     figures = [f for f in (pairs_figure(spec, rd, scale, sel, rel), truncation_figure(spec, rd, scale, sel)) if f]
     out.figures = figures + out.figures + [
         comparison_figure(spec, scale, figure_rows(sel, rtm, target, obs, pre), by_arm)]
     caveats(ctx, rel, out)
-    text = (no_one_out_headline(spec, sel, finds, scale, rtm, target, share_out) if verdict == Verdict.SOUND
-            else headline(spec, data.design, sel, finds, scale, rtm, target, obs, second, ctx))
+    text = (no_one_out_headline(spec, sel, finds, scale, rtm, target, share_out) if no_one_out and not material
+            else headline(spec, data.design, sel, finds, scale, rtm, target, obs, second, ctx, sigma, material))
     return result(check, data, verdict, text,
                   subfindings=out.subfindings, estimates=out.estimates, figures=out.figures, caveats=out.caveats,
                   references=cite(["barnett-2005", "shrout-fleiss-1979", "pearson-1903", "cohen-1991",

@@ -557,17 +557,48 @@ class EdgeScale:
     """``raw``, ``log`` or ``Box-Cox power 0.32``."""
 
 
+BOXCOX_POWER_BOUND = 2.0
+"""The Box-Cox power of the edge test's scale is bounded to [-2, 2] (convention of this tool). A
+normal sample kept above its 50th to 75th percentile asks for maximum-likelihood powers of about -4
+to -14, driven by the cut itself; at such powers ``x ** power`` loses the values' spread to floating
+point and the edge test could not run."""
+
+
+def boxcox_power(values) -> float | None:
+    """The Box-Cox power that makes positive ``values`` most nearly normal, by maximum likelihood
+    (Box and Cox 1964; scipy.stats.boxcox_normmax), bounded to +-BOXCOX_POWER_BOUND; None when the
+    search does not return a finite power. The values are divided by their geometric mean first: the
+    maximum-likelihood power is unchanged by rescaling, and the search stays away from overflow."""
+    x = np.asarray(values, dtype=float)
+    scaled = x / np.exp(np.mean(np.log(x)))
+    with np.errstate(all="ignore"):
+        power = float(stats.boxcox_normmax(scaled, method="mle"))
+    if not np.isfinite(power):
+        return None
+    return float(np.clip(power, -BOXCOX_POWER_BOUND, BOXCOX_POWER_BOUND))
+
+
+def _keeps_spread(original: np.ndarray, transformed: np.ndarray) -> bool:
+    """True when a transform left every value finite and kept every distinct value distinct (a
+    monotone transform can only merge values through rounding)."""
+    return bool(np.all(np.isfinite(transformed))
+                and len(np.unique(transformed)) == len(np.unique(original)))
+
+
 def edge_test_scale(values, declared_log: bool | None = None) -> EdgeScale:
     """``values`` on the scale where the truncation-edge test's normal reference is most plausible.
 
     The edge test reads any tail shorter than a normal one as a cut, so a skewed but untruncated
     sample is a false alarm on the raw scale, and a gamma-like one (a count with a long right tail)
     still is on the log scale, whose upper tail is short. Positive values are therefore given the
-    Box-Cox power that makes them most nearly normal, by maximum likelihood (Box and Cox 1964;
-    scipy.stats.boxcox); non-negative values with zeros are shifted by 0.5 first. A sharp cut
+    Box-Cox power that makes them most nearly normal (:func:`boxcox_power`, bounded to
+    +-BOXCOX_POWER_BOUND); non-negative values with zeros are shifted by 0.5 first. A sharp cut
     survives every monotone transform, so an edge is still found. Powers within 0.1 of 1 are kept
     as the raw scale and within 0.1 of 0 as the log (conventions of this tool); a declared
-    ``log_scale`` decides instead. Values with a negative stay raw.
+    ``log_scale`` decides instead. Values with a negative stay raw. The transform is applied to the
+    values divided by their geometric mean, an affine change of ``(x ** power - 1) / power`` that
+    leaves the (location- and scale-invariant) edge test unchanged; should it still merge distinct
+    values, the raw scale is used.
     """
     v = np.asarray(values, dtype=float)
     if declared_log is not None:
@@ -577,13 +608,18 @@ def edge_test_scale(values, declared_log: bool | None = None) -> EdgeScale:
     if np.any(v < 0) or np.ptp(v) == 0:
         return EdgeScale(v, "raw")
     shifted = v + 0.5 if np.any(v == 0) else v
-    power = float(stats.boxcox_normmax(shifted, method="mle"))
-    if not np.isfinite(power) or abs(power - 1.0) < 0.1:
+    power = boxcox_power(shifted)
+    if power is None or abs(power - 1.0) < 0.1:
         return EdgeScale(v, "raw")
     if abs(power) < 0.1:
         return EdgeScale(np.log(shifted), "log")
     power = round(power, 2)
-    return EdgeScale((shifted ** power - 1.0) / power, f"Box-Cox power {power:g}")
+    scaled = shifted / np.exp(np.mean(np.log(shifted)))
+    with np.errstate(all="ignore"):
+        transformed = (scaled ** power - 1.0) / power
+    if not _keeps_spread(v, transformed):
+        return EdgeScale(v, "raw")
+    return EdgeScale(transformed, f"Box-Cox power {power:g}")
 
 
 @dataclass(frozen=True)

@@ -458,3 +458,38 @@ def test_edge_scale_names_and_declared_scale():
     assert edge_test_scale(np.exp(rng.normal(3, 0.8, 50)), declared_log=False).name == "raw"
     declared = edge_test_scale(np.array([1.0, 2.0, 4.0]), declared_log=True)
     assert declared.name == "log" and np.allclose(declared.values, np.log([1, 2, 4]))
+
+
+@pytest.mark.parametrize("mu, sd, kept_above", [(50.0, 9.0, 0.5), (140.0, 18.0, 0.75), (300.0, 20.0, 0.6)])
+def test_edge_scale_survives_a_normal_sample_kept_above_its_median_or_upper_quartile(mu, sd, kept_above):
+    # Known truth: a normal sample kept above its 50th-75th percentile is truncated. Its maximum-likelihood
+    # Box-Cox power is about -5 to -14 (computed during development with scipy.stats.boxcox_normmax),
+    # at which x ** power had no spread left in floating point and the edge test raised "the values
+    # are all equal". The power is now bounded (BOXCOX_POWER_BOUND, a convention of this tool), the
+    # values keep their spread, and the cut is found.
+    from auditor.stats.rtm import BOXCOX_POWER_BOUND, boxcox_power, edge_test_scale, truncation_edge_test
+
+    rng = np.random.default_rng(17)
+    x = rng.normal(mu, sd, 1200)
+    x = x[x >= np.quantile(x, kept_above)]
+    assert abs(boxcox_power(x)) <= BOXCOX_POWER_BOUND
+    scale = edge_test_scale(x)
+    assert np.all(np.isfinite(scale.values)) and len(np.unique(scale.values)) == len(np.unique(x))
+    assert np.all(np.diff(scale.values[np.argsort(x)]) > 0)  # monotone increasing in x
+    assert truncation_edge_test(scale.values, side="either", n_null=199, seed=5).p_value < 0.05
+
+
+def test_edge_scale_power_is_scale_invariant_and_in_bounds_values_are_affine():
+    # The Box-Cox MLE power does not depend on the units (rescaling y adds a constant to the profile
+    # log-likelihood; Box and Cox 1964), so dividing by the geometric mean changes only an affine
+    # transform of (x ** power - 1) / power, which the location- and scale-invariant edge test ignores.
+    from auditor.stats.rtm import boxcox_power, edge_test_scale
+
+    rng = np.random.default_rng(3)
+    x = rng.gamma(4.0, 5.0, 400)
+    assert boxcox_power(x) == pytest.approx(boxcox_power(1000 * x), abs=1e-3)
+    scale = edge_test_scale(x)
+    power = float(scale.name.split()[-1])
+    direct = (x ** power - 1) / power
+    slope, intercept = np.polyfit(direct, scale.values, 1)
+    assert np.allclose(intercept + slope * direct, scale.values, rtol=1e-9, atol=1e-9)
