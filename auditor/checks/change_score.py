@@ -14,12 +14,13 @@ import numpy as np
 
 from ..references import add_reference, cite
 from ..results import Figure, SubFinding, Table, Verdict
-from ..stats.ancova import fit_analyses, interaction_test, linearity_test, spline_columns
+from ..stats.ancova import Effect, fit_analyses, interaction_test, linearity_test, spline_columns
 from ..stats.correlation import pearson
-from ..stats.diagnostics import (at_bound_tolerance, bound_shares, boxcox_lr_pvalue, boxcox_profile, granularity,
+from ..stats.diagnostics import (at_bound_tolerance, bound_shares, boxcox_lr_pvalue, boxcox_profile, category_columns,
+                                 granularity,
                                  holm_adjust, share_at_bound, skewness, slope_test, spread_trend_test)
 from ..stats.efficiency import compare_with_ci, empirical_ratio, own_cost
-from ..stats.linear import arm_indicators, fit_ols
+from ..stats.linear import arm_indicators, f_test, fit_ols
 from ..stats.rtm import edge_test_scale, truncation_edge_test
 from ..stats.splines import choose_knots
 from .common import arms_present, complete_pairs, estimate, fmt, fmt_ci, fmt_p, result, thin
@@ -45,6 +46,9 @@ EDGE_NEAR_BOUND = 0.02
 """A baseline extreme within this share of a finite declared bound range from the bound (or at an
 infinite range's finite end) is the scale's edge, not a selection: the edge test skips that side
 (convention of this tool)."""
+CATEGORY_LEVELS = 4
+"""A baseline with at most this many distinct values enters the flexible ANCOVA as categories, not a
+spline or quadratic (which is singular on two levels; convention of this tool)."""
 SKEW_FOR_LOG = 1.0
 """Positive values with skewness above this are examined on the log scale (convention)."""
 
@@ -71,6 +75,56 @@ class Part:
     sub: SubFinding
     estimates: list
     phrase: str = ""
+
+
+@dataclass(frozen=True)
+class BaselineModel:
+    """How baseline enters the flexible ANCOVA: the spline plan, or categories for few levels."""
+
+    plan: object
+    levels: tuple | None = None
+    """The distinct baseline values when entered as categories (at most CATEGORY_LEVELS), else None."""
+
+    @property
+    def what(self) -> str:
+        if self.levels is not None:
+            return f"baseline as {len(self.levels)} categories"
+        return ("quadratic term" if self.plan.kind == "quadratic"
+                else f"restricted cubic spline, {len(self.plan.knots)} knots")
+
+    def columns(self, x) -> dict:
+        x = np.asarray(x, dtype=float)
+        return category_columns(x, self.levels) if self.levels is not None else spline_columns(x, self.plan)
+
+    def grid(self, b):
+        return (np.asarray(self.levels, dtype=float) if self.levels is not None
+                else np.linspace(np.min(b), np.max(b), 80))
+
+    def reference(self, b) -> float:
+        """The baseline value the translations are taken at: the median (the nearest level for categories)."""
+        med = float(np.median(b))
+        if self.levels is None:
+            return med
+        lv = np.asarray(self.levels, dtype=float)
+        return float(lv[np.argmin(np.abs(lv - med))])
+
+
+def baseline_model(b) -> BaselineModel:
+    levels = np.unique(np.asarray(b, dtype=float))
+    if len(levels) <= CATEGORY_LEVELS:
+        return BaselineModel(choose_knots(b), tuple(float(v) for v in levels))
+    return BaselineModel(choose_knots(b))
+
+
+def flexible_linearity(b, f, arm_cols, model: BaselineModel):
+    """(test or None, flexible fit): the nonlinearity F test of the flexible baseline against the linear one.
+    None when the flexible model adds nothing (two baseline levels: the line fits each level exactly)."""
+    if model.levels is None:
+        test, _, flex = linearity_test(b, f, arm_cols, model.plan)
+        return test, flex
+    lin = fit_ols(f, {"baseline": np.asarray(b, dtype=float), **arm_cols})
+    flex = fit_ols(f, {**model.columns(b), **arm_cols})
+    return (f_test(lin, flex) if len(model.levels) > 2 else None), flex
 
 
 def _verdict(ok: bool, soft: bool = False) -> Verdict:
@@ -178,9 +232,13 @@ def declared_selection_part(data, ctx) -> Part:
                 "participants were selected on this measurement, so regression to the mean is expected")
 
 
-def linearity_part(test, plan, p_adj) -> Part:
+def linearity_part(test, model: BaselineModel, p_adj) -> Part:
     q = "Is follow-up linear in baseline?"
-    what = "quadratic term" if plan.kind == "quadratic" else f"restricted cubic spline, {len(plan.knots)} knots"
+    what = model.what
+    if test is None:
+        return Part(SubFinding("linearity", q, Verdict.SOUND,
+                               f"baseline takes {len(model.levels)} values, so a line fits each of them exactly: "
+                               f"there is no nonlinearity to test ({what})"), [])
     ps = f"{fmt_p(test.p_value)}, Holm-adjusted {fmt_p(p_adj)}"
     ev = f"F = {fmt(test.statistic)} on {test.df_num} and {fmt(test.df_den, 0)} df, {ps} ({what})"
     ok = p_adj >= ALPHA
@@ -311,16 +369,37 @@ def _cost_ci(cost) -> str:
 # ----------------------------------------------------------------------------- consequences
 
 
-def analyses_table(df, arms, control, plan):
-    fits = fit_analyses(df["baseline"], df["followup"], df["arm"].to_numpy(), arms, control, plan)
-    rows = [[e.analysis, e.contrast, e.estimate, e.se, e.lower, e.upper, e.p_value] for e in fits.effects]
+def _analyses(df, arms, control, model: BaselineModel):
+    """The four analyses side by side; with a categorical baseline the flexible ANCOVA uses categories."""
+    if model.levels is None:
+        return fit_analyses(df["baseline"], df["followup"], df["arm"].to_numpy(), arms, control, model.plan).effects
+    b, f = df["baseline"].to_numpy(dtype=float), df["followup"].to_numpy(dtype=float)
+    cols = arm_indicators(df["arm"].to_numpy(), arms, control)
+    out = []
+    for name, y, extra in (("follow-up only", f, {}), ("change score", f - b, {}),
+                           ("ANCOVA, linear baseline", f, {"baseline": b}),
+                           ("ANCOVA, baseline as categories", f, model.columns(b))):
+        fit = fit_ols(y, {**extra, **cols})
+        for k in cols:
+            est, lo, hi = fit.ci(k)
+            out.append(Effect(name, k[4:-1], est, float(fit.se[fit.index(k)]), lo, hi, fit.p_value(k), fit.df_resid))
+    return out
+
+
+FLEXIBLE_ROWS = ("ANCOVA, spline baseline", "ANCOVA, baseline as categories")
+
+
+def analyses_table(df, arms, control, model: BaselineModel):
+    effects = _analyses(df, arms, control, model)
+    rows = [[e.analysis, e.contrast, e.estimate, e.se, e.lower, e.upper, e.p_value] for e in effects]
     table = Table("analyses", "Treatment effect under each analysis, fitted on the same participants",
                   ["Analysis", "Arm vs control", "Effect", "SE", "lower", "upper", "p"], rows,
                   note="Effects on the outcome's scale (follow-up difference); ANCOVA with spline baseline is "
                        "the recommended reference.", by_arm=True)
-    se = {(e.analysis, e.contrast): e.se for e in fits.effects}
-    contrast = fits.effects[0].contrast
-    ratio_anc = empirical_ratio(se[("change score", contrast)], se[("ANCOVA, spline baseline", contrast)])
+    se = {(e.analysis, e.contrast): e.se for e in effects}
+    contrast = effects[0].contrast
+    flexible = next(a for a in FLEXIBLE_ROWS if (a, contrast) in se)
+    ratio_anc = empirical_ratio(se[("change score", contrast)], se[(flexible, contrast)])
     ratio_fu = empirical_ratio(se[("change score", contrast)], se[("follow-up only", contrast)])
     ests = [
         estimate(f"Empirical sample-size ratio, change / spline ANCOVA ({contrast})", ratio_anc,
@@ -328,10 +407,10 @@ def analyses_table(df, arms, control, plan):
         estimate(f"Empirical sample-size ratio, change / follow-up only ({contrast})", ratio_fu,
                  note="(SE change / SE follow-up)^2 from the fitted analyses", by_arm=True),
     ]
-    return table, ests, ratio_anc, fits
+    return table, ests, ratio_anc, effects
 
 
-def ordinal_alternative(df, arms, control, plan):
+def ordinal_alternative(df, arms, control, model: BaselineModel):
     """Proportional-odds ANCOVA of follow-up on the flexible baseline plus arm (McCullagh 1980).
 
     Returns (rows for the analyses table, a table of clinician-scale translations, a reason when it
@@ -341,7 +420,7 @@ def ordinal_alternative(df, arms, control, plan):
     """
     from ..stats import ordinal as po
 
-    cols = {**spline_columns(df["baseline"].to_numpy(), plan), **arm_indicators(df["arm"].to_numpy(), arms, control)}
+    cols = {**model.columns(df["baseline"].to_numpy()), **arm_indicators(df["arm"].to_numpy(), arms, control)}
     names = list(cols)
     X = np.column_stack([cols[k] for k in names])
     y = df["followup"].to_numpy()
@@ -349,7 +428,7 @@ def ordinal_alternative(df, arms, control, plan):
         fit = po.fit_proportional_odds(y, X, names=names)
     except po.OrdinalFitError as exc:
         return [], None, f"the proportional-odds ANCOVA could not be fitted: {exc.reason}"
-    ref = {k: v[0] for k, v in spline_columns(np.array([float(np.median(df["baseline"]))]), plan).items()}
+    ref = {k: v[0] for k, v in model.columns(np.array([model.reference(df["baseline"])])).items()}
     rows, trans = [], []
     quartiles = sorted(set(np.quantile(y, [0.25, 0.5, 0.75]).tolist()))
     for arm_name in [k for k in names if k.startswith("arm[")]:
@@ -422,14 +501,14 @@ def repeated_caveat_and_fit(data, ctx, arms):
 # ----------------------------------------------------------------------------- figures
 
 
-def _figures(data, df, arms, flex_fit, plan, seed):
+def _figures(data, df, arms, flex_fit, model: BaselineModel, seed):
     spec = data.spec
     shown, note = thin(df.assign(fitted=flex_fit.fitted, resid=flex_fit.resid), seed)
     unit = f" ({spec.unit})" if spec.unit else ""
     b, f = df["baseline"].to_numpy(), df["followup"].to_numpy()
-    grid = np.linspace(b.min(), b.max(), 80)
+    grid = model.grid(b)
     groups_fu = _groups(shown, arms, "baseline", "followup")
-    basis = spline_columns(grid, plan)
+    basis = model.columns(grid)
     names = flex_fit.names[1:]
     curves = []
     for arm in (arms or [None]):
@@ -504,7 +583,7 @@ def decide(planned: str, parts: dict[str, Part], r, cost) -> tuple[Verdict, str]
             why = "; ".join(soft[:3])
             tail = f"; {why}" if why else "; its interval reaches below that threshold"
             return Verdict.CAUTION, (f"{lead}, {where} the {material}{tail}"
-                                     f"{'; ' + alt if ordinal else ''}.")
+                                     f"{'; consider ANCOVA or proportional odds instead' if ordinal else ''}.")
         slope = parts["slope"]
         note = (f"; the slope {slope.phrase[6:]} differs detectably from 1 but costs no more than this"
                 if slope.sub.verdict != Verdict.SOUND else "")
@@ -537,24 +616,24 @@ def run(data, ctx: CheckContext):
     arms = arms_present(df, data, ctx)
     control = data.control_arm if data.control_arm in arms else (arms[0] if arms else None)
     arm_cols = arm_indicators(df["arm"].to_numpy(), arms, control) if len(arms) > 1 else {}
-    plan = choose_knots(df["baseline"].to_numpy())
+    model = baseline_model(df["baseline"].to_numpy())
 
     b, f = df["baseline"].to_numpy(), df["followup"].to_numpy()
     # The assumption tests behind a caution (edge, linearity, spread, Box-Cox, slope), Holm-adjusted together
     # at the family-wise level ALPHA.
     edge, edge_scale, edge_note = edge_test(data, df, ctx)
-    lin_test, _, flex_fit = linearity_test(b, f, arm_cols, plan)
+    lin_test, flex_fit = flexible_linearity(b, f, arm_cols, model)
     trend = spread_trend_test(flex_fit.resid, b)
     prof = boxcox_profile(f, b, arm_cols) if np.all(b > 0) and np.all(f > 0) else None
     p_boxcox = boxcox_lr_pvalue(prof, 1.0) if prof is not None else None
     slope = slope_test(b, f, arm_cols, 1.0, ctx.level)
-    raw = [edge.p_value if edge is not None else None, lin_test.p_value, trend.p_value, p_boxcox, slope.p_value]
+    raw = [edge.p_value if edge is not None else None, lin_test.p_value if lin_test is not None else None, trend.p_value, p_boxcox, slope.p_value]
     p_edge, p_lin, p_trend, p_bc, p_slope = holm_adjust(raw)
     eff_part, r, cost = efficiency_part(df, arms, ctx)
     adj = "adjusted for arm" if len(arms) > 1 else "pooled"
     parts = {
         "selection": selection_part(data, df, ctx, edge, edge_scale, edge_note, p_edge),
-        "linearity": linearity_part(lin_test, plan, p_lin),
+        "linearity": linearity_part(lin_test, model, p_lin),
         "scale": scale_part(trend, prof, p_trend, p_bc, p_boxcox),
         "bounds": bounds_part(df, data.spec),
         "interval": interval_part(df, data.spec),
@@ -566,12 +645,12 @@ def run(data, ctx: CheckContext):
         estimates += p.estimates
     tables, caveats = [], []
     if len(arms) > 1:
-        table, ests, ratio_anc, _ = analyses_table(df, arms, control, plan)
+        table, ests, ratio_anc, _ = analyses_table(df, arms, control, model)
         awkward = (any(parts[k].sub.verdict != Verdict.SOUND for k in ("bounds", "interval", "scale"))
                    or abs(skewness(df["followup"])) > SKEW_FOR_LOG)
         po_table = None
         if awkward or data.spec.scale == "ordinal":
-            rows, po_table, why = ordinal_alternative(df, arms, control, plan)
+            rows, po_table, why = ordinal_alternative(df, arms, control, model)
             table.rows.extend(rows)
             if why:
                 caveats.append(why[0].upper() + why[1:] + ".")
@@ -595,7 +674,7 @@ def run(data, ctx: CheckContext):
             caveats += notes
     verdict, headline = decide(data.spec.planned_analysis, parts, r, cost)
     return result(check, data, verdict, headline, subfindings=[p.sub for p in parts.values()],
-                  estimates=estimates, tables=tables, figures=_figures(data, df, arms, flex_fit, plan, ctx.seed),
+                  estimates=estimates, tables=tables, figures=_figures(data, df, arms, flex_fit, model, ctx.seed),
                   caveats=caveats,
                   references=cite(["frison-pocock-1992", "clifton-2019", "vickers-altman-2001",
                                    "durrleman-simon-1989", "stone-koo-1985", "box-cox-1964", "glejser-1969", "mchorney-tarlov-1995",

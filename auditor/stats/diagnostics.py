@@ -199,3 +199,14 @@ def slope_test(baseline, followup, other_columns: dict, null: float = 1.0, level
     se = float(fit.se[fit.index("baseline")])
     t = (est - null) / se
     return SlopeTest(est, se, lo, hi, float(2 * stats.t.sf(abs(t), fit.df_resid)), null)
+
+
+def category_columns(baseline, levels) -> dict[str, np.ndarray]:
+    """A baseline with few distinct levels entered as categories: the linear term plus an indicator
+    for each level from the third on. These columns span the same space as one indicator per level
+    beyond the first, so the fit is the saturated one, and the linear-only model is nested in it
+    (the F test of the indicators is the test of nonlinearity, on levels - 2 df; none with 2 levels).
+    Values equal to none of ``levels`` get zero indicators."""
+    b = np.asarray(baseline, dtype=float)
+    levels = [float(v) for v in levels]
+    return {"baseline": b, **{f"baseline={v:g}": (b == v).astype(float) for v in levels[2:]}}

@@ -226,3 +226,42 @@ def test_hidden_selection_alone_raises_caution_only():
     res = run(outcome_data_for(b, f, a), CTX)
     assert _sub(res, "selection").verdict.value == "caution"
     assert res.verdict.value == "caution", res.headline
+
+
+# --------------------------------------------------------------------------- few baseline levels
+
+
+def _few_level_trial(n_levels, seed=2):
+    """A 0-4 ordinal score whose baseline, after entry selection, takes only the top n_levels values."""
+    rng = np.random.default_rng(seed)
+    n = 200
+    a = rng.permutation(np.arange(n) % 2)
+    lat = rng.normal(0, 1, n)
+    b = np.clip(np.round(3 + 0.8 * (lat + rng.normal(0, 0.4, n))), 5 - n_levels, 4)
+    f = np.clip(np.round(2.5 + 1.2 * lat - 0.4 * a + rng.normal(0, 0.6, n)), 0, 4)
+    return outcome_data_for(b, f, a, scale="ordinal", levels=[0, 1, 2, 3, 4])
+
+
+@pytest.mark.parametrize("n_levels", [2, 3, 4])
+def test_an_ordinal_baseline_with_few_levels_enters_as_categories(n_levels):
+    import statsmodels.formula.api as smf
+
+    data = _few_level_trial(n_levels)
+    assert len(np.unique(data.frame["baseline"])) == n_levels
+    res = run(data, CTX)  # a quadratic in a two-level baseline made the design singular
+    assert res.verdict.value in ("caution", "unsupported"), res.headline
+    lin = _sub(res, "linearity")
+    assert f"baseline as {n_levels} categories" in lin.evidence
+    row = next(r for r in next(t for t in res.tables if t.id == "analyses").rows
+               if r[0] == "ANCOVA, baseline as categories")
+    # Reference: statsmodels OLS with baseline as a factor (C()), fitted here.
+    df = data.frame.assign(active=(data.frame["arm"] == "Active").astype(float))
+    ref = smf.ols("followup ~ C(baseline) + active", df).fit()
+    assert row[2] == pytest.approx(ref.params["active"], abs=1e-9)
+    assert row[3] == pytest.approx(ref.bse["active"], rel=1e-9)
+    if n_levels > 2:
+        ref_lin = smf.ols("followup ~ baseline + active", df).fit()
+        f_stat = ((ref_lin.ssr - ref.ssr) / (n_levels - 2)) / (ref.ssr / ref.df_resid)
+        assert f"F = {f_stat:.2f} on {n_levels - 2} and" in lin.evidence
+    else:
+        assert "no nonlinearity to test" in lin.evidence
