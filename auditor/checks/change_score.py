@@ -1,8 +1,11 @@
 """Change-score audit: every assumption that subtracting baseline needs, tested on the trial's data.
 
-Seven sub-findings (selection, linearity, scale, floor and ceiling, interval scale, slope, correlation),
+Seven sub-findings (selection, linearity, scale, floor and ceiling, interval scale, slope, efficiency),
 then the consequences: the analyses fitted side by side, the efficiency lost against ANCOVA, and
-whether an apparent "those who start worse benefit more" is an artefact of the change scale.
+whether an apparent "those who start worse benefit more" is an artefact of the change scale. For a
+planned change the verdict follows the trial's own cost of change against ANCOVA (its interval
+against a 10% materiality), then the assumptions that matter to change; the assumption tests are
+Holm-adjusted together.
 Thresholds are module constants documented in docs/methods/change-score.md.
 """
 
