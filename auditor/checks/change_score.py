@@ -1,8 +1,11 @@
 """Change-score audit: every assumption that subtracting baseline needs, tested on the trial's data.
 
-Seven sub-findings (selection, linearity, scale, floor and ceiling, interval scale, slope, correlation),
+Seven sub-findings (selection, linearity, scale, floor and ceiling, interval scale, slope, efficiency),
 then the consequences: the analyses fitted side by side, the efficiency lost against ANCOVA, and
-whether an apparent "those who start worse benefit more" is an artefact of the change scale.
+whether an apparent "those who start worse benefit more" is an artefact of the change scale. For a
+planned change the verdict follows the trial's own cost of change against ANCOVA (its interval
+against a 10% materiality), then the assumptions that matter to change; the assumption tests are
+Holm-adjusted together.
 Thresholds are module constants documented in docs/methods/change-score.md.
 """
 
@@ -14,22 +17,26 @@ import numpy as np
 
 from ..references import add_reference, cite
 from ..results import Figure, SubFinding, Table, Verdict
-from ..stats.ancova import fit_analyses, interaction_test, linearity_test, spline_columns
+from ..stats.ancova import Effect, fit_analyses, interaction_test, linearity_test, spline_columns
 from ..stats.correlation import pearson
-from ..stats.diagnostics import bound_shares, boxcox_profile, granularity, skewness, spread_trend_test
-from ..stats.efficiency import compare_with_ci, empirical_ratio
-from ..stats.linear import arm_indicators, fit_ols
+from ..stats.diagnostics import (at_bound_tolerance, bound_shares, boxcox_lr_pvalue, boxcox_profile, category_columns,
+                                 granularity,
+                                 holm_adjust, share_at_bound, skewness, slope_test, spread_trend_test)
+from ..stats.efficiency import compare_with_ci, empirical_ratio, own_cost
+from ..stats.linear import arm_indicators, f_test, fit_ols
 from ..stats.rtm import edge_test_scale, truncation_edge_test
 from ..stats.splines import choose_knots
 from .common import arms_present, complete_pairs, estimate, fmt, fmt_ci, fmt_p, result, thin
-from .prepost import baseline_slope
 from .registry import CheckContext, register
 
 CHECK_ID = "change-score"
 ALPHA = 0.05
-"""Level of the linearity, interaction and truncation tests (convention)."""
-SCALE_ALPHA = 0.025
-"""Level of each of the two scale tests (spread trend, Box-Cox), Bonferroni so the pair errs at 5%."""
+"""Family-wise level of the assumption tests behind a caution (truncation edge, linearity, spread
+trend, Box-Cox power, slope 1), Holm-adjusted together; also the level of the interaction test
+(convention of this tool)."""
+MATERIAL_RATIO = 1.10
+"""Materiality of a sample-size cost: 10% more participants for the same power, i.e. an efficiency
+below 1/1.10 (a convention of this tool)."""
 BOUND_SHARE = 0.15
 """Share at a bound above which a floor or ceiling is flagged (McHorney and Tarlov 1995; Terwee et al. 2007)."""
 HEAP_SHARE = 0.20
@@ -38,11 +45,18 @@ FEW_LEVELS = 10
 """Integer-valued outcomes with at most this many distinct values are treated as ordinal (convention)."""
 EDGE_MIN_DISTINCT = 20
 """The truncation-edge test is run only when baseline has at least this many distinct values."""
-RHO_HALF = 0.5
-"""Below this correlation, change is less precise than ignoring baseline (Frison and Pocock 1992)."""
+EDGE_NEAR_BOUND = 0.02
+"""A baseline extreme within this share of a finite declared bound range from the bound (or at an
+infinite range's finite end) is the scale's edge, not a selection: the edge test skips that side
+(convention of this tool)."""
+CATEGORY_LEVELS = 4
+"""A baseline with at most this many distinct values enters the flexible ANCOVA as categories, not a
+spline or quadratic (which is singular on two levels; convention of this tool)."""
 SKEW_FOR_LOG = 1.0
 """Positive values with skewness above this are examined on the log scale (convention)."""
 
+add_reference("holm-1979", "Holm S. A simple sequentially rejective multiple test procedure. Scand J Stat "
+              "1979;6:65-70.")
 add_reference("mchorney-tarlov-1995", "McHorney CA, Tarlov AR. Individual-patient monitoring in clinical "
               "practice: are available health status surveys adequate? Qual Life Res 1995;4:293-307.")
 add_reference("terwee-2007", "Terwee CB, Bot SDM, de Boer MR, et al. Quality criteria were proposed for "
@@ -66,6 +80,56 @@ class Part:
     phrase: str = ""
 
 
+@dataclass(frozen=True)
+class BaselineModel:
+    """How baseline enters the flexible ANCOVA: the spline plan, or categories for few levels."""
+
+    plan: object
+    levels: tuple | None = None
+    """The distinct baseline values when entered as categories (at most CATEGORY_LEVELS), else None."""
+
+    @property
+    def what(self) -> str:
+        if self.levels is not None:
+            return f"baseline as {len(self.levels)} categories"
+        return ("quadratic term" if self.plan.kind == "quadratic"
+                else f"restricted cubic spline, {len(self.plan.knots)} knots")
+
+    def columns(self, x) -> dict:
+        x = np.asarray(x, dtype=float)
+        return category_columns(x, self.levels) if self.levels is not None else spline_columns(x, self.plan)
+
+    def grid(self, b):
+        return (np.asarray(self.levels, dtype=float) if self.levels is not None
+                else np.linspace(np.min(b), np.max(b), 80))
+
+    def reference(self, b) -> float:
+        """The baseline value the translations are taken at: the median (the nearest level for categories)."""
+        med = float(np.median(b))
+        if self.levels is None:
+            return med
+        lv = np.asarray(self.levels, dtype=float)
+        return float(lv[np.argmin(np.abs(lv - med))])
+
+
+def baseline_model(b) -> BaselineModel:
+    levels = np.unique(np.asarray(b, dtype=float))
+    if len(levels) <= CATEGORY_LEVELS:
+        return BaselineModel(choose_knots(b), tuple(float(v) for v in levels))
+    return BaselineModel(choose_knots(b))
+
+
+def flexible_linearity(b, f, arm_cols, model: BaselineModel):
+    """(test or None, flexible fit): the nonlinearity F test of the flexible baseline against the linear one.
+    None when the flexible model adds nothing (two baseline levels: the line fits each level exactly)."""
+    if model.levels is None:
+        test, _, flex = linearity_test(b, f, arm_cols, model.plan)
+        return test, flex
+    lin = fit_ols(f, {"baseline": np.asarray(b, dtype=float), **arm_cols})
+    flex = fit_ols(f, {**model.columns(b), **arm_cols})
+    return (f_test(lin, flex) if len(model.levels) > 2 else None), flex
+
+
 def _verdict(ok: bool, soft: bool = False) -> Verdict:
     return Verdict.SOUND if ok else (Verdict.CAUTION if soft else Verdict.UNSUPPORTED)
 
@@ -73,27 +137,72 @@ def _verdict(ok: bool, soft: bool = False) -> Verdict:
 # ----------------------------------------------------------------------------- sub-findings
 
 
-def selection_part(data, df, ctx) -> Part:
+def edge_sides(b, spec) -> tuple[str | None, str]:
+    """Which ends of baseline the truncation-edge test may examine: never an end that sits at a declared
+    bound or a natural one (0 for a count), where a sharp edge is the scale's own, not a selection.
+    Returns (side for :func:`truncation_edge_test` or None, a note on what was skipped)."""
+    lo_b = spec.lower_bound if spec.lower_bound is not None else (0.0 if spec.scale == "count" else None)
+    hi_b = spec.upper_bound
+    width = (hi_b - lo_b) if lo_b is not None and hi_b is not None and np.isfinite(hi_b - lo_b) else None
+
+    def at(extreme, bound):
+        if bound is None or not np.isfinite(bound):
+            return False
+        if share_at_bound(np.array([extreme]), bound) > 0 or abs(extreme - bound) <= at_bound_tolerance(b, bound):
+            return True
+        return width is not None and abs(extreme - bound) <= EDGE_NEAR_BOUND * width
+
+    skip_lo, skip_hi = at(float(np.min(b)), lo_b), at(float(np.max(b)), hi_b)
+    skipped = [f"{name} end at the scale bound {fmt(bound)}" for name, bound, skip in
+               (("lower", lo_b, skip_lo), ("upper", hi_b, skip_hi)) if skip]
+    note = f"not tested at the {' or the '.join(skipped)} (a scale's bound is not a selection)" if skipped else ""
+    side = None if skip_lo and skip_hi else ("upper" if skip_lo else ("lower" if skip_hi else "either"))
+    return side, note
+
+
+def edge_test(data, df, ctx):
+    """The truncation-edge test on baseline where it may run: (result or None, scale name, note).
+
+    Not run when an entry criterion is declared (the values it selected would confirm it), with too
+    few distinct values, when more than BOUND_SHARE of baseline sits at a declared bound, or when both
+    ends sit at the scale's bounds."""
+    b = df["baseline"].to_numpy()
+    if data.spec.entry_criterion is not None:
+        return None, "", "the edge test is not run on values the declared criterion selected"
+    if len(np.unique(b)) < EDGE_MIN_DISTINCT:
+        return None, "", "too few distinct values for an edge test"
+    s = bound_shares(b, data.spec.lower_bound, data.spec.upper_bound)
+    if s.declared and max(s.share_lower, s.share_upper) > BOUND_SHARE:
+        return None, "", (f"{100 * max(s.share_lower, s.share_upper):.0f}% of baseline values sit at a scale bound, "
+                          f"so the edge test's continuous reference does not apply (see the floor and ceiling "
+                          f"sub-finding)")
+    side, note = edge_sides(b, data.spec)
+    if side is None:
+        return None, "", note
+    tested = edge_test_scale(b, data.spec.log_scale)  # the same scale as the regression-to-the-mean check
+    test = truncation_edge_test(tested.values, side=side, n_null=499 if ctx.quick else 999, seed=ctx.seed)
+    return test, ("" if tested.name == "raw" else f" ({tested.name} scale)"), note
+
+
+def selection_part(data, df, ctx, test, scale, note, p_adj) -> Part:
     q = "Did the baseline value select the participants?"
     if data.spec.entry_criterion is not None:
         return declared_selection_part(data, ctx)
+    if test is None:
+        return Part(SubFinding("selection", q, Verdict.SOUND, f"no entry criterion declared; {note}"), [])
     b = df["baseline"].to_numpy()
-    if len(np.unique(b)) < EDGE_MIN_DISTINCT:
-        return Part(SubFinding("selection", q, Verdict.SOUND,
-                               "no entry criterion declared; too few distinct values for an edge test"), [])
-    tested = edge_test_scale(b, data.spec.log_scale)  # the same scale as the regression-to-the-mean check
-    test = truncation_edge_test(tested.values, side="either", n_null=499 if ctx.quick else 999, seed=ctx.seed)
     edge = float(np.min(b) if test.edge_side == "lower" else np.max(b))
-    scale = "" if tested.name == "raw" else f" ({tested.name} scale)"
+    extra = f"; {note}" if note else ""
     est = [estimate(f"Truncation-edge test{scale}, likelihood-ratio statistic", test.statistic,
-                    p=test.p_value, note=f"{test.edge_side} edge at {fmt(edge)}")]
-    if test.p_value < ALPHA:
+                    p=test.p_value, note=f"{test.edge_side} edge at {fmt(edge)}; Holm-adjusted p {p_adj:.3g}")]
+    ps = f"{fmt_p(test.p_value)}, Holm-adjusted {fmt_p(p_adj)}"
+    if p_adj < ALPHA:
         return Part(SubFinding("selection", q, Verdict.CAUTION,
                                f"no entry criterion declared, but the baseline distribution has a sharp "
-                               f"{test.edge_side} edge at {fmt(edge)}{scale} ({fmt_p(test.p_value)}): "
-                               f"possible selection"), est, f"a sharp {test.edge_side} edge in baseline")
+                               f"{test.edge_side} edge at {fmt(edge)}{scale} ({ps}): possible selection{extra}"),
+                    est, f"a sharp {test.edge_side} edge in baseline ({ps})")
     return Part(SubFinding("selection", q, Verdict.SOUND,
-                           f"no entry criterion declared; no sharp edge in baseline ({fmt_p(test.p_value)})"), est)
+                           f"no entry criterion declared; no evidence of a sharp edge in baseline ({ps}){extra}"), est)
 
 
 def declared_selection_part(data, ctx) -> Part:
@@ -126,38 +235,45 @@ def declared_selection_part(data, ctx) -> Part:
                 "participants were selected on this measurement, so regression to the mean is expected")
 
 
-def linearity_part(df, arm_cols, plan) -> tuple[Part, object]:
+def linearity_part(test, model: BaselineModel, p_adj) -> Part:
     q = "Is follow-up linear in baseline?"
-    test, lin, flex = linearity_test(df["baseline"], df["followup"], arm_cols, plan)
-    what = "quadratic term" if plan.kind == "quadratic" else f"restricted cubic spline, {len(plan.knots)} knots"
-    ev = f"F = {fmt(test.statistic)} on {test.df_num} and {fmt(test.df_den, 0)} df, {fmt_p(test.p_value)} ({what})"
-    ok = test.p_value >= ALPHA
-    est = [estimate(f"Nonlinearity in baseline ({what}), F statistic", test.statistic, p=test.p_value)]
-    return Part(SubFinding("linearity", q, _verdict(ok, soft=True), ev), est,
-                "" if ok else f"follow-up is nonlinear in baseline ({fmt_p(test.p_value)})"), flex
+    what = model.what
+    if test is None:
+        return Part(SubFinding("linearity", q, Verdict.SOUND,
+                               f"baseline takes {len(model.levels)} values, so a line fits each of them exactly: "
+                               f"there is no nonlinearity to test ({what})"), [])
+    ps = f"{fmt_p(test.p_value)}, Holm-adjusted {fmt_p(p_adj)}"
+    ev = f"F = {fmt(test.statistic)} on {test.df_num} and {fmt(test.df_den, 0)} df, {ps} ({what})"
+    ok = p_adj >= ALPHA
+    est = [estimate(f"Nonlinearity in baseline ({what}), F statistic", test.statistic, p=test.p_value,
+                    note=f"Holm-adjusted p {p_adj:.3g}")]
+    return Part(SubFinding("linearity", q, _verdict(ok, soft=True),
+                           ev if not ok else f"no evidence of nonlinearity: {ev}"), est,
+                "" if ok else f"follow-up is nonlinear in baseline ({ps})")
 
 
-def scale_part(df, arm_cols, flex_fit) -> Part:
+def scale_part(trend, prof, p_adj_trend, p_adj_boxcox, p_boxcox) -> Part:
     q = "Is the scale right (constant spread, additive relation)?"
-    b = df["baseline"].to_numpy()
-    f = df["followup"].to_numpy()
-    trend = spread_trend_test(flex_fit.resid, b)
-    parts = [f"spread of residuals {'grows' if trend.slope > 0 else 'shrinks'} with baseline: "
-             f"{fmt_p(trend.p_value)}"]
-    est = [estimate("Trend of |residual| with baseline (slope)", trend.slope, p=trend.p_value)]
-    bad = trend.p_value < SCALE_ALPHA
-    phrase = f"the spread of change {'grows' if trend.slope > 0 else 'shrinks'} with baseline" if bad else ""
-    if np.all(b > 0) and np.all(f > 0):
-        prof = boxcox_profile(f, b, arm_cols, level=1 - 2 * SCALE_ALPHA)
-        parts.append(f"Box-Cox power {fmt(prof.lam)} ({fmt(prof.lower)} to {fmt(prof.upper)}, "
-                     f"{100 * (1 - 2 * SCALE_ALPHA):.0f}% CI)")
+    grows = "grows" if trend.slope > 0 else "shrinks"
+    parts = [f"trend of the residual spread with baseline: {fmt_p(trend.p_value)}, Holm-adjusted "
+             f"{fmt_p(p_adj_trend)}"]
+    est = [estimate("Trend of |residual| with baseline (slope)", trend.slope, p=trend.p_value,
+                    note=f"Holm-adjusted p {p_adj_trend:.3g}")]
+    bad = p_adj_trend < ALPHA
+    phrase = f"the spread of change {grows} with baseline" if bad else ""
+    if prof is not None:
+        parts.append(f"Box-Cox power {fmt(prof.lam)} ({fmt(prof.lower)} to {fmt(prof.upper)}, 95% CI); test of "
+                     f"the raw scale (power 1): {fmt_p(p_boxcox)}, Holm-adjusted {fmt_p(p_adj_boxcox)}")
         est.append(estimate("Box-Cox power for baseline and follow-up (1 = raw scale, 0 = log)", prof.lam,
-                            prof.lower, prof.upper, note=f"{100 * (1 - 2 * SCALE_ALPHA):.0f}% profile-likelihood interval"))
-        if not prof.includes(1.0):
+                            prof.lower, prof.upper, p=p_boxcox,
+                            note=f"95% profile-likelihood interval; Holm-adjusted p of power 1: {p_adj_boxcox:.3g}"))
+        if p_adj_boxcox < ALPHA:
             bad = True
             phrase = ("a log scale fits better than the raw scale" if prof.includes(0.0)
                       else f"a power of {fmt(prof.lam)} fits better than the raw scale")
-    return Part(SubFinding("scale", q, _verdict(not bad, soft=True), "; ".join(parts)), est, phrase)
+    ev = "; ".join(parts)
+    return Part(SubFinding("scale", q, _verdict(not bad, soft=True), ev if bad else f"no evidence of a wrong scale: {ev}"),
+                est, phrase)
 
 
 def bounds_part(df, spec) -> Part:
@@ -190,7 +306,7 @@ def interval_part(df, spec) -> Part:
            estimate("Share at the most common value", g.top_share, note=f"value {fmt(g.top_value)}")]
     if spec.scale == "ordinal" or few:
         why = "declared ordinal" if spec.scale == "ordinal" else f"only {g.n_distinct} integer levels"
-        return Part(SubFinding("interval", q, Verdict.UNSUPPORTED,
+        return Part(SubFinding("interval", q, Verdict.CAUTION,
                                f"{why}: the difference of two ordinal values is not ordinal and equal steps "
                                f"need not mean equal amounts; {ev}"), est, f"the scale is ordinal ({why})")
     if g.top_share > HEAP_SHARE:
@@ -199,54 +315,94 @@ def interval_part(df, spec) -> Part:
     return Part(SubFinding("interval", q, Verdict.SOUND, ev), est)
 
 
-def slope_part(df, arms, control) -> tuple[Part, tuple]:
+def slope_part(test, adj, p_adj) -> Part:
     q = "Is the slope of follow-up on baseline near 1?"
-    est, lo, hi, p, _ = baseline_slope(df, arms, control)
-    ok = lo <= 1.0 <= hi
-    adj = "adjusted for arm" if len(arms) > 1 else "pooled"
-    ev = f"slope {fmt_ci(est, lo, hi)} ({adj}); the CI {'includes' if ok else 'excludes'} 1"
-    e = [estimate(f"Slope of follow-up on baseline ({adj})", est, lo, hi)]
-    return Part(SubFinding("slope", q, _verdict(ok), ev), e,
-                "" if ok else f"slope {fmt_ci(est, lo, hi)}"), (est, lo, hi)
+    ok = p_adj >= ALPHA
+    ps = f"{fmt_p(test.p_value)}, Holm-adjusted {fmt_p(p_adj)}"
+    ev = (f"slope {fmt_ci(test.estimate, test.lower, test.upper)} ({adj}); test of slope 1: {ps}"
+          f"{'' if ok else ', a detectable departure'}; what a slope other than 1 costs a change analysis is "
+          f"sized in the efficiency sub-finding, which decides the verdict")
+    e = [estimate(f"Slope of follow-up on baseline ({adj})", test.estimate, test.lower, test.upper, test.p_value,
+                  note=f"p: t test of slope 1; Holm-adjusted p {p_adj:.3g}")]
+    return Part(SubFinding("slope", q, _verdict(ok, soft=True), ev if not ok else f"no evidence against slope 1: {ev}"),
+                e, "" if ok else f"slope {fmt_ci(test.estimate, test.lower, test.upper)}")
 
 
-def correlation_part(df, ctx) -> tuple[Part, object]:
-    q = "Is baseline prognostic enough for subtraction to help (r >= 0.5)?"
+def efficiency_part(df, arms, ctx) -> tuple[Part, object, object]:
+    """The trial's own cost of change against ANCOVA (variance-aware Frison-Pocock ratio) and its CI."""
+    q = f"What does subtracting baseline cost against ANCOVA (material above {_pct(MATERIAL_RATIO)} more participants)?"
     r = pearson(df["baseline"], df["followup"], ctx.level)
-    ok = r.r >= RHO_HALF
-    change_vs_anc = compare_with_ci("change", "ancova", r.r, r.lower, r.upper)
+    cost = own_cost(df["baseline"], df["followup"], df["arm"].to_numpy() if len(arms) > 1 else None, ctx.level)
+    eq = compare_with_ci("change", "ancova", r.r, r.lower, r.upper)
     change_vs_fu = compare_with_ci("change", "follow-up-only", r.r, r.lower, r.upper)
-    ev = (f"r = {fmt_ci(r.r, r.lower, r.upper)}; with equal variances the change analysis needs "
-          f"{_more(change_vs_anc.ratio)} than ANCOVA and {_more(change_vs_fu.ratio)} than follow-up alone")
+    within = "within arm" if len(arms) > 1 else "pooled"
+    ev = (f"in this trial change needs {_cost_ci(cost)} than ANCOVA, from its own variances ({within}: baseline SD "
+          f"{fmt(cost.sd_baseline)}, follow-up SD {fmt(cost.sd_followup)}, r {fmt(cost.r)}, slope {fmt(cost.slope)}); "
+          f"the equal-variance formula 2/(1 + r) would say {_pct(eq.ratio)} more, which holds only when the two "
+          f"variances are equal (here their ratio is {fmt((cost.sd_followup / cost.sd_baseline) ** 2)})")
     est = [
+        estimate("Sample-size ratio, change / ANCOVA (this trial's variances)", cost.ratio, cost.lower, cost.upper,
+                 note="var(change) / residual variance of ANCOVA, within arm (Frison and Pocock 1992); CI by the "
+                      "delta method"),
         estimate("Correlation of baseline with follow-up (Pearson r)", r.r, r.lower, r.upper, r.p_value),
-        estimate("Sample-size ratio, change / ANCOVA (equal variances)", change_vs_anc.ratio,
-                 change_vs_anc.lower, change_vs_anc.upper, note="2/(1+r); CI from the CI of r"),
+        estimate("Sample-size ratio, change / ANCOVA (equal variances)", eq.ratio, eq.lower, eq.upper,
+                 note="2/(1+r); CI from the CI of r; assumes equal variances"),
         estimate("Sample-size ratio, change / follow-up only (equal variances)", change_vs_fu.ratio,
                  change_vs_fu.lower, change_vs_fu.upper, note="2(1-r); CI from the CI of r"),
     ]
-    phrase = "" if ok else f"r {fmt(r.r)}, so change is less efficient than ignoring baseline"
-    return Part(SubFinding("correlation", q, _verdict(ok), ev), est, phrase), r
+    if cost.lower > MATERIAL_RATIO:
+        verdict, phrase = Verdict.UNSUPPORTED, f"change needs {_cost_ci(cost)} than ANCOVA"
+    elif cost.ratio > MATERIAL_RATIO:
+        verdict, phrase = Verdict.CAUTION, f"change needs {_cost_ci(cost)} than ANCOVA"
+    else:
+        verdict, phrase = Verdict.SOUND, ""
+    return Part(SubFinding("efficiency", q, verdict, ev), est, phrase), r, cost
 
 
-def _more(ratio: float) -> str:
+def _pct(ratio: float) -> str:
     pct = 100 * (ratio - 1)
-    return f"{pct:.0f}% more participants" if pct >= 0 else f"{-pct:.0f}% fewer participants"
+    return f"{pct:.1f}%" if abs(pct) < 10 else f"{pct:.0f}%"
+
+
+def _cost_ci(cost) -> str:
+    return f"{_pct(cost.ratio)} more participants ({_pct(cost.lower)} to {_pct(cost.upper)})"
+
 
 
 # ----------------------------------------------------------------------------- consequences
 
 
-def analyses_table(df, arms, control, plan):
-    fits = fit_analyses(df["baseline"], df["followup"], df["arm"].to_numpy(), arms, control, plan)
-    rows = [[e.analysis, e.contrast, e.estimate, e.se, e.lower, e.upper, e.p_value] for e in fits.effects]
+def _analyses(df, arms, control, model: BaselineModel):
+    """The four analyses side by side; with a categorical baseline the flexible ANCOVA uses categories."""
+    if model.levels is None:
+        return fit_analyses(df["baseline"], df["followup"], df["arm"].to_numpy(), arms, control, model.plan).effects
+    b, f = df["baseline"].to_numpy(dtype=float), df["followup"].to_numpy(dtype=float)
+    cols = arm_indicators(df["arm"].to_numpy(), arms, control)
+    out = []
+    for name, y, extra in (("follow-up only", f, {}), ("change score", f - b, {}),
+                           ("ANCOVA, linear baseline", f, {"baseline": b}),
+                           ("ANCOVA, baseline as categories", f, model.columns(b))):
+        fit = fit_ols(y, {**extra, **cols})
+        for k in cols:
+            est, lo, hi = fit.ci(k)
+            out.append(Effect(name, k[4:-1], est, float(fit.se[fit.index(k)]), lo, hi, fit.p_value(k), fit.df_resid))
+    return out
+
+
+FLEXIBLE_ROWS = ("ANCOVA, spline baseline", "ANCOVA, baseline as categories")
+
+
+def analyses_table(df, arms, control, model: BaselineModel):
+    effects = _analyses(df, arms, control, model)
+    rows = [[e.analysis, e.contrast, e.estimate, e.se, e.lower, e.upper, e.p_value] for e in effects]
     table = Table("analyses", "Treatment effect under each analysis, fitted on the same participants",
                   ["Analysis", "Arm vs control", "Effect", "SE", "lower", "upper", "p"], rows,
                   note="Effects on the outcome's scale (follow-up difference); ANCOVA with spline baseline is "
                        "the recommended reference.", by_arm=True)
-    se = {(e.analysis, e.contrast): e.se for e in fits.effects}
-    contrast = fits.effects[0].contrast
-    ratio_anc = empirical_ratio(se[("change score", contrast)], se[("ANCOVA, spline baseline", contrast)])
+    se = {(e.analysis, e.contrast): e.se for e in effects}
+    contrast = effects[0].contrast
+    flexible = next(a for a in FLEXIBLE_ROWS if (a, contrast) in se)
+    ratio_anc = empirical_ratio(se[("change score", contrast)], se[(flexible, contrast)])
     ratio_fu = empirical_ratio(se[("change score", contrast)], se[("follow-up only", contrast)])
     ests = [
         estimate(f"Empirical sample-size ratio, change / spline ANCOVA ({contrast})", ratio_anc,
@@ -254,10 +410,10 @@ def analyses_table(df, arms, control, plan):
         estimate(f"Empirical sample-size ratio, change / follow-up only ({contrast})", ratio_fu,
                  note="(SE change / SE follow-up)^2 from the fitted analyses", by_arm=True),
     ]
-    return table, ests, ratio_anc, fits
+    return table, ests, ratio_anc, effects
 
 
-def ordinal_alternative(df, arms, control, plan):
+def ordinal_alternative(df, arms, control, model: BaselineModel):
     """Proportional-odds ANCOVA of follow-up on the flexible baseline plus arm (McCullagh 1980).
 
     Returns (rows for the analyses table, a table of clinician-scale translations, a reason when it
@@ -267,7 +423,7 @@ def ordinal_alternative(df, arms, control, plan):
     """
     from ..stats import ordinal as po
 
-    cols = {**spline_columns(df["baseline"].to_numpy(), plan), **arm_indicators(df["arm"].to_numpy(), arms, control)}
+    cols = {**model.columns(df["baseline"].to_numpy()), **arm_indicators(df["arm"].to_numpy(), arms, control)}
     names = list(cols)
     X = np.column_stack([cols[k] for k in names])
     y = df["followup"].to_numpy()
@@ -275,7 +431,7 @@ def ordinal_alternative(df, arms, control, plan):
         fit = po.fit_proportional_odds(y, X, names=names)
     except po.OrdinalFitError as exc:
         return [], None, f"the proportional-odds ANCOVA could not be fitted: {exc.reason}"
-    ref = {k: v[0] for k, v in spline_columns(np.array([float(np.median(df["baseline"]))]), plan).items()}
+    ref = {k: v[0] for k, v in model.columns(np.array([model.reference(df["baseline"])])).items()}
     rows, trans = [], []
     quartiles = sorted(set(np.quantile(y, [0.25, 0.5, 0.75]).tolist()))
     for arm_name in [k for k in names if k.startswith("arm[")]:
@@ -348,14 +504,14 @@ def repeated_caveat_and_fit(data, ctx, arms):
 # ----------------------------------------------------------------------------- figures
 
 
-def _figures(data, df, arms, flex_fit, plan, seed):
+def _figures(data, df, arms, flex_fit, model: BaselineModel, seed):
     spec = data.spec
     shown, note = thin(df.assign(fitted=flex_fit.fitted, resid=flex_fit.resid), seed)
     unit = f" ({spec.unit})" if spec.unit else ""
     b, f = df["baseline"].to_numpy(), df["followup"].to_numpy()
-    grid = np.linspace(b.min(), b.max(), 80)
+    grid = model.grid(b)
     groups_fu = _groups(shown, arms, "baseline", "followup")
-    basis = spline_columns(grid, plan)
+    basis = model.columns(grid)
     names = flex_fit.names[1:]
     curves = []
     for arm in (arms or [None]):
@@ -402,20 +558,40 @@ def _groups(df, arms, xcol, ycol):
 # ----------------------------------------------------------------------------- verdict
 
 
-def decide(planned: str, parts: dict[str, Part], r) -> tuple[Verdict, str]:
-    """Overall verdict and headline from the sub-findings, for the planned analysis."""
-    hard = [p for k, p in parts.items() if p.sub.verdict == Verdict.UNSUPPORTED]
-    soft = [p for k, p in parts.items() if p.sub.verdict == Verdict.CAUTION]
-    failing = [p.phrase for p in hard + soft if p.phrase]
-    if planned in ("change", "responder", "repeated-with-baseline-response"):
-        if hard:
-            return Verdict.UNSUPPORTED, (f"Change from baseline is not supported: {'; '.join(failing[:3])}; "
-                                         f"adjust for baseline instead (ANCOVA"
-                                         f"{', proportional odds' if 'interval' in [k for k, p in parts.items() if p in hard] else ''}).")
-        if soft:
-            return Verdict.CAUTION, f"Change from baseline is doubtful: {'; '.join(failing[:3])}."
-        return Verdict.SOUND, (f"The assumptions of a change analysis hold (r {fmt(r.r)}, slope compatible with 1, "
-                               f"linear, no floor or ceiling); ANCOVA remains at least as efficient.")
+CHANGE_PLANS = ("change", "responder", "repeated-with-baseline-response")
+ASSUMPTIONS = ("interval", "bounds", "linearity", "selection", "scale")
+"""The sub-findings whose detectable departure matters to a change analysis and so raises caution."""
+
+
+def decide(planned: str, parts: dict[str, Part], r, cost) -> tuple[Verdict, str]:
+    """Overall verdict and headline for the planned analysis.
+
+    For a change plan the verdict follows the trial's own cost of change against ANCOVA: unsupported
+    only when its whole interval lies above MATERIAL_RATIO; caution when the point estimate does, or
+    when an assumption that matters to change shows a departure (Holm-adjusted tests, bound shares,
+    an ordinal scale); sound otherwise. A slope that differs from 1 is sized by that cost, not by its
+    p-value, so it never decides the verdict alone."""
+    eff = parts["efficiency"]
+    soft = [parts[k].phrase for k in ASSUMPTIONS if parts[k].sub.verdict != Verdict.SOUND and parts[k].phrase]
+    material = f"{_pct(MATERIAL_RATIO)} this tool treats as material"
+    lead = f"Change from baseline needs {_cost_ci(cost)} than ANCOVA in this trial"
+    if planned in CHANGE_PLANS:
+        ordinal = parts["interval"].sub.verdict != Verdict.SOUND and "ordinal" in parts["interval"].phrase
+        alt = f"adjust for baseline instead (ANCOVA{', proportional odds' if ordinal else ''})"
+        if eff.sub.verdict == Verdict.UNSUPPORTED:
+            why = "; ".join([f"slope {fmt(cost.slope)}, r {fmt(cost.r)}"] + soft[:2])
+            return Verdict.UNSUPPORTED, f"{lead}, wholly above the {material}: {why}; {alt}."
+        if eff.sub.verdict == Verdict.CAUTION or soft:
+            where = ("above" if eff.sub.verdict == Verdict.CAUTION else "below")
+            why = "; ".join(soft[:3])
+            tail = f"; {why}" if why else "; its interval reaches below that threshold"
+            return Verdict.CAUTION, (f"{lead}, {where} the {material}{tail}"
+                                     f"{'; consider ANCOVA or proportional odds instead' if ordinal else ''}.")
+        slope = parts["slope"]
+        note = (f"; the slope {slope.phrase[6:]} differs detectably from 1 but costs no more than this"
+                if slope.sub.verdict != Verdict.SOUND else "")
+        return Verdict.SOUND, (f"{lead}, below the {material}; no evidence of selection, nonlinearity, a wrong scale, "
+                               f"floor or ceiling{note}.")
     if planned == "follow-up-only":
         if r.r >= 0.3:
             return Verdict.CAUTION, (f"Ignoring baseline wastes information: r {fmt(r.r)}, so ANCOVA would need "
@@ -429,7 +605,7 @@ def decide(planned: str, parts: dict[str, Part], r) -> tuple[Verdict, str]:
         extra = "; ".join(([parts["linearity"].phrase] if nonlin else []) + awkward)
         return Verdict.CAUTION, (f"{prefix} needs care: {extra}; use a flexible baseline"
                                  f"{' and consider the proportional-odds ANCOVA' if awkward else ''}.")
-    return Verdict.SOUND, f"{prefix} suits these data (r {fmt(r.r)}, linear in baseline)."
+    return Verdict.SOUND, f"{prefix} suits these data (r {fmt(r.r)}, no evidence of nonlinearity in baseline)."
 
 
 @register(CHECK_ID, "Change-score assumptions", _applies, order=20,
@@ -443,31 +619,41 @@ def run(data, ctx: CheckContext):
     arms = arms_present(df, data, ctx)
     control = data.control_arm if data.control_arm in arms else (arms[0] if arms else None)
     arm_cols = arm_indicators(df["arm"].to_numpy(), arms, control) if len(arms) > 1 else {}
-    plan = choose_knots(df["baseline"].to_numpy())
+    model = baseline_model(df["baseline"].to_numpy())
 
-    lin_part, flex_fit = linearity_part(df, arm_cols, plan)
-    slope_p, _ = slope_part(df, arms, control)
-    corr_p, r = correlation_part(df, ctx)
+    b, f = df["baseline"].to_numpy(), df["followup"].to_numpy()
+    # The assumption tests behind a caution (edge, linearity, spread, Box-Cox, slope), Holm-adjusted together
+    # at the family-wise level ALPHA.
+    edge, edge_scale, edge_note = edge_test(data, df, ctx)
+    lin_test, flex_fit = flexible_linearity(b, f, arm_cols, model)
+    trend = spread_trend_test(flex_fit.resid, b)
+    prof = boxcox_profile(f, b, arm_cols) if np.all(b > 0) and np.all(f > 0) else None
+    p_boxcox = boxcox_lr_pvalue(prof, 1.0) if prof is not None else None
+    slope = slope_test(b, f, arm_cols, 1.0, ctx.level)
+    raw = [edge.p_value if edge is not None else None, lin_test.p_value if lin_test is not None else None, trend.p_value, p_boxcox, slope.p_value]
+    p_edge, p_lin, p_trend, p_bc, p_slope = holm_adjust(raw)
+    eff_part, r, cost = efficiency_part(df, arms, ctx)
+    adj = "adjusted for arm" if len(arms) > 1 else "pooled"
     parts = {
-        "selection": selection_part(data, df, ctx),
-        "linearity": lin_part,
-        "scale": scale_part(df, arm_cols, flex_fit),
+        "selection": selection_part(data, df, ctx, edge, edge_scale, edge_note, p_edge),
+        "linearity": linearity_part(lin_test, model, p_lin),
+        "scale": scale_part(trend, prof, p_trend, p_bc, p_boxcox),
         "bounds": bounds_part(df, data.spec),
         "interval": interval_part(df, data.spec),
-        "slope": slope_p,
-        "correlation": corr_p,
+        "slope": slope_part(slope, adj, p_slope),
+        "efficiency": eff_part,
     }
     estimates = [estimate("Participants with baseline and follow-up", float(len(df)))]
     for p in parts.values():
         estimates += p.estimates
     tables, caveats = [], []
     if len(arms) > 1:
-        table, ests, ratio_anc, _ = analyses_table(df, arms, control, plan)
+        table, ests, ratio_anc, _ = analyses_table(df, arms, control, model)
         awkward = (any(parts[k].sub.verdict != Verdict.SOUND for k in ("bounds", "interval", "scale"))
                    or abs(skewness(df["followup"])) > SKEW_FOR_LOG)
         po_table = None
         if awkward or data.spec.scale == "ordinal":
-            rows, po_table, why = ordinal_alternative(df, arms, control, plan)
+            rows, po_table, why = ordinal_alternative(df, arms, control, model)
             table.rows.extend(rows)
             if why:
                 caveats.append(why[0].upper() + why[1:] + ".")
@@ -489,14 +675,18 @@ def run(data, ctx: CheckContext):
             table, notes = repeated_caveat_and_fit(data, ctx, arms)
             tables.append(table)
             caveats += notes
-    verdict, headline = decide(data.spec.planned_analysis, parts, r)
+    verdict, headline = decide(data.spec.planned_analysis, parts, r, cost)
     return result(check, data, verdict, headline, subfindings=[p.sub for p in parts.values()],
-                  estimates=estimates, tables=tables, figures=_figures(data, df, arms, flex_fit, plan, ctx.seed),
+                  estimates=estimates, tables=tables, figures=_figures(data, df, arms, flex_fit, model, ctx.seed),
                   caveats=caveats,
                   references=cite(["frison-pocock-1992", "clifton-2019", "vickers-altman-2001",
                                    "durrleman-simon-1989", "stone-koo-1985", "box-cox-1964", "glejser-1969", "mchorney-tarlov-1995",
-                                   "terwee-2007", "barnett-2005", "mccullagh-1980"]),
+                                   "terwee-2007", "barnett-2005", "mccullagh-1980", "holm-1979"]),
                   method="Restricted cubic spline (knots at quantiles) or quadratic for discrete baselines, F test against "
-                         "linear; Glejser-type trend of absolute residuals and a Box-Cox profile likelihood (each at "
-                         "2.5%); shares at bounds (15% threshold); slope CI against 1; Frison-Pocock efficiency with "
-                         "CI from the Fisher interval of r; the four analyses fitted on the same participants.")
+                         "linear; Glejser-type trend of absolute residuals; Box-Cox profile likelihood (likelihood-ratio "
+                         "test of the raw scale); truncation-edge test of baseline away from the scale's bounds; these "
+                         "tests and the t test of slope 1 Holm-adjusted together at a family-wise 5%; shares at bounds "
+                         "(15% threshold); the trial's own sample-size ratio of change to ANCOVA, "
+                         "var(change) / residual variance of ANCOVA within arm (Frison and Pocock 1992), with a "
+                         "delta-method CI, material above 10% more participants (a convention of this tool); the "
+                         "four analyses fitted on the same participants.")

@@ -155,3 +155,58 @@ def granularity(values) -> Granularity:
 def skewness(values) -> float:
     v = np.asarray(values, dtype=float)
     return float(stats.skew(v[np.isfinite(v)], bias=False))
+
+
+def holm_adjust(p_values) -> list[float]:
+    """Holm step-down adjusted p-values (Holm, Scand J Stat 1979;6:65-70): rejecting where the
+    adjusted p is below alpha keeps the family-wise error at alpha. None entries (tests not run) are
+    passed through and do not count towards the family."""
+    idx = [i for i, p in enumerate(p_values) if p is not None]
+    out: list = list(p_values)
+    order = sorted(idx, key=lambda i: p_values[i])
+    m, running = len(order), 0.0
+    for k, i in enumerate(order):
+        running = max(running, min(1.0, (m - k) * float(p_values[i])))
+        out[i] = running
+    return out
+
+
+def boxcox_lr_pvalue(profile: BoxCoxProfile, value: float = 1.0) -> float:
+    """Likelihood-ratio p-value of the Box-Cox power ``value`` from a profile: chi-square on 1 df of
+    2 (max loglik - loglik at value), the loglik at ``value`` interpolated on the profile's grid."""
+    grid, ll = np.asarray(profile.grid), np.asarray(profile.loglik)
+    at = float(np.interp(value, grid, ll))
+    return float(stats.chi2.sf(max(0.0, 2 * (float(np.max(ll)) - at)), 1))
+
+
+@dataclass(frozen=True)
+class SlopeTest:
+    estimate: float
+    se: float
+    lower: float
+    upper: float
+    p_value: float
+    """Two-sided t test of slope = ``null``."""
+    null: float
+
+
+def slope_test(baseline, followup, other_columns: dict, null: float = 1.0, level: float = 0.95) -> SlopeTest:
+    """Least-squares slope of follow-up on baseline (other terms kept), its t CI and the t test of
+    slope = ``null`` (1: the slope a change score assumes)."""
+    fit = fit_ols(np.asarray(followup, dtype=float), {"baseline": np.asarray(baseline, dtype=float),
+                                                        **other_columns})
+    est, lo, hi = fit.ci("baseline", level)
+    se = float(fit.se[fit.index("baseline")])
+    t = (est - null) / se
+    return SlopeTest(est, se, lo, hi, float(2 * stats.t.sf(abs(t), fit.df_resid)), null)
+
+
+def category_columns(baseline, levels) -> dict[str, np.ndarray]:
+    """A baseline with few distinct levels entered as categories: the linear term plus an indicator
+    for each level from the third on. These columns span the same space as one indicator per level
+    beyond the first, so the fit is the saturated one, and the linear-only model is nested in it
+    (the F test of the indicators is the test of nonlinearity, on levels - 2 df; none with 2 levels).
+    Values equal to none of ``levels`` get zero indicators."""
+    b = np.asarray(baseline, dtype=float)
+    levels = [float(v) for v in levels]
+    return {"baseline": b, **{f"baseline={v:g}": (b == v).astype(float) for v in levels[2:]}}

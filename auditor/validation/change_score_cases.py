@@ -17,7 +17,7 @@ from ..checks.registry import CheckContext
 from ..metadata import OutcomeSpec
 from ..study import OutcomeData
 
-SUBFINDINGS = ("selection", "linearity", "scale", "bounds", "interval", "slope", "correlation")
+SUBFINDINGS = ("selection", "linearity", "scale", "bounds", "interval", "slope", "efficiency")
 
 
 @dataclass(frozen=True)
@@ -91,7 +91,8 @@ def _ordinal(rng, n):
 
 SCENARIOS = [
     Scenario("assumptions hold", None, _holds, description="follow-up = baseline + effect + noise; r 0.93"),
-    Scenario("weak correlation", "correlation", _weak, description="slope 0.3, r 0.3"),
+    Scenario("weak correlation", "efficiency", _weak, description="slope 0.3, r 0.3: change needs about 54% more "
+             "participants than ANCOVA"),
     Scenario("concave relation", "linearity", _concave, description="follow-up = baseline - 0.02 (baseline - 50)^2"),
     Scenario("multiplicative error", "scale", _multiplicative, description="log-normal, error proportional to level"),
     Scenario("floor effect", "bounds", _floor, bounds=(0.0, float("inf")), description="about a third at 0"),
@@ -100,8 +101,8 @@ SCENARIOS = [
 ]
 
 
-def outcome_data_for(b, f, a, bounds=None, planned="change") -> OutcomeData:
-    spec = OutcomeSpec(param="SIM", label="simulated", scale="continuous", bounds=bounds,
+def outcome_data_for(b, f, a, bounds=None, planned="change", scale="continuous", levels=None) -> OutcomeData:
+    spec = OutcomeSpec(param="SIM", label="simulated", scale=scale, bounds=None if levels else bounds, levels=levels,
                        baseline_visit="B", followup_visits=["F"], planned_analysis=planned)
     frame = pd.DataFrame({"subject": [f"S{i:05d}" for i in range(len(b))],
                           "arm": np.where(np.asarray(a) == 1, "Active", "Control"),
@@ -123,3 +124,84 @@ def run_scenario(scenario: Scenario, n: int, replicates: int, seed: int) -> dict
         for s in res.subfindings:
             flagged[s.id] += s.verdict.value != "sound"
     return {k: v / replicates for k, v in flagged.items()}
+
+
+# ----------------------------------------------------------------------------- verdict-level scenarios
+
+
+def bivariate(slope: float, r: float, sd_baseline: float = 10.0, effect: float = 2.0):
+    """Bivariate-normal trial: follow-up = 50 + slope (baseline - 50) + effect arm + e, with the error SD
+    chosen so that corr(baseline, follow-up) = r within arm. The follow-up SD is then slope sd_b / r, so
+    slope 1 with r < 1 means follow-up more variable than baseline; the change/ANCOVA sample-size ratio
+    is 1 + (slope - 1)^2 r^2 / (slope^2 (1 - r^2)) (Frison and Pocock 1992 with unequal variances)."""
+    sd_e = abs(slope) * sd_baseline * np.sqrt(1 - r * r) / r
+
+    def make(rng, n):
+        a = _arm(rng, n)
+        b = rng.normal(50, sd_baseline, n)
+        return b, 50 + slope * (b - 50) + effect * a + rng.normal(0, sd_e, n), a
+    return make
+
+
+def true_cost(slope: float, r: float) -> float:
+    """The population change/ANCOVA sample-size ratio of :func:`bivariate`."""
+    return 1 + (slope - 1) ** 2 * r * r / (slope * slope * (1 - r * r))
+
+
+def _floor40(rng, n):
+    """About 40% of baseline and follow-up values at a floor of 0 (a latent normal censored at 0)."""
+    a = _arm(rng, n)
+    latent = rng.normal(0.35, 1.4, n)
+    b = np.maximum(0, latent + rng.normal(0, 0.5, n))
+    f = np.maximum(0, latent - 0.3 * a + rng.normal(0, 0.5, n))
+    return b, f, a
+
+
+@dataclass(frozen=True)
+class VerdictScenario:
+    name: str
+    make: Callable[[np.random.Generator, int], tuple[np.ndarray, np.ndarray, np.ndarray]]
+    n: int
+    """Participants in total (two arms of n / 2)."""
+    planned: str = "change"
+    bounds: tuple | None = None
+    levels: list | None = None
+    description: str = ""
+
+
+VERDICT_SCENARIOS = {
+    "null-slope1-r08": VerdictScenario("null-slope1-r08", bivariate(1.0, 0.8), 200,
+                                       description="change planned, every assumption true: bivariate normal, slope 1, "
+                                                   "r 0.8, 100 per arm (true cost 0%)"),
+    "null-slope1-r045": VerdictScenario("null-slope1-r045", bivariate(1.0, 0.45), 200,
+                                        description="change planned, slope 1, r 0.45, follow-up SD 2.2 times baseline "
+                                                    "SD, 100 per arm: change as efficient as ANCOVA (true cost 0%)"),
+    "ancova-slope05": VerdictScenario("ancova-slope05", bivariate(0.5, 0.5), 200, planned="follow-up-adjusted",
+                                      description="ANCOVA planned, slope 0.5, r 0.5, 100 per arm"),
+    "change-slope05": VerdictScenario("change-slope05", bivariate(0.5, 0.5), 800,
+                                      description="change planned, slope 0.5, r 0.5, 400 per arm (true cost 33%)"),
+    "floor40": VerdictScenario("floor40", _floor40, 200, bounds=(0.0, float("inf")),
+                               description="change planned, about 40% of values at a floor of 0, 100 per arm"),
+    "ordinal04": VerdictScenario("ordinal04", _ordinal, 200, levels=[0, 1, 2, 3, 4],
+                                 description="change planned on a declared 0-4 ordinal score, 100 per arm"),
+    "large-slope097": VerdictScenario("large-slope097", bivariate(0.97, 0.8), 4000,
+                                      description="change planned, slope 0.97, r 0.8, 2,000 per arm (true cost 0.2%)"),
+}
+
+
+def verdict_rates(scenario: VerdictScenario, replicates: int, seed: int, n: int | None = None) -> dict[str, float]:
+    """Share of replicates with each overall verdict, and with each sub-finding flagged ("flag:<id>")."""
+    from ..checks.change_score import run
+
+    rng = np.random.default_rng(seed)
+    ctx = CheckContext(seed=seed, blinded=False, quick=True)
+    counts: dict[str, float] = {"sound": 0, "caution": 0, "unsupported": 0, "not assessable": 0,
+                                **{f"flag:{k}": 0 for k in SUBFINDINGS}}
+    for _ in range(replicates):
+        b, f, a = scenario.make(rng, n or scenario.n)
+        res = run(outcome_data_for(b, f, a, scenario.bounds, scenario.planned,
+                                   "ordinal" if scenario.levels else "continuous", scenario.levels), ctx)
+        counts[res.verdict.value] += 1
+        for s in res.subfindings:
+            counts[f"flag:{s.id}"] += s.verdict.value != "sound"
+    return {k: v / replicates for k, v in counts.items()}

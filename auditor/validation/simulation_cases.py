@@ -4,7 +4,7 @@ the violations it exists to find (N = 200 per simulated trial)."""
 from __future__ import annotations
 
 from .cases import SimulationCase, simulation
-from .change_score_cases import SCENARIOS, SUBFINDINGS, run_scenario
+from .change_score_cases import SCENARIOS, SUBFINDINGS, VERDICT_SCENARIOS, run_scenario, verdict_rates
 
 N = 200
 
@@ -20,12 +20,39 @@ for _sc in SCENARIOS:
         for _sub in SUBFINDINGS:
             simulation(SimulationCase(
                 f"change-score/null/{_sub}", "change-score", f"{_sc.name}: {_sub} flagged ({_sc.description})",
-                "<= 0.05 + 2 MCSE", _rate(_sc, _sub), "false-alarm", 0.05))
+                "<= 0.05 + 2 MCSE", _rate(_sc, _sub), "false-alarm", 0.05, quick_replicates=40))
     else:
         simulation(SimulationCase(
             f"change-score/{_sc.target}", "change-score", f"{_sc.name}: {_sc.target} flagged ({_sc.description})",
             ">= 0.80", _rate(_sc, _sc.target), "detection", 0.80))
 
+
+
+def _verdict_rate(key: str, *outcomes: str):
+    def compute(replicates: int, seed: int) -> float:
+        rates = verdict_rates(VERDICT_SCENARIOS[key], replicates, seed)
+        return sum(rates[o] for o in outcomes)
+    return compute
+
+
+# Verdict-level known truth of the change-score check (each scenario's design in its description).
+for _id, _key, _outs, _what, _kind, _target, _quick in [
+    ("null/verdict-unsupported", "null-slope1-r08", ("unsupported",), "called unsupported", "false-alarm", 0.05, None),
+    ("null/verdict-caution", "null-slope1-r08", ("caution",), "called caution", "false-alarm", 0.15, None),
+    ("null/unequal-variances", "null-slope1-r045", ("unsupported",), "called unsupported", "false-alarm", 0.05, None),
+    ("null/ancova-planned", "ancova-slope05", ("caution", "unsupported"), "called other than sound", "false-alarm",
+     0.15, None),
+    ("large-trial-small-slope", "large-slope097", ("unsupported",), "called unsupported", "false-alarm", 0.05, 6),
+    ("verdict/slope-half", "change-slope05", ("unsupported",), "called unsupported", "detection", 0.80, None),
+    ("verdict/floor", "floor40", ("caution", "unsupported"), "called caution or unsupported", "detection", 0.80, None),
+    ("verdict/ordinal", "ordinal04", ("caution", "unsupported"), "called caution or unsupported", "detection", 0.80,
+     None),
+]:
+    _sc = VERDICT_SCENARIOS[_key]
+    simulation(SimulationCase(
+        f"change-score/{_id}", "change-score", f"{_sc.description}: {_what}",
+        ("<= " if _kind == "false-alarm" else ">= ") + (f"{_target:.2f} + 2 MCSE" if _kind == "false-alarm" else f"{_target:.2f}"),
+        _verdict_rate(_key, *_outs), _kind, _target, **({"quick_replicates": _quick} if _quick else {})))
 
 def _gmr_coverage(replicates: int, seed: int) -> float:
     """Share of simulated multiplicative trials whose ratio-of-geometric-means CI covers the truth (0.7)."""
