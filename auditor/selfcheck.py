@@ -14,7 +14,7 @@ from dataclasses import asdict, dataclass
 
 from . import __version__
 from .pipeline import library_versions
-from .validation.cases import CaseOutcome, reference_cases, run_reference, run_simulation, simulation_cases
+from .validation.cases import CaseOutcome, case_seed, reference_cases, run_reference, run_simulation, simulation_cases
 
 
 @dataclass(frozen=True)
@@ -54,10 +54,10 @@ def run_selfcheck(full: bool = False, seed: int = 20261201, date: str | None = N
         if progress:
             progress(case.id)
     sim = []
-    for i, case in enumerate(simulation_cases()):
+    for case in simulation_cases():
         if only and not case.id.startswith(only):
             continue
-        sim.append(run_simulation(case, full, seed + i))
+        sim.append(run_simulation(case, full, case_seed(seed, case.id)))
         if progress:
             progress(case.id)
     return SelfcheckReport("full" if full else "quick", date or dt.date.today().isoformat(), __version__,

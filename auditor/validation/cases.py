@@ -114,6 +114,14 @@ def run_reference(case: ReferenceCase) -> CaseOutcome:
                        f"{case.tolerance:g}{' relative' if case.relative else ''}", ok, detail)
 
 
+def case_seed(base: int, case_id: str) -> int:
+    """The seed of one simulation case: the base seed plus a number fixed by the case's id (CRC-32
+    modulo 10^6), so adding or removing a case never changes the seeds of the others."""
+    import zlib
+
+    return base + zlib.crc32(case_id.encode("utf-8")) % 1_000_000
+
+
 def run_simulation(case: SimulationCase, full: bool, seed: int) -> CaseOutcome:
     reps = case.full_replicates if full else case.quick_replicates
     try:
