@@ -36,10 +36,11 @@ def escaped(char: str) -> str:
     return char.encode("unicode_escape").decode("ascii")
 
 
-def balanced(text: str) -> str:
+def balanced(text: str, escape_outside: bool = False) -> str:
     """``text`` with its own isolates balanced: a PDI with no initiator before it is shown as an
     escape (it would close the isolate around the string), and initiators left open are closed at
-    the end (they would swallow the isolate's own PDI)."""
+    the end (they would swallow the isolate's own PDI). With ``escape_outside``, every other
+    explicit control outside an isolate is shown as an escape too."""
     out, depth = [], 0
     for c in text:
         if c in _INITIATORS:
@@ -49,6 +50,9 @@ def balanced(text: str) -> str:
                 out.append(escaped(c))
                 continue
             depth -= 1
+        elif escape_outside and depth == 0 and _EXPLICIT.match(c):
+            out.append(escaped(c))
+            continue
         out.append(c)
     return "".join(out) + PDI * depth
 
@@ -71,20 +75,7 @@ def contained(text: str) -> str:
     Text inside balanced isolates (the user strings :class:`UserText` wrapped) is left as it is."""
     if not _EXPLICIT.search(text):
         return text
-    out, depth = [], 0
-    for c in text:
-        if c in _INITIATORS:
-            depth += 1
-        elif c == PDI:
-            if depth == 0:
-                out.append(escaped(c))
-                continue
-            depth -= 1
-        elif depth == 0 and _EXPLICIT.match(c):
-            out.append(escaped(c))
-            continue
-        out.append(c)
-    return "".join(out) + PDI * depth
+    return balanced(text, escape_outside=True)
 
 
 class UserText:
