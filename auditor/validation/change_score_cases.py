@@ -59,12 +59,18 @@ def _multiplicative(rng, n):
     return b, b * np.exp(0.1 * a + rng.normal(0, 0.25, n)), a
 
 
-def _floor(rng, n):
+def _censored_at_zero(rng, n, centre, spread, noise, effect):
+    """Baseline and follow-up from a shared latent normal, each with its own noise, censored at 0;
+    the active arm lowers the follow-up by ``effect``."""
     a = _arm(rng, n)
-    latent = rng.normal(1.0, 2.0, n)
-    b = np.maximum(0, latent + rng.normal(0, 0.7, n))
-    f = np.maximum(0, latent - 0.5 * a + rng.normal(0, 0.7, n))
+    latent = rng.normal(centre, spread, n)
+    b = np.maximum(0, latent + rng.normal(0, noise, n))
+    f = np.maximum(0, latent - effect * a + rng.normal(0, noise, n))
     return b, f, a
+
+
+def _floor(rng, n):
+    return _censored_at_zero(rng, n, centre=1.0, spread=2.0, noise=0.7, effect=0.5)
 
 
 def _truncated(rng, n):
@@ -150,11 +156,7 @@ def true_cost(slope: float, r: float) -> float:
 
 def _floor40(rng, n):
     """About 40% of baseline and follow-up values at a floor of 0 (a latent normal censored at 0)."""
-    a = _arm(rng, n)
-    latent = rng.normal(0.35, 1.4, n)
-    b = np.maximum(0, latent + rng.normal(0, 0.5, n))
-    f = np.maximum(0, latent - 0.3 * a + rng.normal(0, 0.5, n))
-    return b, f, a
+    return _censored_at_zero(rng, n, centre=0.35, spread=1.4, noise=0.5, effect=0.3)
 
 
 @dataclass(frozen=True)
