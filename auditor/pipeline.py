@@ -22,7 +22,7 @@ from .checks.registry import CheckContext, NotAssessable, all_checks
 from .errors import one_line_text
 from .failures import ToolDefect, data_reason, defect_reason, is_defect
 from .listing import left_out
-from .results import Audit, CheckInfo, CheckResult, LeftOut, Provenance, Verdict
+from .results import Audit, CheckInfo, CheckResult, LeftOut, Provenance, Verdict, estimate_key_problems
 from .study import MIN_PER_ARM, Study, load_study, outcome_data
 
 CAUTIONS = [
@@ -131,7 +131,7 @@ def run_one_check(check, data, ctx: CheckContext) -> CheckResult:
     """One check on one outcome; a failure the data explain becomes "not assessable" with the reason
     in the user's terms, a defect of the tool becomes "tool defect" (raised in strict mode)."""
     try:
-        return check.run(data, ctx)
+        return keys_checked(check.run(data, ctx), ctx)
     except NotAssessable as exc:
         return not_assessable(check, data.spec, one_line_text(exc, MAX_REASON_CHARS))
     except Exception as exc:  # a model that fails on these data must not cost the rest of the audit
@@ -140,6 +140,15 @@ def run_one_check(check, data, ctx: CheckContext) -> CheckResult:
                 raise ToolDefect(f"check {check.id} on {data.spec.param}: {type(exc).__name__}: {exc}") from exc
             return tool_defect(check, data.spec, exc)
         return not_assessable(check, data.spec, data_reason(exc))
+
+
+def keys_checked(res: CheckResult, ctx: CheckContext) -> CheckResult:
+    """The result, once its estimate keys are known to keep the contract (present, well formed,
+    unique); a broken key is a defect of the tool (raised, so that it is reported as one)."""
+    problems = estimate_key_problems(res)
+    if problems:
+        raise KeyError(f"{res.check_id} on {res.outcome}: " + "; ".join(problems))
+    return res
 
 
 def tool_defect(check, spec, exc: BaseException) -> CheckResult:

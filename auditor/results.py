@@ -12,8 +12,9 @@ from dataclasses import asdict, dataclass, field
 from enum import Enum
 from typing import Any
 
-SCHEMA_VERSION = "1.1"
-"""1.1: the ``checks`` list (id, title, order, summary of every check in the audit)."""
+SCHEMA_VERSION = "1.2"
+"""1.1: the ``checks`` list (id, title, order, summary of every check in the audit).
+1.2: every estimate carries a stable ``key`` (and ``arm`` when it describes one of several contrasts)."""
 
 
 class Verdict(str, Enum):
@@ -85,6 +86,34 @@ class Estimate:
     note: str = ""
     by_arm: bool = False
     """True when the number describes an arm or a contrast between arms (dropped in blinded audits)."""
+    key: str = ""
+    """Stable identifier of the quantity, ``<check-id>.<part>[.<part>...]`` (:data:`ESTIMATE_KEY`):
+    the same from one data cut to the next, whatever the numbers, arm names or display wording, so
+    that pipelines and ``auditor compare`` match estimates on it. An arm or contrast is a role or an
+    index (``contrast-1``), never its label; the label is in :attr:`arm`."""
+    arm: str = ""
+    """The arm or contrast (as labelled in the data) the number describes, when it is one of several."""
+
+
+ESTIMATE_KEY = r"^[a-z0-9-]+(\.[a-z0-9-]+)+$"
+"""The pattern every estimate key matches: dot-separated lower-case words of letters, digits, hyphens."""
+
+
+def estimate_key_problems(res: "CheckResult") -> list[str]:
+    """Why a result's estimate keys break the contract, if they do: a key missing, not matching
+    :data:`ESTIMATE_KEY`, not starting with the check id, or used twice in the result."""
+    import re
+
+    problems, seen = [], set()
+    for e in res.estimates:
+        if not re.match(ESTIMATE_KEY, e.key):
+            problems.append(f"estimate '{e.name}' has key '{e.key}', which does not match {ESTIMATE_KEY}")
+        elif not e.key.startswith(res.check_id + "."):
+            problems.append(f"estimate key '{e.key}' does not start with the check id '{res.check_id}.'")
+        if e.key in seen:
+            problems.append(f"estimate key '{e.key}' is used twice")
+        seen.add(e.key)
+    return problems
 
 
 @dataclass(frozen=True)

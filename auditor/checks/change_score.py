@@ -194,7 +194,8 @@ def selection_part(data, df, ctx, test, scale, note, p_adj) -> Part:
     edge = float(np.min(b) if test.edge_side == "lower" else np.max(b))
     extra = f"; {note}" if note else ""
     est = [estimate(f"Truncation-edge test{scale}, likelihood-ratio statistic", test.statistic,
-                    p=test.p_value, note=f"{test.edge_side} edge at {fmt(edge)}; Holm-adjusted p {p_adj:.3g}")]
+                    p=test.p_value, note=f"{test.edge_side} edge at {fmt(edge)}; Holm-adjusted p {p_adj:.3g}",
+                    key="change-score.selection.edge-test")]
     ps = f"{fmt_p(test.p_value)}, Holm-adjusted {fmt_p(p_adj)}"
     if p_adj < ALPHA:
         return Part(SubFinding("selection", q, Verdict.CAUTION,
@@ -223,7 +224,8 @@ def declared_selection_part(data, ctx) -> Part:
                                f"{exc})"), [],
                     "participants were selected on this measurement, so regression to the mean is expected")
     est = [estimate("Share of the fitted population the entry criterion leaves out", 100 * share_out, unit="%",
-                    note="truncated-normal fit of the entry reading, as in the regression-to-the-mean check")]
+                    note="truncated-normal fit of the entry reading, as in the regression-to-the-mean check",
+                    key="change-score.selection.share-excluded")]
     reach = f"the population fitted to the entry readings puts {share_text(share_out)} beyond the cutoff"
     if share_out < NEGLIGIBLE_EXCLUDED:
         return Part(SubFinding("selection", q, Verdict.SOUND,
@@ -246,7 +248,7 @@ def linearity_part(test, model: BaselineModel, p_adj) -> Part:
     ev = f"F = {fmt(test.statistic)} on {test.df_num} and {fmt(test.df_den, 0)} df, {ps} ({what})"
     ok = p_adj >= ALPHA
     est = [estimate(f"Nonlinearity in baseline ({what}), F statistic", test.statistic, p=test.p_value,
-                    note=f"Holm-adjusted p {p_adj:.3g}")]
+                    note=f"Holm-adjusted p {p_adj:.3g}", key="change-score.linearity.nonlinearity-f")]
     return Part(SubFinding("linearity", q, _verdict(ok, soft=True),
                            ev if not ok else f"no evidence of nonlinearity: {ev}"), est,
                 "" if ok else f"follow-up is nonlinear in baseline ({ps})")
@@ -258,7 +260,7 @@ def scale_part(trend, prof, p_adj_trend, p_adj_boxcox, p_boxcox) -> Part:
     parts = [f"trend of the residual spread with baseline: {fmt_p(trend.p_value)}, Holm-adjusted "
              f"{fmt_p(p_adj_trend)}"]
     est = [estimate("Trend of |residual| with baseline (slope)", trend.slope, p=trend.p_value,
-                    note=f"Holm-adjusted p {p_adj_trend:.3g}")]
+                    note=f"Holm-adjusted p {p_adj_trend:.3g}", key="change-score.scale.residual-trend")]
     bad = p_adj_trend < ALPHA
     phrase = f"the spread of change {grows} with baseline" if bad else ""
     if prof is not None:
@@ -266,7 +268,8 @@ def scale_part(trend, prof, p_adj_trend, p_adj_boxcox, p_boxcox) -> Part:
                      f"the raw scale (power 1): {fmt_p(p_boxcox)}, Holm-adjusted {fmt_p(p_adj_boxcox)}")
         est.append(estimate("Box-Cox power for baseline and follow-up (1 = raw scale, 0 = log)", prof.lam,
                             prof.lower, prof.upper, p=p_boxcox,
-                            note=f"95% profile-likelihood interval; Holm-adjusted p of power 1: {p_adj_boxcox:.3g}"))
+                            note=f"95% profile-likelihood interval; Holm-adjusted p of power 1: {p_adj_boxcox:.3g}",
+                            key="change-score.scale.box-cox-power"))
         if p_adj_boxcox < ALPHA:
             bad = True
             phrase = ("a log scale fits better than the raw scale" if prof.includes(0.0)
@@ -291,7 +294,8 @@ def bounds_part(df, spec) -> Part:
     ev = (f"largest share at a bound ({src} bounds; a value is at a bound when it equals it): {at}; "
           f"threshold {100 * BOUND_SHARE:.0f}%")
     est = [estimate(f"Share at the {side} bound, {name.replace('followup', 'follow-up')}", share,
-                    note=f"bound {fmt(bound)}") for name, side, bound, share in rows]
+                    note=f"bound {fmt(bound)}",
+                    key=f"change-score.bounds.{name}.{side}") for name, side, bound, share in rows]
     return Part(SubFinding("bounds", q, _verdict(ok, soft=True), ev), est,
                 "" if ok else f"{100 * worst:.0f}% of values sit at the {where.split(' at ')[0]}")
 
@@ -302,8 +306,10 @@ def interval_part(df, spec) -> Part:
     few = g.integer_valued and g.n_distinct <= FEW_LEVELS
     ev = (f"{g.n_distinct} distinct values; {100 * g.tie_share:.0f}% tied; {100 * g.top_share:.0f}% at "
           f"{fmt(g.top_value)}")
-    est = [estimate("Distinct values (baseline and follow-up)", float(g.n_distinct)),
-           estimate("Share at the most common value", g.top_share, note=f"value {fmt(g.top_value)}")]
+    est = [estimate("Distinct values (baseline and follow-up)", float(g.n_distinct),
+                    key="change-score.interval.distinct-values"),
+           estimate("Share at the most common value", g.top_share, note=f"value {fmt(g.top_value)}",
+                    key="change-score.interval.top-share")]
     if spec.scale == "ordinal" or few:
         why = "declared ordinal" if spec.scale == "ordinal" else f"only {g.n_distinct} integer levels"
         return Part(SubFinding("interval", q, Verdict.CAUTION,
@@ -323,7 +329,7 @@ def slope_part(test, adj, p_adj) -> Part:
           f"{'' if ok else ', a detectable departure'}; what a slope other than 1 costs a change analysis is "
           f"sized in the efficiency sub-finding, which decides the verdict")
     e = [estimate(f"Slope of follow-up on baseline ({adj})", test.estimate, test.lower, test.upper, test.p_value,
-                  note=f"p: t test of slope 1; Holm-adjusted p {p_adj:.3g}")]
+                  note=f"p: t test of slope 1; Holm-adjusted p {p_adj:.3g}", key="change-score.slope.slope")]
     return Part(SubFinding("slope", q, _verdict(ok, soft=True), ev if not ok else f"no evidence against slope 1: {ev}"),
                 e, "" if ok else f"slope {fmt_ci(test.estimate, test.lower, test.upper)}")
 
@@ -343,12 +349,15 @@ def efficiency_part(df, arms, ctx) -> tuple[Part, object, object]:
     est = [
         estimate("Sample-size ratio, change / ANCOVA (this trial's variances)", cost.ratio, cost.lower, cost.upper,
                  note="var(change) / residual variance of ANCOVA, within arm (Frison and Pocock 1992); CI by the "
-                      "delta method"),
-        estimate("Correlation of baseline with follow-up (Pearson r)", r.r, r.lower, r.upper, r.p_value),
+                      "delta method", key="change-score.efficiency.ratio-vs-ancova"),
+        estimate("Correlation of baseline with follow-up (Pearson r)", r.r, r.lower, r.upper, r.p_value,
+                 key="change-score.efficiency.correlation"),
         estimate("Sample-size ratio, change / ANCOVA (equal variances)", eq.ratio, eq.lower, eq.upper,
-                 note="2/(1+r); CI from the CI of r; assumes equal variances"),
+                 note="2/(1+r); CI from the CI of r; assumes equal variances",
+                 key="change-score.efficiency.ratio-vs-ancova-equal-var"),
         estimate("Sample-size ratio, change / follow-up only (equal variances)", change_vs_fu.ratio,
-                 change_vs_fu.lower, change_vs_fu.upper, note="2(1-r); CI from the CI of r"),
+                 change_vs_fu.lower, change_vs_fu.upper, note="2(1-r); CI from the CI of r",
+                 key="change-score.efficiency.ratio-vs-followup-equal-var"),
     ]
     if cost.lower > MATERIAL_RATIO:
         verdict, phrase = Verdict.UNSUPPORTED, f"change needs {_cost_ci(cost)} than ANCOVA"
@@ -406,9 +415,11 @@ def analyses_table(df, arms, control, model: BaselineModel):
     ratio_fu = empirical_ratio(se[("change score", contrast)], se[("follow-up only", contrast)])
     ests = [
         estimate(f"Empirical sample-size ratio, change / spline ANCOVA ({contrast})", ratio_anc,
-                 note="(SE change / SE ANCOVA)^2 from the fitted analyses", by_arm=True),
+                 note="(SE change / SE ANCOVA)^2 from the fitted analyses", by_arm=True,
+                 key="change-score.efficiency.empirical-ratio-vs-ancova.by-arm", arm=contrast),
         estimate(f"Empirical sample-size ratio, change / follow-up only ({contrast})", ratio_fu,
-                 note="(SE change / SE follow-up)^2 from the fitted analyses", by_arm=True),
+                 note="(SE change / SE follow-up)^2 from the fitted analyses", by_arm=True,
+                 key="change-score.efficiency.empirical-ratio-vs-followup.by-arm", arm=contrast),
     ]
     return table, ests, ratio_anc, effects
 
@@ -478,7 +489,8 @@ def heterogeneity_part(df, arms, control):
                   ["Arm", "N", "r (change, baseline)", "lower", "upper", "p"], rows,
                   note=f"ANCOVA test of arm x baseline interaction: F = {fmt(inter.statistic)} on {inter.df_num} "
                        f"and {fmt(inter.df_den, 0)} df, {fmt_p(inter.p_value)}.", by_arm=True)
-    est = [estimate("Arm x baseline interaction in ANCOVA (F)", inter.statistic, p=inter.p_value, by_arm=True)]
+    est = [estimate("Arm x baseline interaction in ANCOVA (F)", inter.statistic, p=inter.p_value, by_arm=True,
+                    key="change-score.arm-interaction.f")]
     caveat = ""
     ctrl = next((r for r in rows if r[0] == control), None)
     if ctrl is not None and ctrl[5] < ALPHA and ctrl[2] < 0 and inter.p_value >= ALPHA:
@@ -643,7 +655,8 @@ def run(data, ctx: CheckContext):
         "slope": slope_part(slope, adj, p_slope),
         "efficiency": eff_part,
     }
-    estimates = [estimate("Participants with baseline and follow-up", float(len(df)))]
+    estimates = [estimate("Participants with baseline and follow-up", float(len(df)),
+                          key="change-score.n-participants")]
     for p in parts.values():
         estimates += p.estimates
     tables, caveats = [], []

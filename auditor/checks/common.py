@@ -68,8 +68,10 @@ def thin(df: pd.DataFrame, seed: int, limit: int = MAX_FIGURE_POINTS) -> tuple[p
 
 
 def estimate(name: str, est: float, lo: float | None = None, hi: float | None = None,
-             p: float | None = None, unit: str = "", note: str = "", by_arm: bool = False) -> Estimate:
-    return Estimate(name, est, lo, hi, p, unit, note, by_arm)
+             p: float | None = None, unit: str = "", note: str = "", by_arm: bool = False, key: str = "",
+             arm: str = "") -> Estimate:
+    """One estimate row; ``key`` is its stable identifier (see :attr:`auditor.results.Estimate.key`)."""
+    return Estimate(name, est, lo, hi, p, unit, note, by_arm, key, arm)
 
 
 def result(check, data: OutcomeData, verdict: Verdict, headline: str, **kw) -> CheckResult:

@@ -153,12 +153,13 @@ def run(data, ctx: CheckContext):
     rate = _rate_model(df, cols, ctx)
 
     estimates = [
-        estimate("Participants with a follow-up count and its time", float(spread.n)),
-        estimate("Median observation time", spread.median, unit=spec.exposure),
-        estimate("Shortest observation time", spread.minimum, unit=spec.exposure),
-        estimate("Longest observation time", spread.maximum, unit=spec.exposure),
-        estimate("Coefficient of variation of observation time", spread.cv),
-        estimate("Share observed for less than 80% of the median time", spread.share_short),
+        estimate("Participants with a follow-up count and its time", float(spread.n), key="count-time.n-participants"),
+        estimate("Median observation time", spread.median, unit=spec.exposure, key="count-time.time.median"),
+        estimate("Shortest observation time", spread.minimum, unit=spec.exposure, key="count-time.time.min"),
+        estimate("Longest observation time", spread.maximum, unit=spec.exposure, key="count-time.time.max"),
+        estimate("Coefficient of variation of observation time", spread.cv, key="count-time.time.cv"),
+        estimate("Share observed for less than 80% of the median time", spread.share_short,
+                 key="count-time.time.share-short"),
     ]
     spread_text = (f"median {fmt(spread.median)} (range {fmt(spread.minimum)} to {fmt(spread.maximum)}), "
                    f"coefficient of variation {fmt(spread.cv)}; {100 * spread.share_short:.0f}% observed "
@@ -176,7 +177,8 @@ def run(data, ctx: CheckContext):
         b, lo, hi = scaling.coefficient("log observation time")
         scale_ok = lo <= 1.0 <= hi
         estimates.append(estimate("Growth of the count with observation time (log-log slope)", b, lo, hi,
-                                  note="1 when the count is proportional to time"))
+                                  note="1 when the count is proportional to time",
+                                  key="count-time.proportional.log-log-slope"))
         subs.append(SubFinding("proportional", "Does the count grow in proportion to observation time?",
                                Verdict.SOUND if scale_ok else Verdict.CAUTION,
                                f"log-log slope {fmt_ci(b, lo, hi)}; {'includes' if scale_ok else 'excludes'} 1"))
@@ -193,14 +195,17 @@ def run(data, ctx: CheckContext):
         comparisons, count_notes = _comparisons(df, arms, data.control_arm, cols, rate, ctx)
         fit_warnings += count_notes
         rows = []
-        for c in comparisons:
+        for i, c in enumerate(comparisons, 1):
             (rr, rl, ru, rp), (cr, cl, cu, cp) = c["rate"], c["count"]
             shift = cr / rr
             material = material or max(shift, 1 / shift) >= MATERIAL_RATIO
-            estimates += [estimate(f"Rate ratio, {c['name']} (log time as offset)", rr, rl, ru, rp, by_arm=True),
-                          estimate(f"Count ratio, {c['name']} (time ignored)", cr, cl, cu, cp, by_arm=True),
+            estimates += [estimate(f"Rate ratio, {c['name']} (log time as offset)", rr, rl, ru, rp, by_arm=True,
+                                   key=f"count-time.rate-ratio.contrast-{i}", arm=c["name"]),
+                          estimate(f"Count ratio, {c['name']} (time ignored)", cr, cl, cu, cp, by_arm=True,
+                                   key=f"count-time.count-ratio.contrast-{i}", arm=c["name"]),
                           estimate(f"Count ratio over rate ratio, {c['name']}", shift, by_arm=True,
-                                   note=f"material at {MATERIAL_RATIO:g} or its inverse")]
+                                   note=f"material at {MATERIAL_RATIO:g} or its inverse",
+                                   key=f"count-time.count-over-rate.contrast-{i}", arm=c["name"])]
             rows += [["rate model (reference)", c["name"], "ratio of rates", rr, rl, ru],
                      ["counts, time ignored", c["name"], "ratio of counts", cr, cl, cu]]
         tables.append(Table("rate-vs-count", "The treatment comparison with and without observation time, "

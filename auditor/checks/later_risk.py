@@ -855,17 +855,18 @@ class _View:
     def estimates(self):
         an, arm, unit = self.an, self.arm, self.unit
         low = an.lowest
-        out = [estimate("Participants analysed", float(len(an.y))),
-               estimate(f"Participants with the event ({self.endpoint})", float(an.events))]
+        out = [estimate("Participants analysed", float(len(an.y)), key="later-risk.n-participants"),
+               estimate(f"Participants with the event ({self.endpoint})", float(an.events), key="later-risk.n-events")]
         out.append(estimate("Latest value at which the modelled risk is lowest", low.at, low.lower, low.upper,
                             unit=unit, note=(f"percentile bootstrap, {low.resamples} resamples ({low.failed} "
                                              f"not fitted); searched between the 5th and 95th percentiles"
                                              if low.resamples else "searched between the 5th and 95th percentiles"),
-                            by_arm=arm))
+                            by_arm=arm, key="later-risk.lowest-risk-value"))
         band = full_curve(an, [low.at], [float(np.median(an.earlier))], self.level)
         out.append(estimate("Modelled risk at that value", 100 * float(band.risk[0]), 100 * float(band.lower[0]),
                             100 * float(band.upper[0]), unit="%",
-                            note="earlier value at its median, covariates at their means", by_arm=arm))
+                            note="earlier value at its median, covariates at their means", by_arm=arm,
+                            key="later-risk.lowest-risk"))
         m = an.shape.minimum
         if m.interior:
             z = stats.norm.ppf(0.5 + self.level / 2)
@@ -874,31 +875,33 @@ class _View:
                                     f"({self.x(e.at)}) against the lowest point", math.exp(e.difference),
                                     math.exp(e.difference - z * e.se), math.exp(e.difference + z * e.se),
                                     e.p_adjusted, note=f"one-sided p adjusted for the choice of the lowest "
-                                                       f"point (pointwise {fmt_p(e.p_value)})", by_arm=arm))
+                                                       f"point (pointwise {fmt_p(e.p_value)})", by_arm=arm,
+                                    key=f"later-risk.odds-ratio-vs-lowest.p{name[:-2]}"))
         sv = an.same_value
         o, lo, hi = sv.interval(self.level)
         out.append(estimate(f"Odds ratio of the event with no change, starting at the 90th ({self.x(sv.high)}) "
                             f"against the 10th ({self.x(sv.low)}) percentile of the earlier value", o, lo, hi,
                             note="model of both values; a change- or ratio-based definition assumes 1",
-                            by_arm=arm))
+                            by_arm=arm, key="later-risk.same-value-odds-ratio"))
         p = an.partition
         for block, what in ((LATEST, "latest"), (EARLIER, "earlier")):
             out.append(estimate(f"Share of the explainable chi-square carried by the {what} value alone",
                                 100 * p.share(block), p=p.total[block].p_value, unit="%",
                                 note=f"partial chi-square {fmt(p.total[block].statistic, 1)} on "
                                      f"{p.total[block].df} df over the {fmt(p.joint.statistic, 1)} of both",
-                                by_arm=arm))
+                                by_arm=arm, key=f"later-risk.chi-square-share.{what}"))
         for d in an.derived:
             t = d.information
             out.append(estimate(f"Chi-square lost by a {d.definition.label}-only definition", t.statistic,
                                 p=t.p_value, note=f"{t.df} df; nested in the model of both values "
                                                          f"plus the {d.definition.label}'s nonlinear terms",
-                                by_arm=arm))
+                                by_arm=arm, key=f"later-risk.information-lost.{d.definition.kind.replace(' ', '-')}"))
             r, lo, hi = d.weight_ratio
             out.append(estimate(f"Weight of the earlier value relative to the latest ({d.definition.label} "
                                 f"assumes -1)", r, lo, hi, d.weights.p_value,
                                 note="models linear in the " + ("log values" if d.definition.log else "values")
-                                     + "; p tests -1 (1 df)", by_arm=arm))
+                                     + "; p tests -1 (1 df)", by_arm=arm,
+                                key=f"later-risk.earlier-weight.{d.definition.kind.replace(' ', '-')}"))
         return out
 
     # -- tables

@@ -205,11 +205,13 @@ def _definedness(inp: _Inputs, spec, out: _Collect) -> Verdict:
     out.sub("defined", "Is percent change defined and stable for every participant (no baseline at, below "
             "or near zero)?", verdict, "; ".join(parts))
     out.estimates += [
-        estimate("Baselines at or below zero (percent change undefined)", float(ins.n_undefined)),
+        estimate("Baselines at or below zero (percent change undefined)", float(ins.n_undefined),
+                 key="percent-change.undefined-baselines"),
         estimate(f"Baselines below {ins.fraction:.0%} of the median", float(ins.n_near_zero),
-                 note=f"threshold {_g(ins.threshold)}{' ' + spec.unit if spec.unit else ''}"),
-        estimate("Largest percent rise", ins.largest_rise, unit="%"),
-        estimate("Largest percent fall", ins.largest_fall, unit="%"),
+                 note=f"threshold {_g(ins.threshold)}{' ' + spec.unit if spec.unit else ''}",
+                 key="percent-change.near-zero-baselines"),
+        estimate("Largest percent rise", ins.largest_rise, unit="%", key="percent-change.largest-rise"),
+        estimate("Largest percent fall", ins.largest_fall, unit="%", key="percent-change.largest-fall"),
     ]
     out.tables.append(_extremes_table(inp, ins))
     out.figures.append(_scatter(inp, ins, spec))
@@ -263,9 +265,9 @@ def _recoding(inp: _Inputs, spec, ctx: CheckContext, out: _Collect) -> Verdict:
         a, c = e1.estimate, e2.estimate
         what = f"difference in mean percent change, {_contrast_label(first, inp.control)}"
         out.estimates += [estimate("Percent-change effect, declared codes", a, e1.lower, e1.upper, e1.p_value,
-                                   unit="%", by_arm=True),
+                                   unit="%", by_arm=True, key="percent-change.code-shift.declared"),
                           estimate(f"Percent-change effect, codes shifted by {shift:+g}", c, e2.lower, e2.upper,
-                                   e2.p_value, unit="%", by_arm=True)]
+                                   e2.p_value, unit="%", by_arm=True, key="percent-change.code-shift.shifted")]
     else:
         a, c = rows[0][3], rows[1][3]
         what = "pooled mean percent change"
@@ -306,11 +308,12 @@ def _asymmetry(inp: _Inputs, spec, out: _Collect) -> Verdict:
             f"percent change skewness {fmt(s_pc.skewness)} with {s_pc.n_far_out} far-out value(s) and "
             f"{s_pc.n_at_floor} at -100%; {lr_text}")
     out.estimates += [estimate("Skewness of percent change", s_pc.skewness, p=s_pc.skew_p,
-                               note="p: D'Agostino test of zero skewness")]
+                               note="p: D'Agostino test of zero skewness", key="percent-change.skewness")]
     if s_lr:
         out.estimates.append(estimate("Skewness of the log ratio log(follow-up/baseline)", s_lr.skewness,
-                                      p=s_lr.skew_p))
-    out.estimates.append(estimate("Percent changes at the -100% bound", float(s_pc.n_at_floor)))
+                                      p=s_lr.skew_p, key="percent-change.skewness-log-ratio"))
+    out.estimates.append(estimate("Percent changes at the -100% bound", float(s_pc.n_at_floor),
+                                  key="percent-change.at-floor"))
     panels = [{"title": "Percent change", "values": pc[np.isfinite(pc)].tolist(), "xlabel": "percent change (%)",
                "markers": [{"x": -100.0}, {"x": 0.0}]}]
     if s_lr:
@@ -334,7 +337,7 @@ def _baseline_dependence(inp: _Inputs, spec, ctx: CheckContext, out: _Collect) -
     ok = np.isfinite(pc)
     rho = spearman(inp.b[ok], pc[ok], ctx.level)
     out.estimates.append(estimate("Spearman correlation of percent change with baseline, pooled", rho.r,
-                                  rho.lower, rho.upper, rho.p_value))
+                                  rho.lower, rho.upper, rho.p_value, key="percent-change.baseline-spearman"))
     rows = []
     for a in inp.arms:
         sel = ok & (inp.arm == a)
@@ -483,19 +486,22 @@ def _report_effects(fits: _Fits, cost: _Cost, inp: _Inputs, spec, out: _Collect)
          "Participants needed vs reference"], rows,
         note=(f"Reference: {ref_name}. Efficiency: (z / z_ref)^2, the squared ratio of standardised effects; "
               "participants needed is its inverse. " + fits.ordinal_note).strip(), by_arm=True))
-    for e in fits.reference:
+    for i, e in enumerate(fits.reference, 1):
         label = _contrast_label(e.contrast, inp.control)
         if ref_name == "log-scale ANCOVA":
             r, lo, hi = e.exp()
             out.estimates.append(estimate(f"Ratio of geometric means, {label} (log-scale ANCOVA)", r, lo, hi,
-                                          e.p_value, by_arm=True))
+                                          e.p_value, by_arm=True,
+                                          key=f"percent-change.reference-ratio.contrast-{i}", arm=label))
         else:
             out.estimates.append(estimate(f"Difference in follow-up, {label} ({ref_name})", e.estimate, e.lower,
-                                          e.upper, e.p_value, unit=spec.unit, by_arm=True))
+                                          e.upper, e.p_value, unit=spec.unit, by_arm=True,
+                                          key=f"percent-change.reference-difference.contrast-{i}", arm=label))
     out.estimates.append(estimate(
         f"Efficiency of {fits.planned_design.analysis} vs {ref_name}, {_contrast_label(cost.contrast, inp.control)}",
         cost.efficiency, cost.interval.lower, cost.interval.upper,
-        note=f"percentile bootstrap within arm, {cost.interval.replicates} replicates", by_arm=True))
+        note=f"percentile bootstrap within arm, {cost.interval.replicates} replicates", by_arm=True,
+                                  key="percent-change.planned-efficiency"))
 
 
 def _rate_cost(fits: _Fits, cost: _Cost, inp: _Inputs, out: _Collect) -> Verdict | None:
@@ -566,15 +572,18 @@ def _responder(inp: _Inputs, spec, ctx: CheckContext, resp: np.ndarray, cost: _C
     rule_text = f"{basis} {'at least' if rule.direction == 'at-least' else 'at most'} {rule.threshold:g}" + (
         "%" if rule.basis == "percent-change" else "")
     out.estimates += [
-        estimate("Responders (pooled)", c.share_observed, note=f"rule: {rule_text}; {c.n} participants"),
+        estimate("Responders (pooled)", c.share_observed, note=f"rule: {rule_text}; {c.n} participants",
+                 key="percent-change.responders"),
         estimate("Responder share predicted by a normal change", c.share_normal,
                  note=f"cut {fmt(c.cut, 3)} on the {c.scale} scale, mean {fmt(c.mean, 3)}, SD {fmt(c.sd, 3)}, "
-                      f"z = {fmt(c.z_cut)}"),
+                      f"z = {fmt(c.z_cut)}", key="percent-change.responders-normal"),
         estimate("Efficiency of dichotomising (normal theory)", c.dichotomy_efficiency,
-                 note="phi(z)^2 / (Phi(z)(1 - Phi(z)))"),
-        estimate("Efficiency of change against ANCOVA (normal theory)", c.change_efficiency),
+                 note="phi(z)^2 / (Phi(z)(1 - Phi(z)))", key="percent-change.dichotomy-efficiency"),
+        estimate("Efficiency of change against ANCOVA (normal theory)", c.change_efficiency,
+                 key="percent-change.change-efficiency"),
         estimate("Sample-size inflation of the responder comparison against ANCOVA", c.inflation,
-                 note="normal theory, pooled data; 1 / (product of the two efficiencies)"),
+                 note="normal theory, pooled data; 1 / (product of the two efficiencies)",
+                 key="percent-change.responder-inflation"),
     ]
     empirical = cost if cost is not None and cost.informative else None
     verdict = _dichotomy_verdict(c.inflation, normal_ok, empirical)
@@ -627,9 +636,12 @@ def _responder_baseline(inp: _Inputs, spec, ctx: CheckContext, resp: np.ndarray,
     verdict = Verdict.CAUTION if material else Verdict.SOUND
     out.estimates += [
         estimate("Log odds of responding per unit of baseline (pooled logistic)", curve.slope, curve.slope_lower,
-                 curve.slope_upper, curve.p_value, unit=f"per {spec.unit}" if spec.unit else ""),
-        estimate(f"Responder probability at the 10th baseline percentile ({_g(curve.x_low)})", curve.prob_low),
-        estimate(f"Responder probability at the 90th baseline percentile ({_g(curve.x_high)})", curve.prob_high),
+                 curve.slope_upper, curve.p_value, unit=f"per {spec.unit}" if spec.unit else "",
+                 key="percent-change.responder-baseline-slope"),
+        estimate(f"Responder probability at the 10th baseline percentile ({_g(curve.x_low)})", curve.prob_low,
+                 key="percent-change.responder-probability.p10"),
+        estimate(f"Responder probability at the 90th baseline percentile ({_g(curve.x_high)})", curve.prob_high,
+                 key="percent-change.responder-probability.p90"),
     ]
     out.sub("responder-baseline", "Is the chance of responding free of baseline (less than 10 points across the "
             "10th to 90th baseline percentiles)?", verdict,
@@ -664,7 +676,8 @@ def run(data, ctx: CheckContext):
     spec = data.spec
     inp = _inputs(data, ctx)
     out = _Collect()
-    out.estimates.append(estimate("Participants with baseline and follow-up", float(len(inp.b))))
+    out.estimates.append(estimate("Participants with baseline and follow-up", float(len(inp.b)),
+                                  key="percent-change.n-participants"))
     verdicts = []
     out.cite("vickers-2001")
     if inp.uses_percent:

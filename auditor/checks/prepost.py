@@ -74,10 +74,10 @@ def run(data, ctx: CheckContext):
     adjusted = "adjusted for arm" if len(arms) > 1 else "pooled"
 
     estimates = [
-        estimate("Participants with baseline and follow-up", float(len(df))),
-        estimate("Pearson correlation, pooled", pr.r, pr.lower, pr.upper, pr.p_value),
-        estimate("Spearman correlation, pooled", sp.r, sp.lower, sp.upper, sp.p_value),
-        estimate(f"Slope of follow-up on baseline ({adjusted})", slope, s_lo, s_hi, s_p),
+        estimate("Participants with baseline and follow-up", float(len(df)), key="pre-post.n-participants"),
+        estimate("Pearson correlation, pooled", pr.r, pr.lower, pr.upper, pr.p_value, key="pre-post.pearson"),
+        estimate("Spearman correlation, pooled", sp.r, sp.lower, sp.upper, sp.p_value, key="pre-post.spearman"),
+        estimate(f"Slope of follow-up on baseline ({adjusted})", slope, s_lo, s_hi, s_p, key="pre-post.slope"),
     ]
     rows = []
     for arm in arms:

@@ -585,12 +585,13 @@ def second_baseline_share(data, ctx, rd, scale, sel, rel, rho, out: Out) -> floa
             decay = bias_after_second_baseline(fit.mu, fit.sigma, cut, rho_screen_second=rho,
                                                rho_screen_followup=rho_bf, direction=sel.direction)
             out.estimates.append(estimate("Share of the bias a second baseline removes, true levels stable",
-                                          100 * stable.share_removed, unit="%", by_arm=rel.by_arm))
+                                          100 * stable.share_removed, unit="%", by_arm=rel.by_arm,
+                                          key="regression-to-mean.second-baseline-share-stable"))
             share, by_arm = decay.share_removed, rel.by_arm or group.by_arm
             note = (f"with the slope of follow-up on {sel.visit} {group.where}, {fmt(rho_bf)}, below the "
                     f"reliability {fmt(rho)}: part of the selection carries over to a second baseline")
     out.estimates.append(estimate("Share of the bias a second, later baseline would remove", 100 * share,
-                                  unit="%", note=note, by_arm=by_arm))
+                                  unit="%", note=note, by_arm=by_arm, key="regression-to-mean.second-baseline-share"))
     return float(share)
 
 
@@ -652,7 +653,8 @@ def selection_section(sel, finds, n_kept, n_excluded, out: Out, share_out: float
         out.estimates.append(estimate(f"Truncation-edge test of {f.visit}{f.scale_note}, "
                                       f"likelihood-ratio statistic", f.test.statistic, p=f.test.p_value,
                                       note=f"{f.test.edge_side} edge at {fmt(f.edge)}; tested at level "
-                                           f"{f.level:g}"))
+                                           f"{f.level:g}",
+                                      key=f"regression-to-mean.edge-test.{f.column.replace('_', '-')}"))
     if sel is None:
         out.sub("selection", q, Verdict.SOUND,
                 f"no entry criterion declared; no truncation edge ({tests or 'too few distinct values to test'})")
@@ -671,11 +673,11 @@ def selection_section(sel, finds, n_kept, n_excluded, out: Out, share_out: float
         ev = f"no entry criterion declared, but {tests}"
     out.sub("selection", q, verdict, ev)
     out.estimates.append(estimate(f"Participants with the entry reading ({sel.visit}) meeting the cutoff",
-                                  float(n_kept)))
+                                  float(n_kept), key="regression-to-mean.entry-met"))
     if n_excluded:
         share = n_excluded / (n_excluded + n_kept)
         out.estimates.append(estimate("Entry readings on the excluded side of the cutoff (left out)",
-                                      float(n_excluded)))
+                                      float(n_excluded), key="regression-to-mean.entry-excluded"))
         out.sub("criterion-honoured", "Do the entry readings honour the criterion?",
                 Verdict.CAUTION if share > VIOLATION_SHARE else Verdict.SOUND,
                 f"{n_excluded} of {n_excluded + n_kept} ({share:.0%}) lie on the excluded side; they are left "
@@ -690,28 +692,35 @@ def population_section(spec, scale, sel, out: Out) -> None:
     if scale.log:
         out.estimates += [
             estimate("Geometric mean of the unselected population (truncated-normal MLE)", math.exp(fit.mu),
-                     math.exp(lo), math.exp(hi), unit=spec.unit, note="Wald interval on the log scale"),
-            estimate("SD of log values in the unselected population", fit.sigma, s_lo, s_hi)]
+                     math.exp(lo), math.exp(hi), unit=spec.unit, note="Wald interval on the log scale",
+                     key="regression-to-mean.population-geometric-mean"),
+            estimate("SD of log values in the unselected population", fit.sigma, s_lo, s_hi,
+                     key="regression-to-mean.population-log-sd")]
     else:
         out.estimates += [
             estimate("Mean of the unselected population (truncated-normal MLE)", fit.mu, lo, hi, unit=spec.unit,
-                     note="Wald interval"),
-            estimate("SD of the unselected population", fit.sigma, s_lo, s_hi, unit=spec.unit)]
+                     note="Wald interval", key="regression-to-mean.population-mean"),
+            estimate("SD of the unselected population", fit.sigma, s_lo, s_hi, unit=spec.unit,
+                     key="regression-to-mean.population-sd")]
     out.estimates.append(estimate("Share of the unselected population meeting the cutoff (fitted)",
-                                  100 * (1 - excluded_share(scale, sel)), unit="%"))
+                                  100 * (1 - excluded_share(scale, sel)), unit="%",
+                                  key="regression-to-mean.population-share-meeting"))
     out.sub("scale", "On which scale is the reading close to normal?", Verdict.SOUND,
             f"{'log' if scale.log else 'raw'} scale: {scale.reason}")
 
 
 def reliability_section(spec, rel: Reliability, out: Out) -> None:
     out.estimates.append(estimate(f"Reliability of one reading used ({rel.source})", rel.value, rel.lower,
-                                  rel.upper, note="a lower bound" if rel.lower_bound else "", by_arm=rel.by_arm))
+                                  rel.upper, note="a lower bound" if rel.lower_bound else "", by_arm=rel.by_arm,
+                                  key="regression-to-mean.reliability"))
     if rel.icc is not None:
         out.estimates.append(estimate("ICC(1) of the same selected pairs (attenuated by selection)",
                                       rel.icc.estimate, rel.icc.lower, rel.icc.upper,
-                                      note="one-way random effects (Shrout and Fleiss 1979); a lower bound"))
+                                      note="one-way random effects (Shrout and Fleiss 1979); a lower bound",
+                                      key="regression-to-mean.reliability-icc"))
     if spec.reliability is not None and rel.source != "declared":
-        out.estimates.append(estimate("Reliability declared in study.toml", float(spec.reliability)))
+        out.estimates.append(estimate("Reliability declared in study.toml", float(spec.reliability),
+                                      key="regression-to-mean.reliability-declared"))
     out.sub("reliability", "How reliable is one reading?", Verdict.CAUTION if rel.lower_bound else Verdict.SOUND,
             rel.evidence, by_arm=rel.by_arm)
 
@@ -722,16 +731,17 @@ def expected_section(spec, scale, rtm, rel, sel, out: Out) -> None:
                                   f"({'log scale' if scale.log else 'analysis scale'})", rtm.estimate, rtm.lower,
                                   rtm.upper, unit=unit, note=f"Barnett et al. formula; parametric bootstrap, "
                                                             f"{rtm.n_draws} draws, seed {rtm.seed}",
-                                  by_arm=rel.by_arm))
+                                  by_arm=rel.by_arm, key="regression-to-mean.expected-change"))
     if scale.log:
         out.estimates.append(estimate("Expected ratio later / entry reading from regression to the mean",
                                       math.exp(rtm.estimate), math.exp(rtm.lower), math.exp(rtm.upper),
-                                      note=f"{_pct(rtm.estimate):+.1f}% on the original scale", by_arm=rel.by_arm))
+                                      note=f"{_pct(rtm.estimate):+.1f}% on the original scale", by_arm=rel.by_arm,
+                                      key="regression-to-mean.expected-ratio"))
     if spec.reliability is not None and rel.source != "declared":
         alt = expected_rtm(scale.fit.mu, scale.fit.sigma, float(spec.reliability), float(scale.to(sel.cutoff)),
                            sel.direction)
         out.estimates.append(estimate("Expected change with the declared reliability instead (sensitivity)",
-                                      alt, unit=unit))
+                                      alt, unit=unit, key="regression-to-mean.expected-change-declared-reliability"))
 
 
 def shrinkage_section(spec, rd, scale, rho, sel, rel, out: Out) -> None:
@@ -741,7 +751,7 @@ def shrinkage_section(spec, rd, scale, rho, sel, rel, out: Out) -> None:
     out.estimates.append(estimate("Mean shrinkage of the entry reading toward the population mean",
                                   float(np.mean(shrunk - x)), unit="" if scale.log else spec.unit,
                                   note="equals the expected change at the maximum-likelihood fit",
-                                  by_arm=rel.by_arm))
+                                  by_arm=rel.by_arm, key="regression-to-mean.mean-shrinkage"))
     label = _unit_label(spec, sel.visit)
     out.figures.append(Figure(
         "rtm-shrinkage", "rtm_shrinkage", f"{spec.display_name}: observed entry reading against its shrunk value",
@@ -827,19 +837,21 @@ def observed_section(spec, scale, target: Interval, obs: Change, pre, by_arm, ct
     log = " (log scale)" if scale.log else ""
     out.estimates.append(estimate(f"Observed mean change from baseline {what}{log}", obs.mean, obs.lower,
                                   obs.upper, unit=unit, note=f"{obs.n} participants; t interval",
-                                  by_arm=obs.by_arm))
+                                  by_arm=obs.by_arm, key="regression-to-mean.observed-change"))
     if pre is not None:
         out.estimates.append(estimate(f"Observed mean {pre.where}{log} (before treatment)", pre.mean, pre.lower,
-                                      pre.upper, unit=unit, note=f"{pre.n} participants; t interval"))
+                                      pre.upper, unit=unit, note=f"{pre.n} participants; t interval",
+                                      key="regression-to-mean.observed-pre-treatment"))
     q = stats.norm.ppf(0.5 + ctx.level / 2)
     diff = obs.mean - target.estimate
     se = math.hypot(obs.se, (target.upper - target.lower) / (2 * q))
     out.estimates.append(estimate(f"Observed change {what} not explained by regression to the mean", diff,
                                   diff - q * se, diff + q * se, unit=unit, note="normal approximation",
-                                  by_arm=by_arm))
+                                  by_arm=by_arm, key="regression-to-mean.unexplained-change"))
     if obs.mean != 0:
         out.estimates.append(estimate(f"Share of the observed change {what} that regression to the mean "
-                                      f"predicts", 100 * target.estimate / obs.mean, unit="%", by_arm=by_arm))
+                                      f"predicts", 100 * target.estimate / obs.mean, unit="%", by_arm=by_arm,
+                                      key="regression-to-mean.share-explained"))
     within = target.lower <= obs.mean <= target.upper
 
     def t(v):
@@ -879,7 +891,7 @@ def expected_in_change(data, ctx, rd, scale, sel, rtm, rel, out: Out) -> tuple[I
                                   f"{sel.visit}), {group.where}", target.estimate, target.lower, target.upper,
                                   unit="" if scale.log else data.spec.unit,
                                   note="(rho_SF - rho_SB) e, both correlations as slopes on the entry reading",
-                                  by_arm=group.by_arm))
+                                  by_arm=group.by_arm, key="regression-to-mean.residual-bias"))
     return target, group.by_arm
 
 
@@ -1087,7 +1099,8 @@ def run(data, ctx: CheckContext):
     out.estimates.append(estimate("Expected shift in the analysed change, in SDs of the unselected population",
                                   target.estimate / sigma, target.lower / sigma, target.upper / sigma,
                                   note=f"material when the whole interval lies beyond {MATERIAL_SD:g} SD "
-                                       f"(convention of this tool)", by_arm=target_by_arm))
+                                       f"(convention of this tool)", by_arm=target_by_arm,
+                                  key="regression-to-mean.shift-sd"))
     bias_sub(spec, data.design, sel, target, sigma, scale, material, verdict, target_by_arm, out)
     figures = [f for f in (pairs_figure(spec, rd, scale, sel, rel), truncation_figure(spec, rd, scale, sel)) if f]
     out.figures = figures + out.figures + [
