@@ -34,7 +34,14 @@ class StudyOutcome:
     error: str = ""
     n_outcomes: int = 0
     rows: list[dict] = field(default_factory=list)
-    """One row per outcome and check: outcome, check_id, verdict, headline."""
+    """One row per outcome and check: outcome, check_id, verdict, headline, subfinding_verdicts."""
+    analysis_date: str = ""
+    blinded: str = ""
+    """``true`` or ``false`` as audited (for a failed study: as asked or declared, when known)."""
+    tool_version: str = ""
+    metadata_sha256: str = ""
+    data_sha256: str = ""
+    """``role=sha256`` of each data file, space-separated (see :func:`auditor.render.csvout.data_hashes`)."""
 
 
 def read_manifest(path: Path) -> list[Path]:
@@ -124,6 +131,11 @@ def audit_one(args: tuple) -> StudyOutcome:
     from .study import load_study
     from .writeguard import OutputRefused
 
+    from .render.csvout import audit_identity, subfinding_verdicts
+
+    def failed(error: str) -> StudyOutcome:
+        return StudyOutcome(str(folder), name, "failed", error=error, **declared_identity(Path(folder), options))
+
     try:
         study = load_study(folder)
         audit = audit_study(study, AuditOptions(**options))
@@ -131,14 +143,39 @@ def audit_one(args: tuple) -> StudyOutcome:
     except StudyInputError as exc:
         first = exc.problems[0].one_line()
         more = f" (and {len(exc.problems) - 1} more)" if len(exc.problems) > 1 else ""
-        return StudyOutcome(str(folder), name, "failed", error=f"invalid input: {first}{more}")
+        return failed(f"invalid input: {first}{more}")
     except OutputRefused as exc:
-        return StudyOutcome(str(folder), name, "failed", error=f"not written: {exc}")
+        return failed(f"not written: {exc}")
     except Exception as exc:  # a model or rendering failure confined to this study
-        return StudyOutcome(str(folder), name, "failed", error=f"{type(exc).__name__}: {exc}")
-    rows = [{"outcome": r.outcome, "check_id": r.check_id, "verdict": r.verdict.value, "headline": r.headline}
+        return failed(f"{type(exc).__name__}: {exc}")
+    rows = [{"outcome": r.outcome, "check_id": r.check_id, "verdict": r.verdict.value, "headline": r.headline,
+             "subfinding_verdicts": subfinding_verdicts(r)}
             for r in audit.results]
-    return StudyOutcome(str(folder), name, "ok", audit.study_id, n_outcomes=len(audit.outcomes), rows=rows)
+    return StudyOutcome(str(folder), name, "ok", audit.study_id, n_outcomes=len(audit.outcomes), rows=rows,
+                        **audit_identity(audit))
+
+
+def declared_identity(folder: Path, options: dict) -> dict:
+    """What a study that failed can still be identified by: the study id, analysis date and blinding
+    its study.toml declares (read leniently, since it may be the invalid part) or the options asked
+    for, and the tool version; empty where unknown. So a failed study keeps its id in summary.csv."""
+    import tomllib
+
+    from . import __version__
+
+    try:
+        declared = tomllib.loads((folder / "study.toml").read_text(encoding="utf-8")).get("study", {})
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError):
+        declared = {}
+    declared = declared if isinstance(declared, dict) else {}
+    sid = declared.get("id")
+    date = options.get("analysis_date") or declared.get("analysis_date")
+    blinded = options.get("blinded")
+    blinded = declared.get("blinded") if blinded is None else blinded
+    return {"study_id": sid if isinstance(sid, str) else "",
+            "analysis_date": str(date) if date is not None else "",
+            "blinded": str(blinded).lower() if isinstance(blinded, bool) else "",
+            "tool_version": __version__}
 
 
 def run_batch(folders: list[Path], out_dir: Path, options: dict, jobs: int, paper: str = "A4",
@@ -174,7 +211,10 @@ def _use_warning_filters(filters: list) -> None:
     warnings.filters.extend(filters)
 
 
-SUMMARY_COLUMNS = ["study", "folder_name", "status", "outcome", "check_id", "verdict", "headline", "error"]
+SUMMARY_COLUMNS = ["study", "folder_name", "status", "outcome", "check_id", "verdict", "headline", "error",
+                   "analysis_date", "blinded", "tool_version", "metadata_sha256", "data_sha256",
+                   "subfinding_verdicts"]
+"""summary.csv's columns; those after ``error`` identify the audit (see docs/pipelines.md)."""
 
 
 def summary_csv(results: list[StudyOutcome]) -> str:
@@ -184,11 +224,13 @@ def summary_csv(results: list[StudyOutcome]) -> str:
     w = csv.writer(buf, lineterminator="\n")
     w.writerow(SUMMARY_COLUMNS)
     for s in results:
+        ident = [s.analysis_date, s.blinded, s.tool_version, s.metadata_sha256, s.data_sha256]
         if s.status != "ok":
-            w.writerow([neutralise(c) for c in [s.study_id, s.name, s.status, "", "", "", "", s.error]])
+            w.writerow([neutralise(c) for c in [s.study_id, s.name, s.status, "", "", "", "", s.error, *ident, ""]])
         for r in s.rows:
             w.writerow([neutralise(c) for c in [s.study_id, s.name, s.status, r["outcome"], r["check_id"],
-                                                r["verdict"], r["headline"], ""]])
+                                                r["verdict"], r["headline"], "", *ident,
+                                                r.get("subfinding_verdicts", "")]])
     return buf.getvalue()
 
 
@@ -223,6 +265,22 @@ def gate_reached(results: list[StudyOutcome], level: str) -> bool:
         return any(r["verdict"] == Verdict.TOOL_DEFECT.value for s in results for r in s.rows)
     threshold = Verdict(level).rank
     return any(Verdict(r["verdict"]).rank >= threshold for s in results for r in s.rows)
+
+
+EXIT_STUDIES_FAILED = 4
+"""Exit code of a batch in which at least one study failed (see :func:`batch_exit_code`)."""
+EXIT_GATE = 3
+
+
+def batch_exit_code(results: list[StudyOutcome], fail_on: str | None) -> int:
+    """The batch's exit code: 4 when any study failed, whatever ``--fail-on`` says (the batch is
+    incomplete, so no gate can be judged on it: a failure outranks a gate); else 3 when the
+    ``--fail-on`` gate is reached; else 0."""
+    if any(s.status != "ok" for s in results):
+        return EXIT_STUDIES_FAILED
+    if fail_on is not None and gate_reached(results, fail_on):
+        return EXIT_GATE
+    return 0
 
 
 def default_jobs() -> int:

@@ -1,7 +1,9 @@
 """The command line: parse options, call the library, map problems to exit codes.
 
 Exit codes: 0 success; 1 an internal failure (a bug: please report it); 2 a problem with the input or
-the command line, with every problem listed; 3 a ``--fail-on`` gate that was reached.
+the command line, with every problem listed; 3 a gate reached (``batch --fail-on``, a failing
+``selfcheck`` case); 4 a batch in which at least one study failed (outranks 3). One table of them in
+README.md and docs/pipelines.md.
 """
 
 from __future__ import annotations
@@ -28,6 +30,8 @@ err = Console(stderr=True, highlight=False, soft_wrap=True, emoji=False)
 
 EXIT_INPUT = 2
 EXIT_INTERNAL = 1
+EXIT_GATE = 3
+EXIT_STUDIES_FAILED = 4
 _STATE = {"debug": False}
 
 
@@ -234,8 +238,9 @@ def batch(
     jobs: int = typer.Option(0, "--jobs", "-j", help="Parallel processes (default: the number of cores)."),
     force: bool = typer.Option(False, "--force", help="Replace a batch already in the output folder."),
     fail_on: Optional[str] = typer.Option(None, "--fail-on",
-                                          help="Exit 3 if any study failed or any verdict is at least this bad: "
-                                               "failed, not assessable, caution or unsupported."),
+                                          help="Exit 3 if any verdict is at least this bad: failed (a tool "
+                                               "defect), not assessable, caution or unsupported. A failed study "
+                                               "always gives exit 4."),
     blinded: Optional[bool] = typer.Option(None, "--blinded/--unblinded",
                                            help="Force pooled (blinded) or by-arm audits for every study."),
     analysis_date: Optional[str] = typer.Option(None, "--analysis-date", help="Date printed on every report."),
@@ -243,7 +248,7 @@ def batch(
     paper: str = typer.Option("A4", "--paper", help="PDF page size: A4 or letter."),
 ):
     """Audit many studies in parallel: OUT/<study>/, OUT/index.html and OUT/summary.csv."""
-    from .batch import default_jobs, expand_inputs, gate_reached, index_view, refuse_unsafe_batch, summary_csv
+    from .batch import batch_exit_code, default_jobs, expand_inputs, index_view, refuse_unsafe_batch, summary_csv
     from .options import (date_problems, fail_on_problems, jobs_problems, paper_problems, paper_size, refuse_if_any,
                           seed_problems)
     from .pipeline import CAUTIONS
@@ -276,8 +281,12 @@ def batch(
             table.add_row(*_cells(s.study_id or s.name, s.status, s.error if s.status != "ok" else len(s.rows)))
         out.print(table)
         out.print(str(output / "index.html"), markup=False)
-        if fail_on is not None and gate_reached(results, fail_on):
-            raise typer.Exit(3)
+        code = batch_exit_code(results, fail_on)
+        if code:
+            n_failed = sum(s.status != "ok" for s in results)
+            err.print(f"{n_failed} of {len(results)} studies failed (exit {code})." if code == EXIT_STUDIES_FAILED
+                      else f"gate reached: a verdict at least as bad as '{fail_on}' (exit {code}).", markup=False)
+            raise typer.Exit(code)
 
     _guard(body)
 
@@ -304,54 +313,107 @@ def compare(
     old: Path = typer.Argument(..., help="findings.json of the earlier audit."),
     new: Path = typer.Argument(..., help="findings.json of the later audit."),
     html: Optional[Path] = typer.Option(None, "--html", help="Also write the comparison as an HTML page here."),
+    json_path: Optional[Path] = typer.Option(None, "--json", help="Also write the comparison as JSON here "
+                                                                   "(keyed by outcome, check id and estimate key)."),
     tolerance: float = typer.Option(1e-6, "--tolerance", help="Relative change below which a number has not moved."),
-    force: bool = typer.Option(False, "--force", help="Replace the file --html names if it exists."),
+    force: bool = typer.Option(False, "--force", help="Compare even audits of different studies, or a blinded "
+                                                      "with an unblinded one; replace the files --html and "
+                                                      "--json name if they exist."),
 ):
-    """What changed between two audits of a study: verdicts, numbers, outcomes and checks."""
-    from .compare import compare_findings, comparison_view, load_findings
+    """What changed between two audits of a study: verdicts, sub-findings, estimates, outcomes and checks."""
+    from .compare import comparability_problems, compare_findings, load_findings
     from .errors import ProblemLog
-    from .options import new_file_problems, refuse_if_any, tolerance_problems
-    from .render.html import render_view
-    from .writeguard import refuse_existing_file, write_one_file
+    from .options import new_file_problems, option_problem, refuse_if_any, tolerance_problems
+    from .writeguard import refuse_existing_file
 
     def body():
-        refuse_if_any(tolerance_problems(tolerance), new_file_problems(html, "--html"))
-        if html is not None:
-            refuse_existing_file(html, force, inputs=[old, new])
+        same = ([option_problem("--json", "names the same file as --html", "give two different files")]
+                if html is not None and json_path is not None and Path(html).resolve() == Path(json_path).resolve()
+                else [])
+        refuse_if_any(tolerance_problems(tolerance), new_file_problems(html, "--html"),
+                      new_file_problems(json_path, "--json"), same)
+        for target in (html, json_path):
+            if target is not None:
+                refuse_existing_file(target, force, inputs=[old, new])
         log = ProblemLog()
         a, b = load_findings(old, log), load_findings(new, log)
         log.raise_if_errors("in the findings files")
+        forced = _refuse_incomparable(comparability_problems(a, b), old, new, force)
         cmp = compare_findings(a, b, tolerance)
-        if cmp.unchanged:
-            out.print(f"No differences beyond a relative tolerance of {tolerance:g}.", markup=False)
-        for label, items in (("outcome added", cmp.outcomes_added), ("outcome removed", cmp.outcomes_removed)):
-            for o in items:
-                out.print(f"{label}: {o}", markup=False)
-        for label, items in (("check added", cmp.checks_added), ("check removed", cmp.checks_removed)):
-            for o, c in items:
-                out.print(f"{label}: {o} / {c}", markup=False)
-        if cmp.verdicts_moved:
-            t = Table(title="verdicts that moved")
-            for col in ("Outcome", "Check", "Before", "After"):
-                t.add_column(col)
-            for row in cmp.verdicts_moved:
-                t.add_row(*_cells(*row))
-            out.print(t)
-        if cmp.numbers_moved:
-            from .render.view import number
-
-            t = Table(title=f"numbers that moved (relative tolerance {tolerance:g})")
-            for col in ("Outcome", "Check", "Quantity", "Part", "Before", "After"):
-                t.add_column(col)
-            for m in cmp.numbers_moved:
-                t.add_row(*_cells(m.outcome, m.check_id, m.name, m.field, number(m.old), number(m.new)))
-            out.print(t)
-        if html is not None:
-            write_one_file(html, render_view("compare.html.j2", comparison_view(cmp)).encode("utf-8"),
-                           force=force, inputs=[old, new])
-            out.print(str(html), markup=False)
+        _print_comparison(cmp)
+        _write_comparison(cmp, a, b, forced, html, json_path, force, [old, new])
 
     _guard(body)
+
+
+def _refuse_incomparable(problems, old: Path, new: Path, force: bool) -> list[str]:
+    """Stop (exit 2, with the fix) when the two audits are not comparable, unless ``force``; with
+    ``force`` each reason is printed as a warning and returned for the comparison's record."""
+    from .errors import InputProblem
+
+    if problems and not force:
+        raise StudyInputError([InputProblem(f"{old} and {new}", what, "-", why,
+                                            "compare two audits of the same study made with the same blinding, "
+                                            "or give --force to compare them anyway")
+                               for what, why in problems], "in comparing the findings files")
+    for _, why in problems:
+        err.print(f"warning: compared although {why} (--force).", markup=False)
+    return [why for _, why in problems]
+
+
+def _print_comparison(cmp) -> None:
+    """The comparison on the terminal: a plain sentence when nothing changed, else every change."""
+    from .compare import subfinding_text, unchanged_sentence
+    from .render.view import number
+
+    if cmp.unchanged:
+        out.print(unchanged_sentence(cmp), markup=False)
+        return
+    if cmp.matched_on == "name":
+        out.print("note: estimates matched on names (a findings file of an earlier schema has no keys).",
+                  markup=False)
+    for label, items in (("outcome added", cmp.outcomes_added), ("outcome removed", cmp.outcomes_removed)):
+        for o in items:
+            out.print(f"{label}: {o}", markup=False)
+    for label, items in (("check added", cmp.checks_added), ("check removed", cmp.checks_removed)):
+        for o, c in items:
+            out.print(f"{label}: {o} / {c}", markup=False)
+    for label, items in (("estimate added", cmp.estimates_added), ("estimate removed", cmp.estimates_removed)):
+        for e in items:
+            out.print(f"{label}: {e.outcome} / {e.check_id} / {e.key or e.name}", markup=False)
+    if cmp.verdicts_moved:
+        t = Table(title="verdicts that moved")
+        for col in ("Outcome", "Check", "Before", "After", "Moved by"):
+            t.add_column(col)
+        for o, c, a, b in cmp.verdicts_moved:
+            t.add_row(*_cells(o, c, a, b, subfinding_text(cmp.subfindings_of(o, c))))
+        out.print(t)
+    moved = {(o, c) for o, c, _, _ in cmp.verdicts_moved}
+    for m in cmp.subfindings_moved:
+        if (m.outcome, m.check_id) not in moved:
+            out.print(f"sub-finding moved: {m.outcome} / {m.check_id} / {m.id}: {m.old} -> {m.new}", markup=False)
+    if cmp.numbers_moved:
+        t = Table(title=f"numbers that moved (relative tolerance {cmp.tolerance:g})")
+        for col in ("Outcome", "Check", "Quantity", "Part", "Before", "After"):
+            t.add_column(col)
+        for m in cmp.numbers_moved:
+            t.add_row(*_cells(m.outcome, m.check_id, m.key or m.name, m.field, number(m.old), number(m.new)))
+        out.print(t)
+
+
+def _write_comparison(cmp, a, b, forced, html, json_path, force, inputs) -> None:
+    """Write the HTML page and the JSON file asked for, each through the write guard."""
+    from .compare import comparison_json, comparison_view
+    from .render.html import render_view
+    from .writeguard import write_one_file
+
+    if html is not None:
+        write_one_file(html, render_view("compare.html.j2", comparison_view(cmp)).encode("utf-8"),
+                       force=force, inputs=inputs)
+        out.print(str(html), markup=False)
+    if json_path is not None:
+        write_one_file(json_path, comparison_json(cmp, a, b, forced).encode("utf-8"), force=force, inputs=inputs)
+        out.print(str(json_path), markup=False)
 
 
 @app.command()
@@ -391,7 +453,7 @@ def selfcheck(
                 out.print(f"FAIL {c.id}: expected {c.expected}, obtained {c.obtained} ({c.detail})", markup=False)
         out.print(str(output / "validation.html"), markup=False)
         if not rep.passed:
-            raise typer.Exit(3)
+            raise typer.Exit(EXIT_GATE)
 
     _guard(body)
 

@@ -1,7 +1,12 @@
 """What changed between two audits of the same study (a re-audit after a data cut, say).
 
-Reads two findings.json files and lists: outcomes and checks added or removed, verdicts that moved,
-and estimates (value or interval ends) that moved by more than a relative tolerance.
+Reads two findings.json files and lists: outcomes and checks added or removed, estimates added or
+removed, verdicts that moved (with the sub-findings whose verdicts moved with them), and estimates
+(value or interval ends) that moved by more than a relative tolerance. Estimates are matched on their
+stable ``key`` (schema 1.2 on); a findings.json of an earlier schema, which has no keys, is matched on
+the estimates' display names instead. Two audits of different studies, or a blinded with an unblinded
+audit, are not comparable: :func:`comparability_problems` names why, and the command refuses them
+unless forced.
 """
 
 from __future__ import annotations
@@ -22,6 +27,29 @@ class NumberMove:
     field: str
     old: float | None
     new: float | None
+    key: str = ""
+    """The estimate's stable key (empty when matched on names, for an earlier schema)."""
+
+
+@dataclass(frozen=True)
+class EstimateChange:
+    """An estimate present in one audit of a finding and not in the other."""
+
+    outcome: str
+    check_id: str
+    key: str
+    name: str
+
+
+@dataclass(frozen=True)
+class SubfindingMove:
+    """A sub-finding whose verdict differs between the audits (``absent`` where it is missing)."""
+
+    outcome: str
+    check_id: str
+    id: str
+    old: str
+    new: str
 
 
 @dataclass
@@ -35,11 +63,21 @@ class Comparison:
     verdicts_moved: list[tuple[str, str, str, str]] = field(default_factory=list)
     numbers_moved: list[NumberMove] = field(default_factory=list)
     tolerance: float = 1e-6
+    estimates_added: list[EstimateChange] = field(default_factory=list)
+    estimates_removed: list[EstimateChange] = field(default_factory=list)
+    subfindings_moved: list[SubfindingMove] = field(default_factory=list)
+    matched_on: str = "key"
+    """``key`` (both files carry estimate keys) or ``name`` (either is of an earlier schema)."""
 
     @property
     def unchanged(self) -> bool:
         return not (self.outcomes_added or self.outcomes_removed or self.checks_added or self.checks_removed
-                    or self.verdicts_moved or self.numbers_moved)
+                    or self.verdicts_moved or self.numbers_moved or self.estimates_added
+                    or self.estimates_removed or self.subfindings_moved)
+
+    def subfindings_of(self, outcome: str, check_id: str) -> list[SubfindingMove]:
+        """The sub-findings that moved inside one finding (those behind a verdict that moved)."""
+        return [m for m in self.subfindings_moved if (m.outcome, m.check_id) == (outcome, check_id)]
 
 
 MAX_SHAPE_PROBLEMS = 20
@@ -135,11 +173,14 @@ def _list_of_objects(items, where: str, text_keys) -> list[tuple[str, str]]:
 
 
 def _estimate_problems(estimates, where: str) -> list[tuple[str, str]]:
-    """A result's estimates: objects with a text name and numbers (or null) as value, lower, upper."""
+    """A result's estimates: objects with a text name (and text key, when present) and numbers (or
+    null) as value, lower, upper."""
     out = _list_of_objects(estimates, where, ("name",))
     for j, e in enumerate(estimates if isinstance(estimates, list) else []):
         if not isinstance(e, dict):
             continue
+        if "key" in e and not isinstance(e["key"], str):
+            out.append((f"{where}[{j}].key", f"is a {_json_kind(e['key'])}, not text"))
         for fld in ESTIMATE_NUMBERS:
             v = e.get(fld)
             if v is not None and not _is_number(v):
@@ -168,9 +209,35 @@ def _moved(old, new, tol: float) -> bool:
     return abs(new - old) > tol * max(1.0, abs(old))
 
 
+def comparability_problems(old: dict, new: dict) -> list[tuple[str, str]]:
+    """(what, why) for each reason the two audits should not be compared: different study ids, or one
+    blinded and the other not (a difference would then reveal by-arm results, or be meaningless)."""
+    out = []
+    a, b = old.get("study_id", ""), new.get("study_id", "")
+    if a != b:
+        out.append(("study_id", f"the audits are of different studies ('{a}' and '{b}')"))
+    ba, bb = old.get("blinded"), new.get("blinded")
+    if isinstance(ba, bool) and isinstance(bb, bool) and ba != bb:
+        which = "the first" if ba else "the second"
+        out.append(("blinded", f"{which} audit is blinded and the other is not"))
+    return out
+
+
+def _has_keys(d: dict) -> bool:
+    """True when every estimate of the findings carries a non-empty key (schema 1.2 on)."""
+    return all(isinstance(e.get("key"), str) and e["key"] for r in d["results"] for e in r.get("estimates", []))
+
+
+def _by_id(estimates: list[dict], on: str) -> dict[str, dict]:
+    """A finding's estimates by key (or by name, for findings of an earlier schema)."""
+    return {e[on]: e for e in estimates}
+
+
 def compare_findings(old: dict, new: dict, tolerance: float = 1e-6) -> Comparison:
-    """Differences between two findings dicts; numbers compared with a relative tolerance."""
-    cmp = Comparison(old.get("study_id", ""), new.get("study_id", ""), tolerance=tolerance)
+    """Differences between two findings dicts; estimates matched on keys (names for an earlier
+    schema), numbers compared with a relative tolerance."""
+    on = "key" if _has_keys(old) and _has_keys(new) else "name"
+    cmp = Comparison(old.get("study_id", ""), new.get("study_id", ""), tolerance=tolerance, matched_on=on)
     o_out = [o["param"] for o in old.get("outcomes", [])]
     n_out = [o["param"] for o in new.get("outcomes", [])]
     cmp.outcomes_added = [p for p in n_out if p not in o_out]
@@ -183,15 +250,98 @@ def compare_findings(old: dict, new: dict, tolerance: float = 1e-6) -> Compariso
         a, b = o_res[key], n_res[key]
         if a["verdict"] != b["verdict"]:
             cmp.verdicts_moved.append((key[0], key[1], a["verdict"], b["verdict"]))
-        a_est = {e["name"]: e for e in a.get("estimates", [])}
-        for e in b.get("estimates", []):
-            prev = a_est.get(e["name"])
+        cmp.subfindings_moved += _subfinding_moves(key, a, b)
+        a_est, b_est = _by_id(a.get("estimates", []), on), _by_id(b.get("estimates", []), on)
+        cmp.estimates_added += [EstimateChange(*key, e.get("key", ""), e["name"]) for i, e in b_est.items()
+                                if i not in a_est]
+        cmp.estimates_removed += [EstimateChange(*key, e.get("key", ""), e["name"]) for i, e in a_est.items()
+                                  if i not in b_est]
+        for i, e in b_est.items():
+            prev = a_est.get(i)
             if prev is None:
                 continue
-            for fld in ("value", "lower", "upper"):
+            for fld in ESTIMATE_NUMBERS:
                 if _moved(prev.get(fld), e.get(fld), tolerance):
-                    cmp.numbers_moved.append(NumberMove(key[0], key[1], e["name"], fld, prev.get(fld), e.get(fld)))
+                    cmp.numbers_moved.append(NumberMove(key[0], key[1], e["name"], fld, prev.get(fld), e.get(fld),
+                                                        e.get("key", "")))
     return cmp
+
+
+def _subfinding_moves(key: tuple[str, str], a: dict, b: dict) -> list[SubfindingMove]:
+    """The sub-findings of one finding whose verdicts differ, in the later audit's order then the
+    earlier's (``absent`` for a sub-finding in one audit only)."""
+    def verdicts(r):
+        return {s["id"]: s.get("verdict", "") for s in r.get("subfindings", [])
+                if isinstance(s, dict) and isinstance(s.get("id"), str)}
+
+    va, vb = verdicts(a), verdicts(b)
+    ids = list(vb) + [i for i in va if i not in vb]
+    return [SubfindingMove(key[0], key[1], i, va.get(i, "absent"), vb.get(i, "absent")) for i in ids
+            if va.get(i, "absent") != vb.get(i, "absent")]
+
+
+COMPARISON_SCHEMA = "1.0"
+"""Version of the comparison JSON written by ``auditor compare --json``."""
+
+
+def _side(d: dict) -> dict:
+    """What identifies one of the two audits in the comparison JSON."""
+    prov = d.get("provenance") if isinstance(d.get("provenance"), dict) else {}
+    return {"study_id": d.get("study_id", ""), "schema_version": d.get("schema_version", ""),
+            "blinded": d.get("blinded"), "analysis_date": prov.get("analysis_date", ""),
+            "tool_version": prov.get("tool_version", "")}
+
+
+def comparison_dict(cmp: Comparison, old: dict, new: dict, forced: list[str] = ()) -> dict:
+    """The comparison as plain data (``auditor compare --json``): every change keyed by outcome, check id
+    and estimate key, so a pipeline can act on it without reading display names."""
+    def move(m: NumberMove) -> dict:
+        return {"outcome": m.outcome, "check_id": m.check_id, "key": m.key, "name": m.name, "field": m.field,
+                "before": m.old, "after": m.new}
+
+    def change(c: EstimateChange) -> dict:
+        return {"outcome": c.outcome, "check_id": c.check_id, "key": c.key, "name": c.name}
+
+    return {
+        "comparison_schema": COMPARISON_SCHEMA, "old": _side(old), "new": _side(new),
+        "tolerance": cmp.tolerance, "matched_on": cmp.matched_on, "unchanged": cmp.unchanged,
+        "compared_despite": list(forced),
+        "outcomes_added": cmp.outcomes_added, "outcomes_removed": cmp.outcomes_removed,
+        "checks_added": [{"outcome": o, "check_id": c} for o, c in cmp.checks_added],
+        "checks_removed": [{"outcome": o, "check_id": c} for o, c in cmp.checks_removed],
+        "estimates_added": [change(c) for c in cmp.estimates_added],
+        "estimates_removed": [change(c) for c in cmp.estimates_removed],
+        "verdicts_moved": [{"outcome": o, "check_id": c, "before": a, "after": b,
+                            "subfindings_moved": [{"id": m.id, "before": m.old, "after": m.new}
+                                                  for m in cmp.subfindings_of(o, c)]}
+                           for o, c, a, b in cmp.verdicts_moved],
+        "subfindings_moved": [{"outcome": m.outcome, "check_id": m.check_id, "id": m.id, "before": m.old,
+                               "after": m.new} for m in cmp.subfindings_moved],
+        "numbers_moved": [move(m) for m in cmp.numbers_moved],
+    }
+
+
+def comparison_json(cmp: Comparison, old: dict, new: dict, forced: list[str] = ()) -> str:
+    """Stable JSON of :func:`comparison_dict` (sorted keys, fixed indentation)."""
+    return json.dumps(_clean(comparison_dict(cmp, old, new, forced)), indent=2, sort_keys=True,
+                      ensure_ascii=False) + "\n"
+
+
+def _clean(v):
+    from .results import _clean as clean
+
+    return clean(v)
+
+
+def unchanged_sentence(cmp: Comparison) -> str:
+    """The plain statement that nothing changed (terminal and HTML say the same)."""
+    return (f"Nothing changed: the same outcomes, checks, estimates, verdicts and sub-finding verdicts, and no "
+            f"number moved by more than a relative tolerance of {cmp.tolerance:g}.")
+
+
+def subfinding_text(moves: list[SubfindingMove]) -> str:
+    """The sub-findings behind a verdict's move, as one line: ``slope: sound -> caution; ...``."""
+    return "; ".join(f"{m.id}: {m.old} -> {m.new}" for m in moves) or "no sub-finding verdict moved"
 
 
 def comparison_view(cmp: Comparison) -> dict:
@@ -199,10 +349,14 @@ def comparison_view(cmp: Comparison) -> dict:
 
     return {
         "old_study": cmp.old_study, "new_study": cmp.new_study, "tolerance": f"{cmp.tolerance:g}",
-        "unchanged": cmp.unchanged,
+        "unchanged": cmp.unchanged, "unchanged_sentence": unchanged_sentence(cmp),
+        "matched_on": "stable estimate keys" if cmp.matched_on == "key" else
+                      "estimate names (a findings file of an earlier schema has no keys)",
         "outcomes_added": cmp.outcomes_added, "outcomes_removed": cmp.outcomes_removed,
         "checks_added": [f"{o} / {c}" for o, c in cmp.checks_added],
         "checks_removed": [f"{o} / {c}" for o, c in cmp.checks_removed],
-        "verdicts": [list(v) for v in cmp.verdicts_moved],
+        "estimates_added": [f"{c.outcome} / {c.check_id} / {c.key or c.name}" for c in cmp.estimates_added],
+        "estimates_removed": [f"{c.outcome} / {c.check_id} / {c.key or c.name}" for c in cmp.estimates_removed],
+        "verdicts": [[o, c, a, b, subfinding_text(cmp.subfindings_of(o, c))] for o, c, a, b in cmp.verdicts_moved],
         "numbers": [[m.outcome, m.check_id, m.name, m.field, number(m.old), number(m.new)] for m in cmp.numbers_moved],
     }

@@ -9,7 +9,28 @@ from ..results import Audit
 
 FORMULA_PREFIXES = ("=", "+", "-", "@", "\t", "\r")
 COLUMNS = ["study_id", "outcome", "outcome_label", "check_id", "check_title", "verdict", "headline",
-           "reason", "n_estimates", "caveats"]
+           "reason", "n_estimates", "caveats", "analysis_date", "blinded", "tool_version", "metadata_sha256",
+           "data_sha256", "subfinding_verdicts"]
+"""findings.csv's columns; those after ``caveats`` identify the audit (see docs/pipelines.md)."""
+IDENTITY_COLUMNS = ("analysis_date", "blinded", "tool_version", "metadata_sha256", "data_sha256")
+
+
+def data_hashes(audit: Audit) -> str:
+    """The data files' SHA-256 as ``role=hash`` pairs separated by spaces, in the order read."""
+    return " ".join(f"{f.role}={f.sha256}" for f in audit.provenance.files)
+
+
+def audit_identity(audit: Audit) -> dict:
+    """What identifies an audit in a pipeline: analysis date (the data cut's date as recorded), blinding,
+    tool version and the hashes of study.toml and of each data file."""
+    return {"analysis_date": audit.provenance.analysis_date, "blinded": "true" if audit.blinded else "false",
+            "tool_version": audit.provenance.tool_version, "metadata_sha256": audit.provenance.metadata_sha256,
+            "data_sha256": data_hashes(audit)}
+
+
+def subfinding_verdicts(r) -> str:
+    """A result's sub-finding verdicts as ``id=verdict`` pairs separated by ``; ``, in report order."""
+    return "; ".join(f"{s.id}={s.verdict.value}" for s in r.subfindings)
 
 
 def neutralise(cell):
@@ -22,9 +43,11 @@ def neutralise(cell):
 
 def rows(audit: Audit) -> list[list]:
     out = []
+    ident = audit_identity(audit)
     for r in audit.results:
         out.append([audit.study_id, r.outcome, r.outcome_label, r.check_id, r.check_title,
-                    r.verdict.value, r.headline, r.reason, len(r.estimates), " | ".join(r.caveats)])
+                    r.verdict.value, r.headline, r.reason, len(r.estimates), " | ".join(r.caveats),
+                    *(ident[c] for c in IDENTITY_COLUMNS), subfinding_verdicts(r)])
     return out
 
 
