@@ -448,6 +448,8 @@ def selfcheck(
         _report_recovery(recovery, output)
         n_pass = sum(c.passed for c in rep.reference + rep.simulation)
         out.print(f"{n_pass} of {len(rep.reference) + len(rep.simulation)} cases pass ({rep.mode} mode).", markup=False)
+        if rep.simulation:
+            out.print(f"Pass rule: {rep.pass_rule}", markup=False)
         for c in rep.reference + rep.simulation:
             if not c.passed:
                 out.print(f"FAIL {c.id}: expected {c.expected}, obtained {c.obtained} ({c.detail})", markup=False)

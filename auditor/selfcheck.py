@@ -14,7 +14,8 @@ from dataclasses import asdict, dataclass
 
 from . import __version__
 from .pipeline import library_versions
-from .validation.cases import CaseOutcome, case_seed, reference_cases, run_reference, run_simulation, simulation_cases
+from .validation.cases import (PASS_ALPHA, PASS_RULE, CaseOutcome, case_seed, reference_cases, run_reference,
+                               run_simulation, simulation_cases)
 
 
 @dataclass(frozen=True)
@@ -27,6 +28,9 @@ class SelfcheckReport:
     seed: int
     reference: list[CaseOutcome]
     simulation: list[CaseOutcome]
+    pass_rule: str = PASS_RULE
+    """How a simulation case is judged (an exact binomial test at :data:`PASS_ALPHA`), in words."""
+    pass_alpha: float = PASS_ALPHA
 
     @property
     def passed(self) -> bool:
@@ -72,6 +76,7 @@ def selfcheck_view(rep: SelfcheckReport) -> dict:
 
     return {"mode": rep.mode, "date": rep.date, "tool_version": rep.tool_version, "platform": rep.platform,
             "libraries": sorted(rep.libraries.items()), "seed": rep.seed, "passed": rep.passed,
+            "pass_rule": rep.pass_rule,
             "n_pass": sum(c.passed for c in rep.reference + rep.simulation),
             "n_all": len(rep.reference + rep.simulation),
             "reference": rows(rep.reference), "simulation": rows(rep.simulation)}
