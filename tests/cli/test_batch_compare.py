@@ -57,7 +57,7 @@ def test_batch_command_writes_index_and_summary_and_gates(studies, tmp_path):
     manifest.write_text(f"# two studies\n{studies / 'alpha'}\n{studies / 'broken'}\n")
     out = tmp_path / "out"
     res = runner.invoke(app, ["batch", str(manifest), "-o", str(out), "--jobs", "1"])
-    assert res.exit_code == 0, res.output  # no gate asked for
+    assert res.exit_code == 4, res.output  # a study failed, gate or no gate
     index = (out / "index.html").read_text()
     assert 'href="alpha/audit.html"' in index and "failed" in index
     assert "screening aid for a qualified statistician" in index
@@ -66,7 +66,7 @@ def test_batch_command_writes_index_and_summary_and_gates(studies, tmp_path):
     assert any(",broken,failed," in line for line in summary)
     res = runner.invoke(app, ["batch", str(manifest), "-o", str(out), "--jobs", "1", "--force",
                               "--fail-on", "failed"])
-    assert res.exit_code == 3
+    assert res.exit_code == 4  # a failed study outranks the gate
 
 
 def test_compare_reports_moves(example_copy, tmp_path):
@@ -87,7 +87,7 @@ def test_compare_reports_moves(example_copy, tmp_path):
     new.write_text(json.dumps(b))
     res = runner.invoke(app, ["compare", str(old), str(new), "--html", str(tmp_path / "c.html")])
     assert res.exit_code == 0, res.output
-    assert "numbers that moved" in res.output
+    assert "numbers that moved" in res.output and "pre-post.n-participants" in res.output
     assert "Numbers that moved" in (tmp_path / "c.html").read_text()
     res = runner.invoke(app, ["compare", str(old), str(tmp_path / "missing.json")])
     assert res.exit_code == 2
