@@ -265,9 +265,11 @@ def _recoding(inp: _Inputs, spec, ctx: CheckContext, out: _Collect) -> Verdict:
         a, c = e1.estimate, e2.estimate
         what = f"difference in mean percent change, {_contrast_label(first, inp.control)}"
         out.estimates += [estimate("Percent-change effect, declared codes", a, e1.lower, e1.upper, e1.p_value,
-                                   unit="%", by_arm=True, key="percent-change.code-shift.declared"),
+                                   unit="%", by_arm=True, key="percent-change.code-shift.declared",
+                                   arm=_contrast_label(first, inp.control)),
                           estimate(f"Percent-change effect, codes shifted by {shift:+g}", c, e2.lower, e2.upper,
-                                   e2.p_value, unit="%", by_arm=True, key="percent-change.code-shift.shifted")]
+                                   e2.p_value, unit="%", by_arm=True, key="percent-change.code-shift.shifted",
+                                   arm=_contrast_label(first, inp.control))]
     else:
         a, c = rows[0][3], rows[1][3]
         what = "pooled mean percent change"
@@ -501,7 +503,7 @@ def _report_effects(fits: _Fits, cost: _Cost, inp: _Inputs, spec, out: _Collect)
         f"Efficiency of {fits.planned_design.analysis} vs {ref_name}, {_contrast_label(cost.contrast, inp.control)}",
         cost.efficiency, cost.interval.lower, cost.interval.upper,
         note=f"percentile bootstrap within arm, {cost.interval.replicates} replicates", by_arm=True,
-                                  key="percent-change.planned-efficiency"))
+        key="percent-change.planned-efficiency", arm=_contrast_label(cost.contrast, inp.control)))
 
 
 def _rate_cost(fits: _Fits, cost: _Cost, inp: _Inputs, out: _Collect) -> Verdict | None:
