@@ -25,6 +25,8 @@ from .spec import SummaryOutcome
 add_reference("cochrane-handbook-6", "Higgins JPT, Li T, Deeks JJ (eds). Chapter 6: Choosing effect measures and "
               "computing estimates of effect. In: Cochrane Handbook for Systematic Reviews of Interventions, "
               "version 6. Cochrane, 2019 (section 6.5.2.8, imputing standard deviations for changes from baseline).")
+add_reference("wan-2014", "Wan X, Wang W, Liu J, Tong T. Estimating the sample mean and standard deviation from "
+              "the sample size, median, range and/or interquartile range. BMC Med Res Methodol 2014;14:135.")
 add_reference("altman-bland-1996", "Altman DG, Bland JM. Detecting skewness from summary information. BMJ "
               "1996;313:1200.")
 
@@ -44,6 +46,9 @@ R_GRID = (0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, 0.9)
 PLAUSIBLE_R = (0.3, 0.8)
 """The range of pre-post correlations usual in trials (Frison and Pocock 1992 report 0.3 to 0.8 as
 typical; from memory), over which a cost without a reported correlation is graded."""
+PERCENT_GAP = 1.0
+"""Percentage points by which the mean of percent changes and the percent change of the means may
+differ before the paper must say which it reports (a convention of this tool, no source)."""
 DRAWS = 4000
 QUICK_DRAWS = 1000
 
@@ -195,7 +200,7 @@ def consistency(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> D
                          "from an SE as SE x sqrt(n) and from a 95% CI as sqrt(n) x width / 3.92.")
     if verdict is Verdict.SOUND:
         return Draft(res)
-    return Draft(res, "; ".join(problems) + ".",
+    return Draft(res, _sentence("; ".join(problems)),
                  "Please state which participants each summary describes (all randomised, completers), give the "
                  "SD of change or the pre-post correlation for each arm, and reconcile the numbers above.")
 
@@ -334,7 +339,7 @@ def efficiency(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Dr
            "primary or a sensitivity analysis")
     if p.r is None:
         ask += ", and the pre-post correlation or the SD of change in each arm"
-    return Draft(res, evidence + ".", f"Please report {ask}.")
+    return Draft(res, _sentence(evidence), f"Please report {ask}.")
 
 
 # ---------------------------------------------------------------------------------- responder
@@ -388,18 +393,22 @@ def responder(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Dra
                          "change) / SD of change, e_change = SDf^2 (1 - r^2) / var(change).")
     if verdict is Verdict.SOUND:
         return Draft(res)
-    return Draft(res, evidence + ".", "Please report the continuous analysis (ANCOVA of follow-up on baseline) beside "
+    return Draft(res, _sentence(evidence), "Please report the continuous analysis (ANCOVA of follow-up on baseline) beside "
                  "the responder analysis, and justify the cut.")
 
 
 # ---------------------------------------------------------------------------------- shape
 
 
-def shape(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
-    cid = "summary-shape"
+QUARTILE_SKEW = 0.2
+"""Bowley's quartile skewness beyond this (either sign) reads as a skewed distribution where only
+medians and quartiles are reported (a convention of this tool, no source)."""
+
+
+def _shape_rows(spec: SummaryOutcome, arms: list[ArmSummary]):
+    """Per arm and visit: mean, SD, (mean - lower)/SD, SDs to the nearer bound, quartile skewness,
+    and whether the mean and SD were reported (else estimated from quartiles)."""
     lo, hi = spec.lower_bound, spec.upper_bound
-    rows, subs, problems = [], [], []
-    skewed, near = [], []
     for a in arms:
         for visit, word in (("baseline", "baseline"), ("followup", "follow-up")):
             m, s = a.mean[visit], a.sd[visit]
@@ -407,86 +416,126 @@ def shape(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
             dist = sf.distance_to_bound_in_sd(m, s, lo, hi)
             q = [a.values[f"q1_{visit}"], a.values[f"median_{visit}"], a.values[f"q3_{visit}"]]
             bowley = sf.quartile_skewness(*q) if None not in q else None
-            rows.append([a.arm, word, m, s, ab, None if math.isinf(dist) else dist, bowley])
-            if ab is not None and ab < sf.SKEW_RATIO:
-                skewed.append(f"{a.arm} {word} (mean {fmt(ab)} SD above the bound)")
-            if not math.isinf(dist) and dist < NEAR_BOUND_SD:
-                near.append(f"{a.arm} {word} ({fmt(dist)} SD from a bound)")
-    table = Table("shape", "Means and SDs against the declared bounds", ["arm", "visit", "mean", "SD",
-                  "(mean - lower bound) / SD", "SDs to nearer bound", "quartile skewness"], rows, by_arm=True,
-                  note="Altman and Bland (1996): for a variable bounded below, (mean - bound) / SD under 2 "
-                       "suggests skew. Quartile skewness (Bowley) only where medians and quartiles are given.")
-    if lo is None and hi is None:
+            yield a, word, m, s, ab, (None if math.isinf(dist) else dist), bowley, \
+                a.sources[visit].startswith("reported")
+
+
+def shape(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
+    cid = "summary-shape"
+    if spec.lower_bound is None and spec.upper_bound is None:
         return not_assessable(cid, spec, "no bound is declared (bounds or levels), so means and SDs say nothing "
                                          "about skewness or floors")
-    v_skew = Verdict.CAUTION if skewed else Verdict.SOUND
-    subs.append(SubFinding("skew", "Do the means and SDs imply skew (mean under 2 SD above the lower bound)?",
-                           v_skew, ("yes: " + "; ".join(skewed)) if skewed else "no evidence of skew from the means "
-                           "and SDs (every mean at least 2 SD above the lower bound)" if lo is not None else
-                           "no lower bound declared"))
-    if skewed:
-        problems.append("the means lie less than 2 SD above the lower bound (" + "; ".join(skewed[:2]) +
-                        "), so the distribution is probably skewed")
-    v_near = Verdict.CAUTION if near else Verdict.SOUND
+    rows, subs, problems, asks = [], [], [], []
+    ab_low, near, bowley_high = [], [], []
+    for a, word, m, s, ab, dist, bowley, reported in _shape_rows(spec, arms):
+        rows.append([a.arm, word, m, s, ab, dist, bowley, "reported" if reported else "from quartiles"])
+        if reported and ab is not None and ab < sf.SKEW_RATIO:
+            ab_low.append((ab, f"{a.arm} {word}"))
+        if reported and dist is not None and dist < NEAR_BOUND_SD:
+            near.append((dist, f"{a.arm} {word}"))
+        if bowley is not None and abs(bowley) > QUARTILE_SKEW:
+            bowley_high.append((bowley, f"{a.arm} {word}"))
+    table = Table("shape", "Means and SDs against the declared bounds", ["arm", "visit", "mean", "SD",
+                  "(mean - lower bound) / SD", "SDs to nearer bound", "quartile skewness", "mean and SD"], rows,
+                  by_arm=True,
+                  note="Altman and Bland (1996): for a variable bounded below, (mean - bound) / SD under 2 suggests "
+                       "skew (judged only on reported means and SDs). Quartile skewness (Bowley) where medians and "
+                       "quartiles are given; means and SDs estimated from quartiles (Wan et al. 2014) assume normality.")
+    if spec.lower_bound is not None:
+        if ab_low:
+            worst = min(ab_low)
+            ev = (f"{len(ab_low)} of {len(rows)} arm-visits have a mean under 2 SD above the lower bound "
+                  f"{spec.lower_bound:g} (lowest {fmt(worst[0])} SD, {worst[1]})")
+            problems.append(ev.replace("arm-visits have", "arm-visit means lie").replace("a mean under", "under")
+                            + ": the distribution is probably skewed")
+        else:
+            ev = "no evidence of skew: every reported mean lies at least 2 SD above the lower bound" if any(
+                r[-1] == "reported" for r in rows) else "no reported mean and SD to judge (quartiles only)"
+        subs.append(SubFinding("skew", "Do the means and SDs imply skew (mean under 2 SD above the lower bound)?",
+                               Verdict.CAUTION if ab_low else Verdict.SOUND, ev))
+    if any(r[6] is not None for r in rows):
+        ev = (f"quartile skewness beyond {QUARTILE_SKEW:g} in {len(bowley_high)} arm-visits (largest "
+              f"{fmt(max(bowley_high, key=lambda t: abs(t[0]))[0])})" if bowley_high else
+              f"no evidence of skew: quartile skewness within {QUARTILE_SKEW:g} everywhere")
+        subs.append(SubFinding("quartiles", "Do the medians and quartiles imply skew?",
+                               Verdict.CAUTION if bowley_high else Verdict.SOUND, ev))
+        if bowley_high:
+            problems.append("the medians sit off-centre in their quartiles (" + ev + ")")
+    if (ab_low or bowley_high) and spec.scale != "ordinal":
+        asks.append("the analysis on the log scale (ANCOVA of log follow-up on log baseline, effect as a ratio "
+                    "of geometric means) and medians with quartiles by arm")
+    ev = (f"{len(near)} arm-visit means lie within {NEAR_BOUND_SD:g} SD of a bound (nearest {fmt(min(near)[0])} SD, "
+          f"{min(near)[1]})" if near else f"no evidence of a floor or ceiling: no reported mean within "
+          f"{NEAR_BOUND_SD:g} SD of a bound")
     subs.append(SubFinding("bound", f"Are the means within {NEAR_BOUND_SD:g} SD of a bound (a floor or ceiling)?",
-                           v_near, ("yes: " + "; ".join(near)) if near else "no mean lies within "
-                           f"{NEAR_BOUND_SD:g} SD of a bound"))
+                           Verdict.CAUTION if near else Verdict.SOUND, ev))
     if near:
-        problems.append("means lie close to a bound (" + "; ".join(near[:2]) + "), so change is limited for "
-                        "participants who start near it")
+        problems.append(ev + ": change is limited for participants who start near the bound")
+        asks.append("the number of participants at the bound at each visit")
     ests = []
     if spec.reported_analysis == "percent-change":
+        gaps = []
         for a in arms:
+            if a.r is None:
+                continue
             pm = sf.percent_change_of_means(a.mean["baseline"], a.mean["followup"])
-            if a.r is not None:
-                mp = sf.mean_percent_change_second_order(a.mean["baseline"], a.mean["followup"], a.sd["baseline"],
-                                                         a.sd["followup"], a.r)
-                ests.append(Estimate(f"Percent change of the means, {a.arm}", pm, unit="%", by_arm=True))
-                ests.append(Estimate(f"Mean of the percent changes (second-order approximation), {a.arm}", mp,
-                                     unit="%", by_arm=True))
-        if ests:
-            gaps = [abs(ests[i + 1].value - ests[i].value) for i in range(0, len(ests), 2)]
+            mp = sf.mean_percent_change_second_order(a.mean["baseline"], a.mean["followup"], a.sd["baseline"],
+                                                     a.sd["followup"], a.r)
+            ests.append(Estimate(f"Percent change of the means, {a.arm}", pm, unit="%", by_arm=True))
+            ests.append(Estimate(f"Mean of the percent changes (second-order approximation), {a.arm}", mp,
+                                 unit="%", by_arm=True))
+            gaps.append(abs(mp - pm))
+        if gaps:
+            verdict = Verdict.CAUTION if max(gaps) > PERCENT_GAP else Verdict.SOUND
+            ev = (f"the mean of the percent changes and the percent change of the means differ by up to "
+                  f"{fmt(max(gaps))} percentage points (second-order approximation; material beyond "
+                  f"{PERCENT_GAP:g}, a convention)")
             subs.append(SubFinding("percent", "Does the mean of percent changes differ from the percent change of "
-                                   "the means?", Verdict.CAUTION if max(gaps) > 1 else Verdict.SOUND,
-                                   f"up to {fmt(max(gaps))} percentage points apart (second-order approximation); "
-                                   "the paper's percent change must say which it is", by_arm=True))
+                                   "the means?", verdict, ev, by_arm=True))
+            if verdict is Verdict.CAUTION:
+                problems.append(ev)
+                asks.append("whether the reported percent change is the mean of the participants' percent changes "
+                            "or the percent change of the arm means")
     if spec.scale == "ordinal" and spec.reported_analysis in ("change", "percent-change"):
         shift = recoding_shift(spec.levels)
-        moved = []
-        for a in arms:
-            p0, p1 = sf.percent_change_under_recoding(a.mean["baseline"], a.mean["followup"], shift)
-            moved.append(abs(p1 - p0) / max(abs(p0), 1e-12))
         if spec.reported_analysis == "percent-change":
+            moved = []
+            for a in arms:
+                p0, p1 = sf.percent_change_under_recoding(a.mean["baseline"], a.mean["followup"], shift)
+                moved.append(abs(p1 - p0) / max(abs(p0), 1e-12))
             verdict = Verdict.CAUTION if max(moved) > RECODE_CHANGE else Verdict.SOUND
+            ev = (f"coding the levels from {spec.levels[0] + shift:g} instead of {spec.levels[0]:g} moves the percent "
+                  f"change of the means by up to {100 * max(moved):.0f}% of its value")
             subs.append(SubFinding("coding", "Does the percent change depend on how the ordinal levels are coded?",
-                                   verdict, f"recoding the levels by {shift:+g} moves the percent change of the means "
-                                   f"by up to {100 * max(moved):.0f}% of its value"))
+                                   verdict, ev))
             if verdict is Verdict.CAUTION:
-                problems.append(f"the percent change of an ordinal score moves by up to {100 * max(moved):.0f}% when "
-                                f"the levels are coded from {spec.levels[0] + shift:g} instead of {spec.levels[0]:g}")
+                problems.append(ev)
         subs.append(SubFinding("interval", "Does subtracting ordinal scores measure an amount?", Verdict.CAUTION,
-                               f"the scale has {len(spec.levels)} levels; a change of one step is counted the same "
-                               "at every level, which summaries cannot check (a proportional-odds analysis does "
-                               "not need it)"))
-        problems.append("a change of an ordinal score treats every step as equal")
+                               f"the scale has {len(spec.levels)} ordered levels; a change of one step is counted the "
+                               "same at every level, which summaries cannot check"))
+        problems.append(f"a change of a {len(spec.levels)}-level ordinal score counts every step as the same amount")
+        asks.append("a proportional-odds analysis of the follow-up score adjusted for baseline")
     verdict = _worst([s.verdict for s in subs])
-    n_flags = sum(s.verdict is Verdict.CAUTION for s in subs)
-    headline = (f"{n_flags} of {len(subs)} questions raise caution: " + "; ".join(problems) + "."
-                if n_flags else "No evidence of skew or of a floor or ceiling in the reported means and SDs.")
-    if n_flags:
-        headline += " Means and SDs give no interval here, so the grade is at most caution."
+    if problems:
+        headline = _sentence("; ".join(problems)) + " Means and SDs give no interval, so the grade is at most caution."
+    else:
+        headline = "No evidence of skew or of a floor or ceiling in the reported means, SDs and quartiles."
     res = _result(cid, spec, verdict, headline, subfindings=subs, estimates=ests, tables=[table],
-                  references=["altman-bland-1996"] + (["vickers-2001"] if spec.reported_analysis == "percent-change"
-                                                      else []),
+                  references=["altman-bland-1996", "wan-2014"] + (["vickers-2001"] if spec.reported_analysis ==
+                                                                 "percent-change" else []),
                   method="(mean - lower bound) / SD < 2 suggests skew (Altman and Bland 1996); a mean within 1 SD of "
-                         "a bound suggests a floor or ceiling (convention); the mean of percent changes by the delta "
-                         "method, E[f/b] ~ mf/mb - cov/mb^2 + mf var(b)/mb^3.")
+                         "a bound suggests a floor or ceiling (convention); quartile skewness (q3 + q1 - 2 median) / "
+                         "(q3 - q1); the mean of percent changes by the delta method, E[f/b] ~ mf/mb - cov/mb^2 + "
+                         "mf var(b)/mb^3.")
     if verdict is Verdict.SOUND:
         return Draft(res)
-    ask = ("the analysis on the log scale (ANCOVA of log follow-up on log baseline, effect as a ratio of geometric "
-           "means), medians and quartiles by arm, and the number of participants at the bound"
-           if skewed or near else "a proportional-odds analysis of the follow-up score adjusted for baseline")
-    return Draft(res, "; ".join(problems) + ".", f"Please report {ask}.")
+    return Draft(res, _sentence("; ".join(problems)), "Please report " + "; ".join(asks) + ".")
+
+
+def _sentence(text: str) -> str:
+    """``text`` with a capital first letter and a closing full stop."""
+    text = text.strip()
+    return (text[:1].upper() + text[1:]).rstrip(".") + "." if text else text
 
 
 # ---------------------------------------------------------------------------------- regression to the mean
@@ -544,7 +593,7 @@ def rtm(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
                if ctx.design != "single-arm" else
                "Please discuss regression to the mean explicitly: a before-after change after entry on this reading "
                "is expected without any effect; a concurrent control or a second baseline reading would separate them.")
-    return Draft(res, f"regression to the mean alone predicts a change of {span} after entry on {e.text}; the "
+    return Draft(res, f"Regression to the mean alone predicts a change of {span} after entry on {e.text}; the "
                       f"{control.arm} arm changed by {fmt(observed)}.", request)
 
 
