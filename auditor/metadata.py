@@ -308,12 +308,13 @@ class StudyMetadata(_Strict):
     columns: ColumnMap = Field(default_factory=ColumnMap)
     outcomes: list[OutcomeSpec] = Field(min_length=1)
 
-    @model_validator(mode="after")
-    def _data_source(self):
-        if self.study.source != "data":
+    @field_validator("study")
+    @classmethod
+    def _data_source(cls, study):
+        if study.source != "data":
             raise ValueError("study.source 'summaries' is read by the audit from published summaries, "
                              "not as a data folder (run 'auditor run' or 'auditor validate' on it)")
-        return self
+        return study
 
     @model_validator(mode="after")
     def _unique_params(self):

@@ -29,6 +29,9 @@ COLUMNS = ("outcome", "arm") + NUMERIC + ("note",)
 VISITS = ("baseline", "followup")
 VISIT_WORD = {"baseline": "baseline", "followup": "follow-up"}
 MAX_ROWS = 1000
+PLAUSIBLE_MAX_R = 0.98
+"""An implied pre-post correlation above this, where reading one SD as an SE would give a usual one,
+marks that SD as probably an SE (a convention of this tool, no source)."""
 
 
 @dataclass
@@ -227,7 +230,7 @@ def _coherent(name: str, where: str, s: ArmSummary, log: ProblemLog) -> bool:
     r = v["r_prepost"]
     if sd_c is not None:
         implied = implied_correlation(sb, sf, sd_c)
-        if not -1 <= implied <= 1:
+        if not -1 <= implied <= 1 or (implied > PLAUSIBLE_MAX_R and _probable_se(sb, sf, sd_c, n)):
             log.add(name, where, *_impossible(sb, sf, sd_c, n, implied, how))
             return False
         if r is None:
@@ -244,24 +247,37 @@ def _coherent(name: str, where: str, s: ArmSummary, log: ProblemLog) -> bool:
 
 
 def _impossible(sb: float, sf: float, sd_c: float, n: int, implied: float, how: str) -> tuple[str, str, str]:
-    """Column, problem and fix for three SDs that imply a correlation outside -1 to 1."""
+    """Column, problem and fix for three SDs that imply a correlation outside -1 to 1 (or above
+    PLAUSIBLE_MAX_R), naming the SD that is probably an SE when its SE-to-SD rescaling fits."""
     base = (f"the SDs of baseline ({sb:g}), follow-up ({sf:g}) and change ({sd_c:.4g}, {how}) imply a "
-            f"pre-post correlation of {implied:.3g}, which no sample can have")
+            f"pre-post correlation of {implied:.3g}, which " +
+            ("no sample can have" if abs(implied) > 1 else "is implausibly close to 1 for a trial outcome"))
+    col = _probable_se(sb, sf, sd_c, n)
+    if col is not None:
+        sd = {"sd_baseline": sb, "sd_followup": sf, "sd_change": sd_c}[col]
+        return (col, base + f"; {col} is probably an SE (x sqrt(n) = {sd * math.sqrt(n):.4g} fits the other SDs)",
+                f"enter the SD ({col} x sqrt(n) if the paper printed an SE), or correct the value")
     if implied > 1:
-        scaled = sd_c * math.sqrt(n)
-        if -1 <= implied_correlation(sb, sf, scaled) <= 1 and looks_like_se(sd_c, n, abs(sb - sf) + scaled / 2):
-            return ("sd_change", base + f"; sd_change is probably an SE (x sqrt(n) = {scaled:.4g} fits)",
-                    "enter the SD of change (SE x sqrt(n)), or leave sd_change empty")
-        return ("sd_change", base + " (the change SD is too small for the two SDs)",
+        return ("sd_change", base + " (the change SD is smaller than the difference of the two SDs)",
                 "check sd_change, sd_baseline and sd_followup against the paper")
-    for col, sd, other in (("sd_baseline", sb, sf), ("sd_followup", sf, sb)):
-        scaled = sd * math.sqrt(n)
-        rr = implied_correlation(scaled if col == "sd_baseline" else sb, scaled if col == "sd_followup" else sf, sd_c)
-        if -1 <= rr <= 1 and looks_like_se(sd, n, max(other, sd_c)):
-            return (col, base + f"; {col} is probably an SE (x sqrt(n) = {scaled:.4g} fits)",
-                    f"enter the SD ({col} x sqrt(n) if the paper printed an SE)")
+    if implied > -1:
+        return ("sd_change", base, "check sd_change against the paper; give r_prepost if the paper reports it")
     return ("sd_change", base + " (the change SD exceeds the sum of the two SDs)",
             "check sd_change, sd_baseline and sd_followup against the paper")
+
+
+def _probable_se(sb: float, sf: float, sd_c: float, n: int) -> str | None:
+    """The column whose value, read as an SE and multiplied by sqrt(n), makes the three SDs coherent
+    and is implausibly small beside the spread the other two imply; None when no column fits."""
+    root = math.sqrt(n)
+    trials = (("sd_change", (sb, sf, sd_c * root), change_sd(sb, sf, 0.5), sd_c),
+              ("sd_baseline", (sb * root, sf, sd_c), sf, sb),
+              ("sd_followup", (sb, sf * root, sd_c), sb, sf))
+    for col, sds, expected, value in trials:
+        r = implied_correlation(*sds)
+        if -1 <= r <= PLAUSIBLE_MAX_R and looks_like_se(value, n, expected):
+            return col
+    return None
 
 
 def _check_across_arms(name: str, out: dict[str, dict[str, ArmSummary]], log: ProblemLog) -> None:

@@ -1,0 +1,65 @@
+"""The example manuscript audited end to end: files, labels, verdicts, comments, determinism."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+from typer.testing import CliRunner
+
+from auditor.cli import app
+from auditor.pipeline import AuditOptions
+from auditor.results import Verdict
+from auditor.summaries.audit import audit_summaries, load_summary_study
+
+ROOT = Path(__file__).resolve().parents[2]
+EXAMPLE = ROOT / "example_manuscript"
+
+
+def _audit():
+    return audit_summaries(load_summary_study(EXAMPLE), AuditOptions(quick=True))
+
+
+def test_verdicts_follow_the_numbers():
+    a = _audit()
+    by = {(r.outcome, r.check_id): r for r in a.results}
+    # the responder rule on waist circumference: the whole interval of its extra share lies above 10%
+    resp = by[("WAIST", "summary-responder")]
+    est = resp.estimates[0]
+    assert est.lower > 1.10 and resp.verdict is Verdict.UNSUPPORTED
+    # no correlation for CRP: no interval, so caution at most
+    assert by[("CRP", "summary-efficiency")].verdict is Verdict.CAUTION
+    # regression to the mean in a randomised parallel trial: caution at most, and says the contrast is unbiased
+    rtm = by[("TG", "summary-rtm")]
+    assert rtm.verdict is Verdict.CAUTION and "randomised contrast is not biased" in rtm.headline
+    assert all(r.verdict is not Verdict.TOOL_DEFECT for r in a.results)
+
+
+def test_run_writes_labelled_report_and_comments(tmp_path):
+    out = tmp_path / "review_out"
+    res = CliRunner().invoke(app, ["run", str(EXAMPLE), "-o", str(out), "--quiet"])
+    assert res.exit_code == 0, res.output
+    names = sorted(p.name for p in out.iterdir())
+    assert names == ["audit.html", "audit.pdf", "comments.md", "findings.csv", "findings.json"]
+    html = (out / "audit.html").read_text()
+    assert "an audit from published summaries" in html and "screening aid for a qualified statistician" in html
+    md = (out / "comments.md").read_text()
+    assert md.count("\n1. ") == 1 and "Please report" in md and "screening aid" in md
+    findings = json.loads((out / "findings.json").read_text())
+    assert findings["source_label"] == "an audit from published summaries"
+    first = {p.name: p.read_bytes() for p in out.iterdir() if p.suffix != ".pdf"}
+    res = CliRunner().invoke(app, ["run", str(EXAMPLE), "-o", str(out), "--quiet", "--force"])
+    assert res.exit_code == 0
+    assert first == {p.name: p.read_bytes() for p in out.iterdir() if p.suffix != ".pdf"}
+
+
+def test_refuses_existing_output_without_force(tmp_path):
+    out = tmp_path / "o"
+    assert CliRunner().invoke(app, ["run", str(EXAMPLE), "-o", str(out), "--quiet"]).exit_code == 0
+    res = CliRunner().invoke(app, ["run", str(EXAMPLE), "-o", str(out), "--quiet"])
+    assert res.exit_code == 2
+
+
+def test_validate_command():
+    res = CliRunner().invoke(app, ["validate", str(EXAMPLE)])
+    assert res.exit_code == 0 and "valid published summaries" in res.output
