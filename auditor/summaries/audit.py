@@ -16,7 +16,7 @@ from ..errors import ProblemLog
 from ..failures import ToolDefect, defect_reason, is_defect
 from ..pipeline import CAUTIONS, AuditOptions, library_versions
 from ..results import CheckInfo, CheckResult, InputFile, Provenance, ReviewComment, SummaryAudit, Verdict
-from .checks import CHECKS, Context, Draft, applicable, not_assessable
+from .checks import ANALYSIS_TEXT, CHECKS, Context, Draft, applicable, not_assessable
 from .reader import Summaries, read_summaries
 from .spec import SummaryMetadata, read_summary_metadata
 
@@ -61,8 +61,6 @@ def _run(check_id: str, fn, spec, arms, ctx: Context, strict: bool) -> Draft:
 
 
 def _facts(spec, study: SummaryStudy) -> list[tuple[str, str]]:
-    from ..render.view import PLANNED_TEXT
-
     lo, hi = spec.lower_bound, spec.upper_bound
     rule = spec.responder
     return [
@@ -71,7 +69,7 @@ def _facts(spec, study: SummaryStudy) -> list[tuple[str, str]]:
         ("Bounds", "none declared" if lo is None and hi is None else
          f"{'–' if lo is None else f'{lo:g}'} to {'–' if hi is None else f'{hi:g}'}"),
         ("Follow-up summarised", spec.timepoint or "as reported"),
-        ("Reported analysis", PLANNED_TEXT.get(spec.reported_analysis, spec.reported_analysis)
+        ("Reported analysis", ANALYSIS_TEXT[spec.reported_analysis]
          + ("" if rule is None else f" ({rule.basis} {rule.direction} {rule.threshold:g})")),
         ("Entry criterion", spec.entry_criterion.text if spec.entry_criterion else "none declared"),
         ("Source of the numbers", f"{study.summaries.file}, published summaries (no participant data)"),

@@ -261,7 +261,7 @@ def _grade_ratio(value: float, lower: float | None) -> Verdict:
 
 ANALYSIS_TEXT = {"change": "change from baseline", "follow-up-only": "follow-up alone",
                  "percent-change": "percent change from baseline", "responder": "a responder rule",
-                 "follow-up-adjusted": "ANCOVA"}
+                 "follow-up-adjusted": "ANCOVA of follow-up on baseline"}
 
 
 def efficiency(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
