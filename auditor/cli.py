@@ -185,6 +185,9 @@ def run(
 
     def body():
         if _summaries_folder(study_dir):
+            refuse_if_any([option_problem(o, "an audit from published summaries has no participant data to pool "
+                                             "or list", "leave the option out for a summaries folder")
+                           for o, given in (("--blinded", blinded), ("--list-left-out", list_left_out)) if given])
             return _run_summaries(study_dir, output, force, analysis_date, today, seed, paper, check, strict, quiet)
         refuse_if_any(seed_problems(seed), date_problems(analysis_date, "--analysis-date"),
                       check_id_problems(check, registered_check_ids()), paper_problems(paper))

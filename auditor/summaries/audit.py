@@ -67,7 +67,7 @@ def _facts(spec, study: SummaryStudy) -> list[tuple[str, str]]:
         ("Scale", spec.scale + (f" (levels {', '.join(f'{v:g}' for v in spec.levels)})" if spec.levels else "")),
         ("Unit", spec.unit or "–"),
         ("Bounds", "none declared" if lo is None and hi is None else
-         f"{'–' if lo is None else f'{lo:g}'} to {'–' if hi is None else f'{hi:g}'}"),
+         f"{'no lower bound' if lo is None else f'{lo:g}'} to {'no upper bound' if hi is None else f'{hi:g}'}"),
         ("Follow-up summarised", spec.timepoint or "as reported"),
         ("Reported analysis", ANALYSIS_TEXT[spec.reported_analysis]
          + ("" if rule is None else f" ({rule.basis} {rule.direction} {rule.threshold:g})")),
