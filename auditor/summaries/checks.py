@@ -510,9 +510,12 @@ def shape(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
                                    verdict, ev))
             if verdict is Verdict.CAUTION:
                 problems.append(ev)
+        room = [(a.arm, a.mean["baseline"] - spec.levels[0], spec.levels[-1] - a.mean["baseline"]) for a in arms]
         subs.append(SubFinding("interval", "Does subtracting ordinal scores measure an amount?", Verdict.CAUTION,
                                f"the scale has {len(spec.levels)} ordered levels; a change of one step is counted the "
-                               "same at every level, which summaries cannot check"))
+                               "same at every level, which summaries cannot check; room to move from the mean "
+                               "baseline: " + "; ".join(f"{arm} down {fmt(d)}, up {fmt(u)} levels" for arm, d, u in room),
+                               by_arm=True))
         problems.append(f"a change of a {len(spec.levels)}-level ordinal score counts every step as the same amount")
         asks.append("a proportional-odds analysis of the follow-up score adjusted for baseline")
     verdict = _worst([s.verdict for s in subs])

@@ -21,6 +21,14 @@ def test_implied_correlation_hand_example():
     assert sf.change_sd(4.5, 4.2, 0.6) == pytest.approx(3.9, abs=1e-12)
 
 
+def test_cochrane_imputation_published_worked_example():
+    # Worked example of the Cochrane imputation formula published at uniqcret.com ("Calculating mean
+    # and SD of change from baseline using correlation"): baseline SD 10, follow-up SD 12, r = 0.6
+    # -> SD of change 10; the implied correlation recovers r = 0.6 from the three SDs.
+    assert sf.change_sd(10, 12, 0.6) == pytest.approx(10.0)
+    assert sf.implied_correlation(10, 12, 10) == pytest.approx(0.6)
+
+
 def test_implied_correlation_equals_sample_correlation():
     # Algebraic check against numpy: for sample SDs of the same participants the identity is exact.
     rng = np.random.default_rng(3)

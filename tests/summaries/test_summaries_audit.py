@@ -63,3 +63,17 @@ def test_refuses_existing_output_without_force(tmp_path):
 def test_validate_command():
     res = CliRunner().invoke(app, ["validate", str(EXAMPLE)])
     assert res.exit_code == 0 and "valid published summaries" in res.output
+
+
+def test_participant_options_refused_for_summaries(tmp_path):
+    out = tmp_path / "o"
+    res = CliRunner().invoke(app, ["run", str(EXAMPLE), "-o", str(out), "--blinded", "--list-left-out"])
+    assert res.exit_code == 2 and "--blinded:" in res.output and "--list-left-out:" in res.output
+    assert not out.exists()
+    res = CliRunner().invoke(app, ["run", str(EXAMPLE), "-o", str(out), "--check", "change-score"])
+    assert res.exit_code == 2 and "not a check of an audit from published summaries" in res.output
+
+
+def test_only_one_check(tmp_path):
+    a = audit_summaries(load_summary_study(EXAMPLE), AuditOptions(quick=True, checks=("summary-rtm",)))
+    assert [(r.outcome, r.check_id) for r in a.results] == [("TG", "summary-rtm")]
