@@ -16,6 +16,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from ..errors import ProblemLog, did_you_mean
+from ..study import _inside
 from ..stats.summary_formulas import (change_sd, implied_correlation, looks_like_se, mean_sd_from_quartiles,
                                       se_from_ci)
 from .spec import SummaryMetadata
@@ -29,6 +30,7 @@ COLUMNS = ("outcome", "arm") + NUMERIC + ("note",)
 VISITS = ("baseline", "followup")
 VISIT_WORD = {"baseline": "baseline", "followup": "follow-up"}
 MAX_ROWS = 1000
+MAX_BYTES = 5_000_000
 PLAUSIBLE_MAX_R = 0.98
 """An implied pre-post correlation above this, where reading one SD as an SE would give a usual one,
 marks that SD as probably an SE (a convention of this tool, no source)."""
@@ -72,10 +74,16 @@ def _number(text: str):
 def read_summaries(folder: Path, meta: SummaryMetadata, log: ProblemLog) -> Summaries | None:
     """Read and validate the summaries file; every problem goes to ``log``."""
     name = meta.files.summaries
-    path = Path(folder) / name
+    path = _inside(Path(folder), name, "files.summaries", log)
+    if path is None:
+        return None
     if not path.is_file():
         log.add(name, "-", "-", f"the summaries file named in study.toml (files.summaries) is not in {folder}",
                 "put the file there or correct files.summaries")
+        return None
+    if path.stat().st_size > MAX_BYTES:
+        log.add(name, "-", "-", f"is larger than {MAX_BYTES // 1_000_000} MB, far more than a paper's summaries",
+                "give one row per outcome and arm")
         return None
     raw = path.read_bytes()
     try:
@@ -83,7 +91,11 @@ def read_summaries(folder: Path, meta: SummaryMetadata, log: ProblemLog) -> Summ
     except UnicodeDecodeError:
         log.add(name, "-", "-", "is not UTF-8 text", "save the file as UTF-8 CSV")
         return None
-    rows = list(csv.reader(io.StringIO(text)))
+    try:
+        rows = list(csv.reader(io.StringIO(text)))
+    except csv.Error as exc:
+        log.add(name, "-", "-", f"is not readable CSV ({exc})", "save the file as plain comma-separated text")
+        return None
     if not rows:
         log.add(name, "-", "-", "is empty", "give a header line and one row per outcome and arm")
         return None
@@ -107,6 +119,10 @@ def read_summaries(folder: Path, meta: SummaryMetadata, log: ProblemLog) -> Summ
     specs = {o.param: o for o in meta.outcomes}
     for k, cells in enumerate(rows[1:], start=2):
         if not any(c.strip() for c in cells):
+            continue
+        if len(cells) > len(header):
+            log.add(name, f"row {k}", "-", f"has {len(cells)} cells but the header names {len(header)} columns",
+                    "remove the extra cells or quote a cell that holds a comma")
             continue
         rec = {h: (cells[i].strip() if i < len(cells) else "") for i, h in enumerate(header)}
         summary = _row(name, k, rec, meta, specs, log)

@@ -116,3 +116,17 @@ def test_data_folder_refuses_summaries_source(tmp_path):
     log = ProblemLog()
     meta, _ = read_metadata(tmp_path, log, raw=raw)
     assert meta is None and any("summaries" in p.problem for p in log.problems)
+
+
+def test_path_leaving_the_folder_is_refused(manuscript):
+    toml = manuscript / "study.toml"
+    toml.write_text(toml.read_text().replace('summaries = "summaries.csv"', 'summaries = "../summaries.csv"'))
+    lines = [p.one_line() for p in _problems(manuscript)]
+    assert any("files.summaries" in l and "leaves the study folder" in l for l in lines), lines
+
+
+def test_extra_cells_and_unreadable_csv(manuscript):
+    _write(manuscript, [GOOD_C, GOOD_T + ",9,9"])
+    assert any(p.where == "row 3" and "cells" in p.problem for p in _problems(manuscript))
+    (manuscript / "summaries.csv").write_text(HEADER + 'LDL,"' + "x" * 200_000 + '"\n')
+    assert any("not readable CSV" in p.problem for p in _problems(manuscript))
