@@ -596,8 +596,12 @@ def rtm(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
                if ctx.design != "single-arm" else
                "Please discuss regression to the mean explicitly: a before-after change after entry on this reading "
                "is expected without any effect; a concurrent control or a second baseline reading would separate them.")
+    share = ""
+    if observed != 0 and all(g[2] / observed > 0 for g in grid):
+        ends = sorted(abs(g[2] / observed) for g in grid)
+        share = f", so regression to the mean alone could account for {100 * ends[0]:.0f}% to {100 * ends[-1]:.0f}% of it"
     return Draft(res, f"Regression to the mean alone predicts a change of {span} after entry on {e.text}; the "
-                      f"{control.arm} arm changed by {fmt(observed)}.", request)
+                      f"{control.arm} arm changed by {fmt(observed)}{share}.", request)
 
 
 def applicable(spec: SummaryOutcome, design: str) -> list[tuple[str, object]]:

@@ -77,3 +77,21 @@ def test_participant_options_refused_for_summaries(tmp_path):
 def test_only_one_check(tmp_path):
     a = audit_summaries(load_summary_study(EXAMPLE), AuditOptions(quick=True, checks=("summary-rtm",)))
     assert [(r.outcome, r.check_id) for r in a.results] == [("TG", "summary-rtm")]
+
+
+def test_single_arm_before_after(tmp_path):
+    # An invented single-arm study of a skin cream: entry on a severity index from 24 to 73.
+    d = tmp_path / "sa"
+    d.mkdir()
+    (d / "study.toml").write_text(
+        '[study]\nid = "SA-1"\nsource = "summaries"\ndesign = "single-arm"\narms = ["Cream"]\n\n'
+        '[files]\nsummaries = "s.csv"\n\n[[outcomes]]\nparam = "SEV"\nscale = "continuous"\nbounds = [0, 72]\n'
+        'reported_analysis = "change"\nentry_criterion = { lower = 24, upper = 73, assumed_mean = [18, 22], '
+        'assumed_sd = 9, reliability = [0.6, 0.8] }\n')
+    (d / "s.csv").write_text("outcome,arm,n,mean_baseline,sd_baseline,mean_followup,sd_followup,sd_change\n"
+                             "SEV,Cream,40,31.2,6.1,22.5,8.4,7.2\n")
+    a = audit_summaries(load_summary_study(d), AuditOptions(quick=True))
+    assert [r.check_id for r in a.results] == ["summary-consistency", "summary-shape", "summary-rtm"]
+    rtm = a.results[-1]
+    assert rtm.verdict is Verdict.CAUTION and "before-after design" in rtm.headline
+    assert "could account for" in a.comments[0].evidence
