@@ -245,6 +245,8 @@ def _run_summaries(study_dir, output, force, analysis_date, today, seed, paper, 
     paths, recovery = write_summary_audit(a, output, force=force, paper=paper_size(paper), protected=[study_dir])
     _report_recovery(recovery, output)
     if not quiet:
+        out.print(f"{a.study_id}: {a.source_label} (no participant data); {len(a.comments)} draft comment(s) "
+                  "to the authors in comments.md.", markup=False)
         out.print(_summary_table(a))
     for p in paths:
         out.print(str(p), markup=False)

@@ -441,6 +441,7 @@ def shape(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
                   note="Altman and Bland (1996): for a variable bounded below, (mean - bound) / SD under 2 suggests "
                        "skew (judged only on reported means and SDs). Quartile skewness (Bowley) where medians and "
                        "quartiles are given; means and SDs estimated from quartiles (Wan et al. 2014) assume normality.")
+    any_reported = any(r[-1] == "reported" for r in rows)
     if spec.lower_bound is not None:
         if ab_low:
             worst = min(ab_low)
@@ -449,10 +450,11 @@ def shape(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
             problems.append(ev.replace("arm-visits have", "arm-visit means lie").replace("a mean under", "under")
                             + ": the distribution is probably skewed")
         else:
-            ev = "no evidence of skew: every reported mean lies at least 2 SD above the lower bound" if any(
-                r[-1] == "reported" for r in rows) else "no reported mean and SD to judge (quartiles only)"
+            ev = "no evidence of skew: every reported mean lies at least 2 SD above the lower bound" if any_reported \
+                else "no reported mean and SD to judge (quartiles only)"
         subs.append(SubFinding("skew", "Do the means and SDs imply skew (mean under 2 SD above the lower bound)?",
-                               Verdict.CAUTION if ab_low else Verdict.SOUND, ev))
+                               Verdict.CAUTION if ab_low else Verdict.SOUND if any_reported else
+                               Verdict.NOT_ASSESSABLE, ev))
     if any(r[6] is not None for r in rows):
         ev = (f"quartile skewness beyond {QUARTILE_SKEW:g} in {len(bowley_high)} arm-visits (largest "
               f"{fmt(max(bowley_high, key=lambda t: abs(t[0]))[0])})" if bowley_high else
@@ -462,16 +464,16 @@ def shape(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
         if bowley_high:
             problems.append("the medians sit off-centre in their quartiles (" + ev + ")")
     if (ab_low or bowley_high) and spec.scale != "ordinal":
-        asks.append("the analysis on the log scale (ANCOVA of log follow-up on log baseline, effect as a ratio "
+        asks.append("report the analysis on the log scale (ANCOVA of log follow-up on log baseline, effect as a ratio "
                     "of geometric means) and medians with quartiles by arm")
     ev = (f"{len(near)} arm-visit means lie within {NEAR_BOUND_SD:g} SD of a bound (nearest {fmt(min(near)[0])} SD, "
           f"{min(near)[1]})" if near else f"no evidence of a floor or ceiling: no reported mean within "
-          f"{NEAR_BOUND_SD:g} SD of a bound")
+          f"{NEAR_BOUND_SD:g} SD of a bound" if any_reported else "no reported mean and SD to judge (quartiles only)")
     subs.append(SubFinding("bound", f"Are the means within {NEAR_BOUND_SD:g} SD of a bound (a floor or ceiling)?",
-                           Verdict.CAUTION if near else Verdict.SOUND, ev))
+                           Verdict.CAUTION if near else Verdict.SOUND if any_reported else Verdict.NOT_ASSESSABLE, ev))
     if near:
         problems.append(ev + ": change is limited for participants who start near the bound")
-        asks.append("the number of participants at the bound at each visit")
+        asks.append("report the number of participants at the bound at each visit")
     ests = []
     if spec.reported_analysis == "percent-change":
         gaps = []
@@ -494,7 +496,7 @@ def shape(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
                                    "the means?", verdict, ev, by_arm=True))
             if verdict is Verdict.CAUTION:
                 problems.append(ev)
-                asks.append("whether the reported percent change is the mean of the participants' percent changes "
+                asks.append("state whether the reported percent change is the mean of the participants' percent changes "
                             "or the percent change of the arm means")
     if spec.scale == "ordinal" and spec.reported_analysis in ("change", "percent-change"):
         shift = recoding_shift(spec.levels)
@@ -517,7 +519,7 @@ def shape(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
                                "baseline: " + "; ".join(f"{arm} down {fmt(d)}, up {fmt(u)} levels" for arm, d, u in room),
                                by_arm=True))
         problems.append(f"a change of a {len(spec.levels)}-level ordinal score counts every step as the same amount")
-        asks.append("a proportional-odds analysis of the follow-up score adjusted for baseline")
+        asks.append("report a proportional-odds analysis of the follow-up score adjusted for baseline")
     verdict = _worst([s.verdict for s in subs])
     if problems:
         headline = _sentence("; ".join(problems)) + " Means and SDs give no interval, so the grade is at most caution."
@@ -532,7 +534,7 @@ def shape(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
                          "mf var(b)/mb^3.")
     if verdict is Verdict.SOUND:
         return Draft(res)
-    return Draft(res, _sentence("; ".join(problems)), "Please report " + "; ".join(asks) + ".")
+    return Draft(res, _sentence("; ".join(problems)), "Please " + "; and ".join(asks) + ".")
 
 
 def _sentence(text: str) -> str:
@@ -599,7 +601,9 @@ def rtm(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
     share = ""
     if observed != 0 and all(g[2] / observed > 0 for g in grid):
         ends = sorted(abs(g[2] / observed) for g in grid)
-        share = f", so regression to the mean alone could account for {100 * ends[0]:.0f}% to {100 * ends[-1]:.0f}% of it"
+        share = (f", so regression to the mean alone could account for {100 * ends[0]:.0f}% to {100 * ends[-1]:.0f}% "
+                 "of it" if ends[-1] <= 1 else f": regression to the mean alone predicts {fmt(ends[0])} to "
+                 f"{fmt(ends[-1])} times that change")
     return Draft(res, f"Regression to the mean alone predicts a change of {span} after entry on {e.text}; the "
                       f"{control.arm} arm changed by {fmt(observed)}{share}.", request)
 
