@@ -188,17 +188,19 @@ def consistency(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> D
     if not subs and not ests:
         return not_assessable(cid, spec, "the paper gives no number twice (no SD of change, correlation, "
                                          "interval or effect to cross-check against the means and SDs)")
-    verdict = _worst([s.verdict for s in subs]) if subs else Verdict.SOUND
+    verdict = _worst([s.verdict for s in subs]) if subs else Verdict.NOT_ASSESSABLE
     rs = [e for e in ests]
     r_text = "; ".join(f"{e.name.split(', ', 1)[1]} {fmt(e.value)} ({fmt(e.lower)} to {fmt(e.upper)})" for e in rs)
     agree = sum(s.verdict is Verdict.SOUND for s in subs)
     headline = (f"Pre-post correlation {r_text}; " if rs else "No correlation can be computed; ") + \
-        (f"{agree} of {len(subs)} cross-checks agree." if subs else "no number is given twice to cross-check.")
+        (f"{agree} of {len(subs)} cross-checks agree." if subs else
+         "no number is given twice, so agreement cannot be checked.")
     res = _result(cid, spec, verdict, headline, subfindings=subs, estimates=ests,
                   references=["cochrane-handbook-6"],
+                  reason="" if subs else "no number is given twice to cross-check",
                   method="r = (SDb^2 + SDf^2 - SDc^2) / (2 SDb SDf) per arm, Fisher-z interval; SD of change "
                          "from an SE as SE x sqrt(n) and from a 95% CI as sqrt(n) x width / 3.92.")
-    if verdict is Verdict.SOUND:
+    if verdict is not Verdict.CAUTION:
         return Draft(res)
     return Draft(res, _sentence("; ".join(problems)),
                  "Please state which participants each summary describes (all randomised, completers), give the "
