@@ -172,8 +172,8 @@ def _row(name: str, k: int, rec: dict, meta: SummaryMetadata, specs, log: Proble
     if rec.get("n", "") == "":
         log.add(name, where, "n", "the number of participants is missing", "give the arm's n for this outcome")
         bad = True
-    elif n is not None and (n < 1 or not float(n).is_integer()):
-        log.add(name, where, "n", f"n = {n:g} is not a whole number of participants (at least 1)",
+    elif n is not None and (n < 2 or not float(n).is_integer()):
+        log.add(name, where, "n", f"n = {n:g} is not a whole number of participants of at least 2 (an SD needs two)",
                 "give the number analysed in this arm")
         bad = True
     for col in NUMERIC:

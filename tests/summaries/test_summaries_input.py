@@ -54,6 +54,7 @@ def test_clean_rows_load(manuscript):
 @pytest.mark.parametrize("row,column,words", [
     ("LDL,Fibre bar 12 g,86,3.47,-0.81,3.21,0.79,0.47,,,", "sd_baseline", "must be positive"),
     ("LDL,Fibre bar 12 g,0,3.47,0.81,3.21,0.79,0.47,,,", "n", "not a whole number of participants"),
+    ("LDL,Fibre bar 12 g,12.5,3.47,0.81,3.21,0.79,0.47,,,", "n", "not a whole number of participants"),
     ("LDL,Fibre bar 12 g,86,3.47,0.81,3.21,0.79,,1.2,,", "r_prepost", "outside -1 to 1"),
     ("LDL,Fibre bar 12 g,86,3.47,0.81,,,0.47,,,", "mean_followup", "follow-up mean and SD is missing"),
     ("LDL,Fibre bar 12 g,86,3.47,0.81,3.21,0.79,0.051,,,", "sd_change", "probably an SE"),
