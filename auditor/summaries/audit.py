@@ -125,3 +125,12 @@ def audit_summaries(study: SummaryStudy, options: AuditOptions | None = None) ->
                         outcomes=[_outcome_record(o, study) for o in meta.outcomes], results=results,
                         provenance=prov, cautions=SUMMARY_CAUTIONS + list(CAUTIONS), checks=checks,
                         comments=comments)
+
+
+def audit_from_summaries(folder: str | Path, **options) -> SummaryAudit:
+    """Audit a folder of published summaries: the one call for notebooks.
+
+    >>> a = audit_from_summaries("example_manuscript")   # doctest: +SKIP
+    >>> [c.request for c in a.comments]                  # doctest: +SKIP
+    """
+    return audit_summaries(load_summary_study(folder), AuditOptions(**options))

@@ -95,3 +95,12 @@ def test_single_arm_before_after(tmp_path):
     rtm = a.results[-1]
     assert rtm.verdict is Verdict.CAUTION and "before-after design" in rtm.headline
     assert "could account for" in a.comments[0].evidence
+
+
+def test_notebook_call():
+    import auditor.api as aud
+
+    a = aud.audit_from_summaries(EXAMPLE, quick=True)
+    assert a.comments and a.comments[0].number == 1
+    assert set(a.findings_frame()["check_id"]) <= {"summary-consistency", "summary-efficiency", "summary-responder",
+                                                  "summary-shape", "summary-rtm"}
