@@ -290,7 +290,6 @@ def efficiency(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Dr
     if p.r is None:
         lo_r, hi_r = PLAUSIBLE_R
         span = [fn(r, p.sd_b, p.sd_f) for r in (lo_r, hi_r)]
-        worst_low = min(span)
         verdict = Verdict.CAUTION if max(span) > MATERIAL_RATIO else Verdict.SOUND
         headline = (f"With no correlation reported or computable, {ANALYSIS_TEXT[analysis]} needs "
                     f"{_pct(min(span))} to {_pct(max(span))} more participants than ANCOVA for r from "
@@ -299,7 +298,6 @@ def efficiency(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Dr
                     f"{_pct(max(span))} more participants than ANCOVA (pooled SDs {fmt(p.sd_b)} and {fmt(p.sd_f)})")
         subs.append(SubFinding("cost", f"What does {ANALYSIS_TEXT[analysis]} cost against ANCOVA (material above "
                                f"{_pct(MATERIAL_RATIO)})?", verdict, evidence + "; no correlation, so no interval"))
-        _ = worst_low
     else:
         iv = sf.simulated_interval(fn, p.sd_b, p.sd_f, p.r, p.df, ctx.seed, QUICK_DRAWS if ctx.quick else DRAWS)
         verdict = _grade_ratio(iv.value, iv.lower)
