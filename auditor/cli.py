@@ -21,7 +21,7 @@ from rich.table import Table
 from rich.text import Text
 
 from . import __version__
-from .errors import StudyInputError
+from .errors import StudyInputError, option_problem
 
 app = typer.Typer(add_completion=False, no_args_is_help=True, rich_markup_mode=None,
                   help="Audit whether a clinical trial's planned analyses are supported by its own data.")
@@ -120,6 +120,8 @@ def validate(study_dir: Path = typer.Argument(..., help="The study folder (holdi
     from .study import load_study
 
     def body():
+        if _summaries_folder(study_dir):
+            return _validate_summaries(study_dir)
         study = load_study(study_dir)
         _print_study_warnings(study)
         n_out = len(study.metadata.outcomes)
@@ -186,6 +188,11 @@ def run(
     from .study import load_study
 
     def body():
+        if _summaries_folder(study_dir):
+            refuse_if_any([option_problem(o, "an audit from published summaries has no participant data to pool "
+                                             "or list", "leave the option out for a summaries folder")
+                           for o, given in (("--blinded", blinded), ("--list-left-out", list_left_out)) if given])
+            return _run_summaries(study_dir, output, force, analysis_date, today, seed, paper, check, strict, quiet)
         refuse_if_any(seed_problems(seed), date_problems(analysis_date, "--analysis-date"),
                       check_id_problems(check, registered_check_ids()), paper_problems(paper))
         check_target(output, force, protected=[study_dir])
@@ -204,6 +211,49 @@ def run(
             out.print(str(p), markup=False)
 
     _guard(body)
+
+
+def _summaries_folder(study_dir: Path) -> bool:
+    """True when study.toml declares ``source = "summaries"``: an audit from published summaries."""
+    from .metadata import declared_source
+
+    return declared_source(study_dir) == "summaries"
+
+
+def _validate_summaries(study_dir: Path) -> None:
+    from .summaries.audit import load_summary_study
+
+    study = load_summary_study(study_dir)
+    out.print(f"{study_dir}: valid published summaries ({len(study.metadata.outcomes)} outcome(s), "
+              f"{study.summaries.rows} summary rows).", markup=False)
+
+
+def _run_summaries(study_dir, output, force, analysis_date, today, seed, paper, check, strict, quiet) -> None:
+    """`run` on a folder of published summaries: the same options, checks and write guard, plus comments.md."""
+    from .options import date_problems, paper_problems, paper_size, refuse_if_any, seed_problems
+    from .pipeline import AuditOptions
+    from .summaries.audit import load_summary_study, audit_summaries
+    from .summaries.checks import CHECKS
+    from .summaries.output import check_summary_target, write_summary_audit
+
+    unknown = [c for c in check if c not in CHECKS]
+    refuse_if_any(seed_problems(seed), date_problems(analysis_date, "--analysis-date"), paper_problems(paper),
+                  [option_problem("--check", f"'{c}' is not a check of an audit from published summaries",
+                                  f"use one of {', '.join(CHECKS)}") for c in unknown])
+    check_summary_target(output, force, protected=[study_dir])
+    study = load_summary_study(study_dir)
+    opts = AuditOptions(analysis_date=analysis_date, use_clock=today, seed=seed, checks=tuple(check),
+                        **({"strict": True} if strict else {}))
+    a = audit_summaries(study, opts)
+    _warn_defects(a)
+    paths, recovery = write_summary_audit(a, output, force=force, paper=paper_size(paper), protected=[study_dir])
+    _report_recovery(recovery, output)
+    if not quiet:
+        out.print(f"{a.study_id}: {a.source_label} (no participant data); {len(a.comments)} draft comment(s) "
+                  "to the authors in comments.md.", markup=False)
+        out.print(_summary_table(a))
+    for p in paths:
+        out.print(str(p), markup=False)
 
 
 @app.command()

@@ -122,6 +122,9 @@ class StudyInfo(_Strict):
     blinded: StrictBool = False
     analysis_date: AnalysisDate = None
     seed: StrictInt = Field(default=20240101, ge=0, le=MAX_SEED)
+    source: Literal["data", "summaries"] = "data"
+    """What the folder holds: participant data (``data``) or a paper's published summaries
+    (``summaries``, audited by :mod:`auditor.summaries`; see docs/summaries.md)."""
 
     @model_validator(mode="after")
     def _arms_consistent(self):
@@ -305,6 +308,14 @@ class StudyMetadata(_Strict):
     columns: ColumnMap = Field(default_factory=ColumnMap)
     outcomes: list[OutcomeSpec] = Field(min_length=1)
 
+    @field_validator("study")
+    @classmethod
+    def _data_source(cls, study):
+        if study.source != "data":
+            raise ValueError("study.source 'summaries' is read by the audit from published summaries, "
+                             "not as a data folder (run 'auditor run' or 'auditor validate' on it)")
+        return study
+
     @model_validator(mode="after")
     def _unique_params(self):
         seen = [o.param for o in self.outcomes]
@@ -400,6 +411,17 @@ def _parsed_metadata(raw: bytes, log: ProblemLog) -> tuple[StudyMetadata | None,
         log.add(METADATA_FILE, "-", "-", "nests arrays or tables too deeply to be read",
                 "write the metadata as in docs/study-folder.md")
     return None, digest
+
+
+def declared_source(folder: Path) -> str:
+    """``[study] source`` of the folder's study.toml, read leniently: ``summaries`` only when the
+    file says so, else ``data`` (whose reader then reports any problem with the file in full)."""
+    try:
+        data = tomllib.loads((Path(folder) / METADATA_FILE).read_bytes().decode("utf-8-sig"))
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError, RecursionError):
+        return "data"
+    study = data.get("study")
+    return "summaries" if isinstance(study, dict) and study.get("source") == "summaries" else "data"
 
 
 def _toml_line(message: str) -> str:

@@ -284,3 +284,26 @@ class Audit:
         if not self.results:
             return None
         return max((r.verdict for r in self.results), key=lambda v: v.rank)
+
+
+@dataclass(frozen=True)
+class ReviewComment:
+    """One numbered point of the draft letter to a paper's authors: the concern, the number behind
+    it and the analysis to ask for."""
+
+    number: int
+    outcome: str
+    outcome_label: str
+    check_id: str
+    concern: str
+    evidence: str
+    request: str
+
+
+@dataclass(frozen=True)
+class SummaryAudit(Audit):
+    """An audit computed from a paper's published summaries instead of participant data: the same
+    record, labelled as such, with the draft comments to the authors."""
+
+    source_label: str = "an audit from published summaries"
+    comments: list[ReviewComment] = field(default_factory=list)

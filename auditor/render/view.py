@@ -7,7 +7,7 @@ import math
 
 from ..figures import to_svg
 from ..references import REFERENCES
-from ..results import Audit, CheckResult, Verdict
+from ..results import Audit, CheckResult, SummaryAudit, Verdict
 from .bidi import UserText, audit_user_strings
 
 VERDICT_CLASS = {
@@ -157,7 +157,7 @@ def _audit_strings(audit: Audit) -> dict:
         results = [result_view(r, figure_no) for r in audit.results if r.outcome == o["param"]]
         sections.append({
             "param": o["param"], "label": o["label"],
-            "facts": [
+            "facts": o.get("facts") or [
                 ("Scale", o["scale"] + (f" (levels {', '.join(number(v) for v in o['levels'])})"
                                         if o["levels"] else "")),
                 ("Unit", o["unit"] or "–"),
@@ -204,7 +204,18 @@ def _audit_strings(audit: Audit) -> dict:
         },
         "left_out": None if audit.left_out is None else left_out_view(audit),
         "schema_version": audit.schema_version,
+        **summary_view(audit),
     }
+
+
+def summary_view(audit: Audit) -> dict:
+    """The label and the numbered draft comments of an audit from published summaries (empty
+    label and no comments for a data audit)."""
+    if not isinstance(audit, SummaryAudit):
+        return {"source_label": "", "comments": []}
+    return {"source_label": audit.source_label,
+            "comments": [{"number": c.number, "label": c.outcome_label, "concern": c.concern,
+                          "evidence": c.evidence, "request": c.request} for c in audit.comments]}
 
 
 def left_out_view(audit: Audit) -> list[dict]:

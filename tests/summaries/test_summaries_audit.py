@@ -1,0 +1,106 @@
+"""The example manuscript audited end to end: files, labels, verdicts, comments, determinism."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+from typer.testing import CliRunner
+
+from auditor.cli import app
+from auditor.pipeline import AuditOptions
+from auditor.results import Verdict
+from auditor.summaries.audit import audit_summaries, load_summary_study
+
+ROOT = Path(__file__).resolve().parents[2]
+EXAMPLE = ROOT / "example_manuscript"
+
+
+def _audit():
+    return audit_summaries(load_summary_study(EXAMPLE), AuditOptions(quick=True))
+
+
+def test_verdicts_follow_the_numbers():
+    a = _audit()
+    by = {(r.outcome, r.check_id): r for r in a.results}
+    # the responder rule on waist circumference: the whole interval of its extra share lies above 10%
+    resp = by[("WAIST", "summary-responder")]
+    est = resp.estimates[0]
+    assert est.lower > 1.10 and resp.verdict is Verdict.UNSUPPORTED
+    # no correlation for CRP: no interval, so caution at most
+    assert by[("CRP", "summary-efficiency")].verdict is Verdict.CAUTION
+    # regression to the mean in a randomised parallel trial: caution at most, and says the contrast is unbiased
+    rtm = by[("TG", "summary-rtm")]
+    assert rtm.verdict is Verdict.CAUTION and "randomised contrast is not biased" in rtm.headline
+    assert all(r.verdict is not Verdict.TOOL_DEFECT for r in a.results)
+
+
+def test_run_writes_labelled_report_and_comments(tmp_path):
+    out = tmp_path / "review_out"
+    res = CliRunner().invoke(app, ["run", str(EXAMPLE), "-o", str(out), "--quiet"])
+    assert res.exit_code == 0, res.output
+    names = sorted(p.name for p in out.iterdir())
+    assert names == ["audit.html", "audit.pdf", "comments.md", "findings.csv", "findings.json"]
+    html = (out / "audit.html").read_text()
+    assert "an audit from published summaries" in html and "screening aid for a qualified statistician" in html
+    md = (out / "comments.md").read_text()
+    assert md.count("\n1. ") == 1 and "Please report" in md and "screening aid" in md
+    findings = json.loads((out / "findings.json").read_text())
+    assert findings["source_label"] == "an audit from published summaries"
+    first = {p.name: p.read_bytes() for p in out.iterdir() if p.suffix != ".pdf"}
+    res = CliRunner().invoke(app, ["run", str(EXAMPLE), "-o", str(out), "--quiet", "--force"])
+    assert res.exit_code == 0
+    assert first == {p.name: p.read_bytes() for p in out.iterdir() if p.suffix != ".pdf"}
+
+
+def test_refuses_existing_output_without_force(tmp_path):
+    out = tmp_path / "o"
+    assert CliRunner().invoke(app, ["run", str(EXAMPLE), "-o", str(out), "--quiet"]).exit_code == 0
+    res = CliRunner().invoke(app, ["run", str(EXAMPLE), "-o", str(out), "--quiet"])
+    assert res.exit_code == 2
+
+
+def test_validate_command():
+    res = CliRunner().invoke(app, ["validate", str(EXAMPLE)])
+    assert res.exit_code == 0 and "valid published summaries" in res.output
+
+
+def test_participant_options_refused_for_summaries(tmp_path):
+    out = tmp_path / "o"
+    res = CliRunner().invoke(app, ["run", str(EXAMPLE), "-o", str(out), "--blinded", "--list-left-out"])
+    assert res.exit_code == 2 and "--blinded:" in res.output and "--list-left-out:" in res.output
+    assert not out.exists()
+    res = CliRunner().invoke(app, ["run", str(EXAMPLE), "-o", str(out), "--check", "change-score"])
+    assert res.exit_code == 2 and "not a check of an audit from published summaries" in res.output
+
+
+def test_only_one_check(tmp_path):
+    a = audit_summaries(load_summary_study(EXAMPLE), AuditOptions(quick=True, checks=("summary-rtm",)))
+    assert [(r.outcome, r.check_id) for r in a.results] == [("TG", "summary-rtm")]
+
+
+def test_single_arm_before_after(tmp_path):
+    # An invented single-arm study of a skin cream: entry on a severity index from 24 to 73.
+    d = tmp_path / "sa"
+    d.mkdir()
+    (d / "study.toml").write_text(
+        '[study]\nid = "SA-1"\nsource = "summaries"\ndesign = "single-arm"\narms = ["Cream"]\n\n'
+        '[files]\nsummaries = "s.csv"\n\n[[outcomes]]\nparam = "SEV"\nscale = "continuous"\nbounds = [0, 72]\n'
+        'reported_analysis = "change"\nentry_criterion = { lower = 24, upper = 73, assumed_mean = [18, 22], '
+        'assumed_sd = 9, reliability = [0.6, 0.8] }\n')
+    (d / "s.csv").write_text("outcome,arm,n,mean_baseline,sd_baseline,mean_followup,sd_followup,sd_change\n"
+                             "SEV,Cream,40,31.2,6.1,22.5,8.4,7.2\n")
+    a = audit_summaries(load_summary_study(d), AuditOptions(quick=True))
+    assert [r.check_id for r in a.results] == ["summary-consistency", "summary-shape", "summary-rtm"]
+    rtm = a.results[-1]
+    assert rtm.verdict is Verdict.CAUTION and "before-after design" in rtm.headline
+    assert "could account for" in a.comments[0].evidence
+
+
+def test_notebook_call():
+    import auditor.api as aud
+
+    a = aud.audit_from_summaries(EXAMPLE, quick=True)
+    assert a.comments and a.comments[0].number == 1
+    assert set(a.findings_frame()["check_id"]) <= {"summary-consistency", "summary-efficiency", "summary-responder",
+                                                  "summary-shape", "summary-rtm"}
