@@ -145,7 +145,8 @@ def consistency(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> D
         if a.r is not None:
             lo, hi = sf.fisher_interval(a.r, a.n)
             ests.append(Estimate(f"Pre-post correlation, {a.arm}", a.r, lo, hi,
-                                 note=a.sources.get("r", ""), by_arm=True))
+                                 note=a.sources.get("r", ""), by_arm=True,
+                                 key=f"{cid}.correlation.arm-{arms.index(a) + 1}", arm=a.arm))
         if v["r_prepost"] is not None and v["sd_change"] is not None:
             implied = sf.implied_correlation(a.sd["baseline"], a.sd["followup"], v["sd_change"])
             gap = abs(implied - v["r_prepost"])
@@ -303,7 +304,7 @@ def efficiency(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Dr
         verdict = _grade_ratio(iv.value, iv.lower)
         if approx and verdict is Verdict.UNSUPPORTED:
             verdict = Verdict.CAUTION
-        ests.append(Estimate("Sample-size ratio against ANCOVA", iv.value, iv.lower, iv.upper,
+        ests.append(Estimate("Sample-size ratio against ANCOVA", iv.value, iv.lower, iv.upper, key=f"{cid}.ratio",
                              note=f"pooled r = {fmt(p.r)}; interval by Wishart simulation of the SDs and r "
                                   f"({iv.draws} draws, seed {iv.seed})" + ("; first-order approximation" if approx else "")))
         evidence = (f"{ANALYSIS_TEXT[analysis]} needs {_pct(iv.value)} more participants than ANCOVA "
@@ -320,12 +321,14 @@ def efficiency(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Dr
                                 p.sd_b, p.sd_f, p.r, [c.n, t.n])
         ests.append(Estimate(f"ANCOVA effect implied by the summaries ({t.arm} minus {c.arm})", anc.effect,
                              anc.effect - sf.Z975 * anc.se, anc.effect + sf.Z975 * anc.se, unit=spec.unit,
-                             note=f"beta = {fmt(anc.beta)}, approximate SE {fmt(anc.se)}", by_arm=True))
+                             note=f"beta = {fmt(anc.beta)}, approximate SE {fmt(anc.se)}", by_arm=True,
+                             key=f"{cid}.ancova-effect.contrast-1", arm=f"{t.arm} minus {c.arm}"))
         dchg = (t.mean["followup"] - t.mean["baseline"]) - (c.mean["followup"] - c.mean["baseline"])
         se_chg = p.sd_c * math.sqrt(1 / c.n + 1 / t.n)
         ests.append(Estimate(f"Change-score effect from the summaries ({t.arm} minus {c.arm})", dchg,
                              dchg - sf.Z975 * se_chg, dchg + sf.Z975 * se_chg, unit=spec.unit,
-                             note=f"SE {fmt(se_chg)} from the pooled SD of change", by_arm=True))
+                             note=f"SE {fmt(se_chg)} from the pooled SD of change", by_arm=True,
+                             key=f"{cid}.change-effect.contrast-1", arm=f"{t.arm} minus {c.arm}"))
     res = _result(cid, spec, verdict, headline, subfindings=subs, estimates=ests, tables=[grid],
                   references=refs,
                   method="var(change) = SDb^2 + SDf^2 - 2 r SDb SDf, var(ANCOVA) = SDf^2 (1 - r^2), var(follow-up) "
@@ -370,11 +373,11 @@ def responder(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Dra
         if approx and verdict is Verdict.UNSUPPORTED:
             verdict = Verdict.CAUTION
         z = (cut - mean_c) / p.sd_c
-        ests.append(Estimate("Sample-size ratio, responders against ANCOVA", iv.value, iv.lower, iv.upper,
+        ests.append(Estimate("Sample-size ratio, responders against ANCOVA", iv.value, iv.lower, iv.upper, key=f"{cid}.ratio",
                              note=f"cut {fmt(cut)} on change, z = {fmt(z)}; Wishart simulation ({iv.draws} draws, "
                                   f"seed {iv.seed})"))
         ests.append(Estimate("Efficiency of dichotomising change at the cut", sf.dichotomisation_efficiency(z),
-                             note="normal change; 2/pi = 0.637 at the median"))
+                             note="normal change; 2/pi = 0.637 at the median", key=f"{cid}.dichotomisation-efficiency"))
         evidence = (f"counting responders ({rule_text}) needs {_pct(iv.value)} more participants than ANCOVA "
                     f"(95% interval {_pct(iv.lower)} to {_pct(iv.upper)}); the cut lies {fmt(abs(z))} SD from the "
                     f"mean change")
@@ -483,9 +486,11 @@ def shape(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
             pm = sf.percent_change_of_means(a.mean["baseline"], a.mean["followup"])
             mp = sf.mean_percent_change_second_order(a.mean["baseline"], a.mean["followup"], a.sd["baseline"],
                                                      a.sd["followup"], a.r)
-            ests.append(Estimate(f"Percent change of the means, {a.arm}", pm, unit="%", by_arm=True))
+            ests.append(Estimate(f"Percent change of the means, {a.arm}", pm, unit="%", by_arm=True,
+                                 key=f"{cid}.percent-change-of-means.arm-{arms.index(a) + 1}", arm=a.arm))
             ests.append(Estimate(f"Mean of the percent changes (second-order approximation), {a.arm}", mp,
-                                 unit="%", by_arm=True))
+                                 unit="%", by_arm=True,
+                                 key=f"{cid}.mean-percent-change.arm-{arms.index(a) + 1}", arm=a.arm))
             gaps.append(abs(mp - pm))
         if gaps:
             verdict = Verdict.CAUTION if max(gaps) > PERCENT_GAP else Verdict.SOUND
@@ -564,6 +569,7 @@ def rtm(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
     observed = control.mean["followup"] - control.mean["baseline"]
     lo_v, hi_v = min(g[2] for g in grid), max(g[2] for g in grid)
     ests = [Estimate(f"Observed mean change, {control.arm}", observed, unit=spec.unit, by_arm=True,
+                     key=f"{cid}.observed-change.control", arm=control.arm,
                      note=f"regression to the mean alone predicts {fmt(lo_v)} to {fmt(hi_v)}")]
     subs = [SubFinding("size", f"Is the expected shift material (beyond {MATERIAL_SD:g} population SD)?",
                        Verdict.CAUTION if material else Verdict.SOUND,

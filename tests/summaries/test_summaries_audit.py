@@ -9,7 +9,7 @@ from typer.testing import CliRunner
 
 from auditor.cli import app
 from auditor.pipeline import AuditOptions
-from auditor.results import Verdict
+from auditor.results import Verdict, estimate_key_problems
 from auditor.summaries.audit import audit_summaries, load_summary_study
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -33,6 +33,14 @@ def test_verdicts_follow_the_numbers():
     rtm = by[("TG", "summary-rtm")]
     assert rtm.verdict is Verdict.CAUTION and "randomised contrast is not biased" in rtm.headline
     assert all(r.verdict is not Verdict.TOOL_DEFECT for r in a.results)
+
+
+def test_every_estimate_has_a_stable_key():
+    """The same key contract as the data audit: matched by compare, never built from a number or label."""
+    a = _audit()
+    assert a.results and all(not estimate_key_problems(r) for r in a.results)
+    keys = {e.key for r in a.results for e in r.estimates}
+    assert a.arms and not any(arm.lower() in k for k in keys for arm in a.arms)
 
 
 def test_run_writes_labelled_report_and_comments(tmp_path):
