@@ -211,7 +211,7 @@ def outcome_summary(study: Study, spec) -> dict:
         "param": spec.param,
         "label": spec.display_name,
         "scale": spec.scale,
-        "unit": spec.unit,
+        "unit": study.units.get(spec.param) or spec.unit,
         "levels": list(spec.levels) if spec.levels else None,
         "bounds": [spec.lower_bound, spec.upper_bound],
         "baseline_visit": None if spec.baseline_visit is None else str(spec.baseline_visit),
@@ -219,11 +219,11 @@ def outcome_summary(study: Study, spec) -> dict:
         "followup_visits": [str(v) for v in spec.followup_visits],
         "main_followup": str(spec.main_followup),
         "planned_analysis": spec.planned_analysis,
-        "entry_criterion": (None if spec.entry_criterion is None else
-                            f"{spec.entry_criterion.visit} {spec.entry_criterion.operator} "
-                            f"{spec.entry_criterion.value:g}"),
+        "entry_criterion": None if spec.entry_criterion is None else spec.entry_criterion.text,
         "risk_endpoint": spec.risk_endpoint,
         "derived_columns": list(study.derived_columns),
+        "file": study.outcome_files.get(spec.param),
+        "record_selection": [c.to_dict() for c in study.record_selection.get(spec.param, [])],
     }
 
 

@@ -686,11 +686,19 @@ def _load_study_folder(folder: Path, metadata: bytes | None = None) -> Study:
         _check_entry_conditions(long, spec, i, log)
     log.raise_if_errors()
 
+    meta = _with_data_units(meta, units)
     derived = sorted(c for c in DERIVED_COLUMNS if any(c in raw.columns for raw in raws.values()))
     return Study(folder=folder, metadata=meta, metadata_sha256=meta_hash, visits=long,
                  participants=participants, files=files, derived_columns=derived,
                  warnings=log.warnings, outcome_files=outcome_files, record_selection=selection,
                  units=units)
+
+
+def _with_data_units(meta: StudyMetadata, units: dict[str, str]) -> StudyMetadata:
+    """The metadata with each outcome's unit taken from the data (AVALU) where study.toml gives none."""
+    outcomes = [o.model_copy(update={"unit": units[o.param]}) if not o.unit and units.get(o.param) else o
+                for o in meta.outcomes]
+    return meta.model_copy(update={"outcomes": outcomes})
 
 
 def _stacked(pieces: list[pd.DataFrame], labels: list[str]) -> pd.DataFrame:
