@@ -24,6 +24,8 @@ from .errors import ProblemLog, rows_text
 from .metadata import METADATA_FILE, OutcomeSpec, RecordRules, StudyMetadata
 
 YES = "Y"
+_SOURCES = {"dtype": "dtype", "category": "category", "unit": "unit"}
+"""Internal long-frame columns and the [columns] key naming the file column each is read from."""
 
 
 @dataclass(frozen=True)
@@ -78,9 +80,17 @@ def _population_keep(rows: pd.DataFrame, flag: str, part_flags: pd.Series | None
 
 def select_outcome_records(rows: pd.DataFrame, spec: OutcomeSpec, rules: RecordRules, key: str,
                            label: str, meta: StudyMetadata, part_raw: pd.DataFrame | None,
-                           part_label: str | None, log: ProblemLog) -> tuple[pd.DataFrame, list[RuleCount]]:
-    """The records of one outcome that its rules keep, and one :class:`RuleCount` per rule applied."""
+                           part_label: str | None, log: ProblemLog,
+                           file_columns: set[str] | None = None) -> tuple[pd.DataFrame, list[RuleCount]]:
+    """The records of one outcome that its rules keep, and one :class:`RuleCount` per rule applied.
+
+    ``file_columns``: the columns of the outcome's own visit file (when several files are stacked, a
+    column of another file must not count as present in this one)."""
     cm = meta.columns
+    if file_columns is not None:
+        rows = rows.drop(columns=[c for c, src in _SOURCES.items()
+                                  if c in rows.columns and getattr(cm, src, src) not in file_columns]
+                         + [c for c in rows.columns if c.startswith("flag:") and c[5:] not in file_columns])
     counts: list[RuleCount] = []
     if spec.category is not None:
         if "category" not in rows.columns:

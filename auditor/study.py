@@ -679,7 +679,8 @@ def _load_study_folder(folder: Path, metadata: bytes | None = None) -> Study:
     if not _pooled_without_arms(meta, participants):
         _check_arms(long, participants, meta, arm_col, log)
     outcome_files = _outcome_files(long, meta, log)
-    long, selection, units = _selected_records(long, raw_part, outcome_files, meta, log)
+    long, selection, units = _selected_records(long, raw_part, outcome_files, meta, log,
+                                               {f: set(raws[f].columns) for f in visit_files})
     for i, spec in enumerate(meta.outcomes):
         label = outcome_files.get(spec.param, visit_files[0])
         _check_outcome(long[long["file"] == label], participants, spec, i, meta, label, log)
@@ -745,7 +746,8 @@ def _outcome_files(long: pd.DataFrame, meta: StudyMetadata, log: ProblemLog) -> 
 
 
 def _selected_records(long: pd.DataFrame, raw_part: pd.DataFrame | None, outcome_files: dict[str, str],
-                      meta: StudyMetadata, log: ProblemLog) -> tuple[pd.DataFrame, dict, dict]:
+                      meta: StudyMetadata, log: ProblemLog,
+                      columns_of: dict[str, set[str]]) -> tuple[pd.DataFrame, dict, dict]:
     """Each outcome's records after its record rules (:mod:`auditor.records`), records of other
     parameters untouched; the counts per rule; and each outcome's unit."""
     selection: dict[str, list] = {}
@@ -760,7 +762,7 @@ def _selected_records(long: pd.DataFrame, raw_part: pd.DataFrame | None, outcome
         mine = ((long["param"] == spec.param) & (long["file"] == label)).fillna(False).to_numpy(dtype=bool)
         rows = long[mine]
         kept, counts = select_outcome_records(rows, spec, meta.record_rules(spec), f"outcomes[{i}]", label, meta,
-                                              raw_part, meta.files.participants, log)
+                                              raw_part, meta.files.participants, log, columns_of.get(label))
         drop[np.flatnonzero(mine)[~rows.index.isin(kept.index)]] = True
         selection[spec.param] = counts
         units[spec.param] = outcome_unit(kept, spec, f"outcomes[{i}]", label, meta, log)
