@@ -108,3 +108,82 @@ def test_further_condition_on_another_parameter_is_stated_as_not_used():
     spec = OutcomeSpec.model_validate(raw)
     res = run_rtm(OutcomeData(spec, data.frame, data.arms, None, data.design, []), CTX)
     assert any("ITCH" in c and "not included" in c for c in res.caveats)
+
+
+def test_change_score_selection_part_uses_the_window():
+    """The change-score check's selection sub-finding reads the window, and its share left out is the
+    two-tailed mass of the same doubly truncated fit."""
+    from auditor.checks.change_score import run as run_change
+    from auditor.checks.regression_to_mean import declared_criterion_reach
+
+    data = _window_data(np.random.default_rng(8))
+    res = run_change(data, CTX)
+    sub = next(s for s in res.subfindings if s.id == "selection")
+    assert "45 <= B <= 62" in sub.evidence and "outside the window" in sub.evidence
+    share = declared_criterion_reach(data, CTX)
+    fit = fit_window_normal(data.frame["baseline"].to_numpy(), 45.0, 62.0)
+    assert share == pytest.approx(stats.norm.cdf(45, fit.mu, fit.sigma) + stats.norm.sf(62, fit.mu, fit.sigma),
+                                  rel=1e-6)
+
+
+def _toml_value(v) -> str:
+    if isinstance(v, dict):
+        return "{ " + ", ".join(f"{k} = {_toml_value(x)}" for k, x in v.items()) + " }"
+    if isinstance(v, list):
+        return "[" + ", ".join(_toml_value(x) for x in v) + "]"
+    return f'"{v}"' if isinstance(v, str) else str(v)
+
+
+@pytest.mark.parametrize("criterion, message", [
+    ({"visit": "B", "operator": ">=", "value": 3, "between": [1, 2]}, "not both"),
+    ({"visit": "B", "between": [5, 2]}, "lower < upper"),
+    ({"visit": "B"}, "needs operator and value"),
+    ({"visit": "B", "between": [1, 2], "also": [{"visit": "B"}]}, "needs operator and value"),
+])
+def test_malformed_entry_criteria_are_refused_with_their_location(criterion, message):
+    from auditor.errors import ProblemLog
+    from auditor.metadata import read_metadata
+
+    text = f"""
+[study]
+id = "X"
+design = "single-arm"
+[files]
+visits = "v.csv"
+[[outcomes]]
+param = "P"
+scale = "continuous"
+baseline_visit = "A"
+followup_visits = ["B"]
+planned_analysis = "change"
+entry_criterion = {_toml_value(criterion)}
+"""
+    log = ProblemLog()
+    meta, _ = read_metadata(None, log, text.encode())
+    assert meta is None
+    lines = [p.one_line() for p in log.errors]
+    assert any("outcomes[0].entry_criterion" in ln and message in ln for ln in lines), lines
+
+
+def test_a_misspelt_records_key_is_refused_with_a_suggestion():
+    from auditor.errors import ProblemLog
+    from auditor.metadata import read_metadata
+
+    text = """
+[study]
+id = "X"
+design = "single-arm"
+[files]
+visits = ["a.csv", "b.csv"]
+[records]
+dtpye = "keep"
+[[outcomes]]
+param = "P"
+scale = "continuous"
+followup_visits = ["B"]
+planned_analysis = "follow-up-only"
+"""
+    log = ProblemLog()
+    assert read_metadata(None, log, text.encode())[0] is None
+    line = log.errors[0].one_line()
+    assert "records.dtpye" in line and "dtype" in line
