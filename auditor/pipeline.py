@@ -232,6 +232,7 @@ def audit_study(study: Study, options: AuditOptions | None = None) -> Audit:
     options = options or AuditOptions()
     meta = study.metadata
     blinded = meta.study.blinded if options.blinded is None else options.blinded
+    _refuse_unblinding_a_pooled_study(study, blinded)
     seed = meta.study.seed if options.seed is None else options.seed
     ctx = CheckContext(seed=seed, blinded=blinded, quick=options.quick, strict=options.strict)
     results: list[CheckResult] = []
@@ -265,6 +266,19 @@ def audit_study(study: Study, options: AuditOptions | None = None) -> Audit:
         left_out=listing,
         checks=checks_in(results),
     )
+
+
+def _refuse_unblinding_a_pooled_study(study: Study, blinded: bool) -> None:
+    """A study declared blinded with no arms has no arm to compare: an unblinded audit of it is refused
+    (exit 2) rather than run with every comparison between arms empty."""
+    from .errors import InputProblem, StudyInputError
+
+    info = study.metadata.study
+    if not blinded and info.design == "parallel" and not info.arms:
+        raise StudyInputError([InputProblem("study.toml", "study.arms", "-", "an unblinded audit was asked for, "
+                                            "but the study is pooled (blinded, with no arms)",
+                                            "audit it blinded, or declare arms and control_arm and give the "
+                                            "arm column")])
 
 
 def checks_in(results: list[CheckResult]) -> list[CheckInfo]:

@@ -36,6 +36,9 @@ the arm would otherwise give one line per participant)."""
 MIN_PER_ARM = 2
 """Participants an arm needs before anything is compared with it."""
 DELIMITERS = ((";", "semicolons"), ("\t", "tabs"), ("|", "vertical bars"))
+POOLED_ARM = "(pooled)"
+"""The one arm label of a blinded study that declares no arms and whose data carry none: every
+participant is in it, and no comparison between arms is made."""
 
 
 @dataclass
@@ -718,7 +721,7 @@ def _stacked(pieces: list[pd.DataFrame], labels: list[str]) -> pd.DataFrame:
 def _pooled_without_arms(meta: StudyMetadata, participants: pd.DataFrame) -> bool:
     """A blinded study declaring no arms, whose data carry no arm: pooled, nothing to check by arm."""
     return (meta.study.blinded and not meta.study.arms and not participants.empty
-            and participants["arm"].isna().all())
+            and (participants["arm"] == POOLED_ARM).all())
 
 
 def _outcome_files(long: pd.DataFrame, meta: StudyMetadata, log: ProblemLog) -> dict[str, str]:
@@ -910,8 +913,7 @@ def _participants(raw: pd.DataFrame | None, long: pd.DataFrame, meta: StudyMetad
     if raw is None:
         if "arm" not in long.columns:
             if meta.study.blinded and not meta.study.arms:
-                return pd.DataFrame({"subject": sorted(long["subject"].dropna().unique()),
-                                     "arm": pd.Series(pd.NA, dtype="string")})
+                return pd.DataFrame({"subject": sorted(long["subject"].dropna().unique()), "arm": POOLED_ARM})
             if meta.study.design == "single-arm":
                 subj = sorted(long["subject"].dropna().unique())
                 return pd.DataFrame({"subject": subj, "arm": meta.study.arms[0] if meta.study.arms else "All"})
@@ -933,7 +935,7 @@ def _participants(raw: pd.DataFrame | None, long: pd.DataFrame, meta: StudyMetad
     out = pd.DataFrame({"subject": raw[cm.subject].astype("string").str.strip()})
     if arm_col is None:
         if meta.study.blinded and not meta.study.arms:
-            out["arm"] = pd.Series(pd.NA, index=out.index, dtype="string")  # pooled: no arm is read
+            out["arm"] = POOLED_ARM  # pooled: no arm is read
         elif meta.study.design == "single-arm":
             out["arm"] = meta.study.arms[0] if meta.study.arms else "All"
         else:

@@ -180,6 +180,13 @@ def test_blinded_audit_needs_no_arm_column(tmp_path):
     audit = audit_study(load_study(folder, _confirmed(text).encode()), AuditOptions(quick=True))
     assert audit.blinded and audit.arms == []
     assert {r.outcome for r in audit.results} == {"LESION", "IGE", "ITCHQ"}
+    pre_post = [r for r in audit.results if r.check_id == "pre-post"]
+    assert pre_post and all(r.verdict.value != "not assessable" for r in pre_post)
+    # Asking for an unblinded audit of a pooled study is refused, not run with empty arms.
+    (folder / "study.toml").write_text(_confirmed(text))
+    res = runner.invoke(app, ["run", str(folder), "-o", str(tmp_path / "out"), "--unblinded"])
+    assert res.exit_code == 2 and "the study is pooled" in _stderr(res)
+    assert not (tmp_path / "out").exists()
 
 
 # --------------------------------------------------------------------------- one rule at a time
