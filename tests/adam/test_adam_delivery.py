@@ -319,3 +319,19 @@ def test_one_file_as_text_still_reads(small):
         'followup_visits = ["Week 4", "Week 12"]', "followup_visits = [12]")
     study = load_study(small, text.encode())
     assert study.outcome_files == {"ITCHQ": "data/adqs.csv"}
+
+
+def test_population_flag_read_from_the_records_without_a_participant_file(tmp_path):
+    """ADaM repeats ADSL flags on BDS records: with no participant file the records' own copy is used."""
+    folder = generate(tmp_path / "study", n=40)
+    adsl = pd.read_csv(folder / "data" / "adsl.csv", dtype=str, keep_default_na=False)
+    eff = pd.read_csv(folder / "data" / "adeff.csv", dtype=str, keep_default_na=False)
+    eff = eff.merge(adsl[["USUBJID", "TRT01P", "PPROTFL"]], on="USUBJID")
+    eff.to_csv(folder / "data" / "adeff.csv", index=False)
+    text = MINIMAL.format(records='[records]\npopulation = "PPROTFL"\nanalysis_flag = "ANL01FL"\n', outcome="")
+    text = text.replace('visits = ["data/adeff.csv", "data/adlb.csv", "data/adqs.csv"]\n'
+                        'participants = "data/adsl.csv"', 'visits = "data/adeff.csv"')
+    rule = _rules(load_study(folder, text.encode()))["PPROTFL"]
+    lesion = eff[eff["PARAMCD"] == "LESION"]
+    assert rule.records_removed == int((lesion["PPROTFL"] != "Y").sum()) > 0
+    assert rule.participants_removed == int((adsl["PPROTFL"] != "Y").sum())
