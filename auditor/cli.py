@@ -264,18 +264,32 @@ def init(
                                           help="Where to write the draft (default: study.toml beside the "
                                                "first data file)."),
     force: bool = typer.Option(False, "--force", help="Replace an existing study.toml."),
+    blinded: Optional[bool] = typer.Option(None, "--blinded/--unblinded",
+                                           help="Draft blinded = true or false (default: true for a folder, "
+                                                "false for data files)."),
 ):
-    """Draft a study.toml from the data, with a comment on every guess to confirm."""
-    from .draft import checked_draft
+    """Draft a study.toml from the data (a study folder, or data files), with a comment on every guess to confirm."""
+    from .draft import checked_draft, checked_folder_draft, data_files_in
     from .options import data_file_problems, new_file_problems, refuse_if_any
     from .writeguard import write_one_file
 
     def body():
+        if len(data_files) == 1 and data_files[0].is_dir():
+            folder_body(data_files[0])
+            return
         target = output or (data_files[0].parent / "study.toml")
         refuse_if_any(data_file_problems(data_files),
                       new_file_problems(target, "-o/--output" if output else "study.toml", force))
-        text = checked_draft(data_files, target.parent)
+        text = checked_draft(data_files, target.parent, blinded=bool(blinded))
         write_one_file(target, text.encode("utf-8"), force=force, inputs=data_files)
+        out.print(f"wrote {target}: confirm every line marked 'CHECK'.", markup=False)
+
+    def folder_body(folder: Path):
+        """``init FOLDER``: the draft of a whole ADaM delivery, written as FOLDER/study.toml."""
+        target = output or (folder / "study.toml")
+        refuse_if_any(new_file_problems(target, "-o/--output" if output else "study.toml", force))
+        text = checked_folder_draft(folder, blinded=True if blinded is None else blinded)
+        write_one_file(target, text.encode("utf-8"), force=force, inputs=data_files_in(folder))
         out.print(f"wrote {target}: confirm every line marked 'CHECK'.", markup=False)
 
     _guard(body)

@@ -130,6 +130,8 @@ class StudyInfo(_Strict):
     def _arms_consistent(self):
         if len(set(self.arms)) != len(self.arms):
             raise ValueError("arms are listed more than once")
+        if self.design == "parallel" and self.blinded and not self.arms and self.control_arm is None:
+            return self  # a blinded audit of pooled data needs no arms (the data may carry no arm column)
         if self.design == "parallel":
             if len(self.arms) < 2:
                 raise ValueError("a parallel-group study needs at least two arms in 'arms'")
@@ -140,8 +142,14 @@ class StudyInfo(_Strict):
         return self
 
 
+VisitFile = Annotated[StrictStr, Field(min_length=1, max_length=1000)]
+
+
 class FilesInfo(_Strict):
-    visits: StrictStr = Field(min_length=1, max_length=1000)
+    visits: Union[VisitFile, list[VisitFile]]
+    """One visit-level (BDS) file, or a list of them (e.g. efficacy, laboratory and questionnaire
+    datasets); each outcome names its file with ``outcomes.file`` when its parameter code is in more
+    than one of them."""
     participants: Optional[StrictStr] = Field(default=None, min_length=1, max_length=1000)
     layout: Literal["long", "wide"] = "long"
     wide_pattern: StrictStr = Field(default="{param}_{visit}", max_length=MAX_NAME_CHARS)
@@ -163,6 +171,24 @@ class FilesInfo(_Strict):
             raise ValueError("wide_pattern must contain {param} and {visit} once each and no other {...} field")
         return v
 
+    @model_validator(mode="after")
+    def _visit_files_valid(self):
+        files = self.visit_files
+        if not files:
+            raise ValueError("visits lists no file")
+        if len(set(files)) != len(files):
+            raise ValueError("visits lists a file more than once")
+        if self.participants is not None and self.participants in files:
+            raise ValueError("the participant file is also listed among the visit files")
+        if self.layout == "wide" and len(files) > 1:
+            raise ValueError("the wide layout reads a single visit file; list one file, or use the long layout")
+        return self
+
+    @property
+    def visit_files(self) -> list[str]:
+        """The visit-level files, in the order given."""
+        return [self.visits] if isinstance(self.visits, str) else list(self.visits)
+
 
 class ColumnMap(_Strict):
     """Column names in the data files; defaults follow the CDISC ADaM conventions."""
@@ -176,17 +202,81 @@ class ColumnMap(_Strict):
     visit_number: Name = "AVISITN"
     value: Name = "AVAL"
     baseline_flag: Name = "ABLFL"
+    unit: Name = "AVALU"
+    """Unit of each record's value; one parameter must use one unit."""
+    dtype: Name = "DTYPE"
+    """Derivation type of a record (empty for an observed record; LOCF, WOCF, BOCF... for imputed ones)."""
+    category: Name = "PARCAT1"
+    """Parameter category (chosen per outcome with ``outcomes.category``)."""
+
+
+def _one_condition(cond) -> None:
+    """A condition is a one-sided cutoff (operator and value) or a two-sided window (between)."""
+    one_sided = cond.operator is not None or cond.value is not None
+    if cond.between is not None:
+        if one_sided:
+            raise ValueError("give either operator and value (one cutoff) or between (a window), not both")
+        if not cond.between[0] < cond.between[1]:
+            raise ValueError("between must be [lower, upper] with lower < upper")
+    elif cond.operator is None or cond.value is None:
+        raise ValueError("an entry condition needs operator and value (e.g. \">=\", 24), or between = [24, 73]")
+
+
+class EntryCondition(_Strict):
+    """A further entry condition, on this outcome's parameter or another one (all conditions had to hold)."""
+
+    param: Optional[Name] = None
+    """Default: the outcome's own parameter."""
+    visit: VisitName
+    operator: Optional[Literal[">", ">=", "<", "<="]] = None
+    value: Optional[Finite] = None
+    between: Optional[tuple[Finite, Finite]] = None
+
+    @model_validator(mode="after")
+    def _shape(self):
+        _one_condition(self)
+        return self
+
+    @property
+    def text(self) -> str:
+        if self.between is not None:
+            return f"{self.between[0]:g} <= {self.visit} <= {self.between[1]:g}"
+        return f"{self.visit} {self.operator} {self.value:g}"
 
 
 class EntryCriterion(_Strict):
     visit: VisitName
-    operator: Literal[">", ">=", "<", "<="]
-    value: Finite
+    operator: Optional[Literal[">", ">=", "<", "<="]] = None
+    value: Optional[Finite] = None
+    between: Optional[tuple[Finite, Finite]] = None
+    """A two-sided window [lower, upper] (both ends kept), in place of operator and value."""
+    also: list[EntryCondition] = Field(default_factory=list)
+    """Further conditions that entry required as well (all of them), possibly on other parameters."""
+
+    @model_validator(mode="after")
+    def _shape(self):
+        _one_condition(self)
+        return self
 
     @property
     def direction(self) -> str:
-        """``above`` when high values were selected, ``below`` when low values were."""
+        """``above`` when high values were selected, ``below`` when low values were, ``window`` for a
+        two-sided window."""
+        if self.between is not None:
+            return "window"
         return "above" if self.operator.startswith(">") else "below"
+
+    @property
+    def is_window(self) -> bool:
+        return self.between is not None
+
+    @property
+    def text(self) -> str:
+        """The criterion as the report writes it, further conditions included."""
+        own = (f"{self.between[0]:g} <= {self.visit} <= {self.between[1]:g}" if self.between is not None
+               else f"{self.visit} {self.operator} {self.value:g}")
+        more = [f"{c.param + ' ' if c.param else ''}{c.text}" for c in self.also]
+        return " and ".join([own] + more)
 
 
 class ResponderRule(_Strict):
@@ -194,6 +284,20 @@ class ResponderRule(_Strict):
     threshold: Finite
     direction: Literal["at-least", "at-most"]
     """A responder has change (or percent change) at least / at most the threshold."""
+
+
+class RecordRules(_Strict):
+    """Which records are analysed (``[records]`` for the study, ``[outcomes.records]`` per outcome;
+    an outcome's keys override the study's)."""
+
+    dtype: Literal["drop", "keep"] = "drop"
+    """Derived or imputed records (DTYPE not empty: LOCF, WOCF, BOCF...): left out and counted
+    (``drop``) or analysed (``keep``)."""
+    analysis_flag: Optional[Name] = None
+    """A record-level flag column (ANL01FL, ANL02FL...): only records flagged Y are analysed."""
+    population: Optional[Name] = None
+    """A population flag column of the participant file (ITTFL, FASFL, SAFFL, PPROTFL): only
+    participants flagged Y are analysed."""
 
 
 class OutcomeSpec(_Strict):
@@ -223,6 +327,13 @@ class OutcomeSpec(_Strict):
     exposure: Optional[Name] = None
     """For a count: the visit-file column holding each record's observation time (days, weeks...),
     the period over which that record's count was accumulated."""
+    file: Optional[VisitFile] = None
+    """The visit file the parameter is read from (one of files.visits); needed only when the code
+    is in more than one of them."""
+    category: Optional[Name] = None
+    """Only records whose parameter category (PARCAT1) is this value."""
+    records: Optional[RecordRules] = None
+    """Record selection for this outcome, overriding the study's [records] key by key."""
 
     @field_validator("levels")
     @classmethod
@@ -307,6 +418,13 @@ class StudyMetadata(_Strict):
     files: FilesInfo
     columns: ColumnMap = Field(default_factory=ColumnMap)
     outcomes: list[OutcomeSpec] = Field(min_length=1)
+    records: RecordRules = Field(default_factory=RecordRules)
+
+    def record_rules(self, spec: OutcomeSpec) -> RecordRules:
+        """The record rules of one outcome: the study's, with the outcome's own keys in their place."""
+        if spec.records is None:
+            return self.records
+        return self.records.model_copy(update={k: getattr(spec.records, k) for k in spec.records.model_fields_set})
 
     @field_validator("study")
     @classmethod
@@ -322,6 +440,10 @@ class StudyMetadata(_Strict):
         dup = sorted({p for p in seen if seen.count(p) > 1})
         if dup:
             raise ValueError(f"outcome param listed more than once: {', '.join(dup)}")
+        files = self.files.visit_files
+        for o in self.outcomes:
+            if o.file is not None and o.file not in files:
+                raise ValueError(f"outcome '{o.param}': file '{o.file}' is not one of files.visits {files}")
         return self
 
 
@@ -332,6 +454,9 @@ _FIELDS_BY_SECTION = {
     ("columns",): ColumnMap.model_fields,
     ("outcomes",): OutcomeSpec.model_fields,
     ("outcomes", "entry_criterion"): EntryCriterion.model_fields,
+    ("outcomes", "entry_criterion", "also"): EntryCondition.model_fields,
+    ("records",): RecordRules.model_fields,
+    ("outcomes", "records"): RecordRules.model_fields,
     ("outcomes", "responder"): ResponderRule.model_fields,
 }
 

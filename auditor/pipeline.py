@@ -220,7 +220,7 @@ def outcome_summary(study: Study, spec) -> dict:
         "param": spec.param,
         "label": spec.display_name,
         "scale": spec.scale,
-        "unit": spec.unit,
+        "unit": study.units.get(spec.param) or spec.unit,
         "levels": list(spec.levels) if spec.levels else None,
         "bounds": [spec.lower_bound, spec.upper_bound],
         "baseline_visit": None if spec.baseline_visit is None else str(spec.baseline_visit),
@@ -228,11 +228,11 @@ def outcome_summary(study: Study, spec) -> dict:
         "followup_visits": [str(v) for v in spec.followup_visits],
         "main_followup": str(spec.main_followup),
         "planned_analysis": spec.planned_analysis,
-        "entry_criterion": (None if spec.entry_criterion is None else
-                            f"{spec.entry_criterion.visit} {spec.entry_criterion.operator} "
-                            f"{spec.entry_criterion.value:g}"),
+        "entry_criterion": None if spec.entry_criterion is None else spec.entry_criterion.text,
         "risk_endpoint": spec.risk_endpoint,
         "derived_columns": list(study.derived_columns),
+        "file": study.outcome_files.get(spec.param),
+        "record_selection": [c.to_dict() for c in study.record_selection.get(spec.param, [])],
     }
 
 
@@ -241,6 +241,7 @@ def audit_study(study: Study, options: AuditOptions | None = None) -> Audit:
     options = options or AuditOptions()
     meta = study.metadata
     blinded = meta.study.blinded if options.blinded is None else options.blinded
+    _refuse_unblinding_a_pooled_study(study, blinded)
     seed = meta.study.seed if options.seed is None else options.seed
     ctx = CheckContext(seed=seed, blinded=blinded, quick=options.quick, strict=options.strict)
     results: list[CheckResult] = []
@@ -274,6 +275,19 @@ def audit_study(study: Study, options: AuditOptions | None = None) -> Audit:
         left_out=listing,
         checks=checks_in(results),
     )
+
+
+def _refuse_unblinding_a_pooled_study(study: Study, blinded: bool) -> None:
+    """A study declared blinded with no arms has no arm to compare: an unblinded audit of it is refused
+    (exit 2) rather than run with every comparison between arms empty."""
+    from .errors import InputProblem, StudyInputError
+
+    info = study.metadata.study
+    if not blinded and info.design == "parallel" and not info.arms:
+        raise StudyInputError([InputProblem("study.toml", "study.arms", "-", "an unblinded audit was asked for, "
+                                            "but the study is pooled (blinded, with no arms)",
+                                            "audit it blinded, or declare arms and control_arm and give the "
+                                            "arm column")])
 
 
 def checks_in(results: list[CheckResult]) -> list[CheckInfo]:

@@ -20,6 +20,7 @@ import pandas as pd
 
 from .errors import InputProblem, ProblemLog, StudyInputError, did_you_mean, rows_text
 from .metadata import DEFAULT_MAX_ROWS, METADATA_FILE, OutcomeSpec, StudyMetadata, read_metadata
+from .records import flag_column, flag_names, outcome_unit, select_outcome_records
 from .results import InputFile
 
 MAX_FILE_BYTES = 2 * 1024**3
@@ -35,6 +36,9 @@ the arm would otherwise give one line per participant)."""
 MIN_PER_ARM = 2
 """Participants an arm needs before anything is compared with it."""
 DELIMITERS = ((";", "semicolons"), ("\t", "tabs"), ("|", "vertical bars"))
+POOLED_ARM = "(pooled)"
+"""The one arm label of a blinded study that declares no arms and whose data carry none: every
+participant is in it, and no comparison between arms is made."""
 
 
 @dataclass
@@ -51,6 +55,12 @@ class Study:
     files: list[InputFile]
     derived_columns: list[str]
     warnings: list[InputProblem] = field(default_factory=list)
+    outcome_files: dict[str, str] = field(default_factory=dict)
+    """The visit file each outcome's parameter is read from."""
+    record_selection: dict[str, list] = field(default_factory=dict)
+    """Per outcome parameter, the :class:`~auditor.records.RuleCount` of each record rule applied."""
+    units: dict[str, str] = field(default_factory=dict)
+    """Per outcome parameter, its unit (declared, else the data's AVALU)."""
 
 
 @dataclass
@@ -637,40 +647,129 @@ def _load_study_folder(folder: Path, metadata: bytes | None = None) -> Study:
     if meta is None:
         log.raise_if_errors()
     files: list[InputFile] = []
-    visits_path = _inside(folder, meta.files.visits, "files.visits", log)
+    visit_files = meta.files.visit_files
+    paths = {f: _inside(folder, f, "files.visits" if len(visit_files) == 1 else f"files.visits[{i}]", log)
+             for i, f in enumerate(visit_files)}
     part_path = (_inside(folder, meta.files.participants, "files.participants", log)
                  if meta.files.participants else None)
     log.raise_if_errors()
 
-    visits_label = meta.files.visits
-    raw_visits = read_table(visits_path, visits_label, log, meta.files.max_rows)
+    raws = {f: read_table(paths[f], f, log, meta.files.max_rows) for f in visit_files}
     raw_part = None
     if part_path is not None:
         raw_part = read_table(part_path, meta.files.participants, log, meta.files.max_rows)
     log.raise_if_errors()
 
-    files.append(InputFile("visits", meta.files.visits, _sha256(visits_path), int(len(raw_visits))))
+    for f in visit_files:
+        files.append(InputFile("visits", f, _sha256(paths[f]), int(len(raws[f]))))
     if part_path is not None:
         files.append(InputFile("participants", meta.files.participants, _sha256(part_path),
                                int(len(raw_part))))
 
     if meta.files.layout == "wide":
-        long = _wide_to_long(raw_visits, meta, visits_label, log)
+        long = _wide_to_long(raws[visit_files[0]], meta, visit_files[0], log)
     else:
-        long = _normalise_long(raw_visits, meta, visits_label, log)
+        long = _normalise_long(raws[visit_files[0]], meta, visit_files[0], log)
+        if len(visit_files) > 1:
+            long = _stacked([long] + [_normalise_long(raws[f], meta, f, log) for f in visit_files[1:]],
+                            visit_files)
+    if not long.empty and "file" not in long.columns:
+        long["file"] = visit_files[0]
     participants = _participants(raw_part, long, meta, log)
     log.raise_if_errors()
 
-    arm_col = _arm_column(raw_part if raw_part is not None else raw_visits, meta.columns.arm)
-    _check_arms(long, participants, meta, arm_col, log)
+    arm_col = _arm_column(raw_part if raw_part is not None else raws[visit_files[0]], meta.columns.arm)
+    if not _pooled_without_arms(meta, participants):
+        _check_arms(long, participants, meta, arm_col, log)
+    outcome_files = _outcome_files(long, meta, log)
+    long, selection, units = _selected_records(long, raw_part, outcome_files, meta, log,
+                                               {f: set(raws[f].columns) for f in visit_files})
     for i, spec in enumerate(meta.outcomes):
-        _check_outcome(long, participants, spec, i, meta, visits_label, log)
+        label = outcome_files.get(spec.param, visit_files[0])
+        _check_outcome(long[long["file"] == label], participants, spec, i, meta, label, log)
+        _check_entry_conditions(long, spec, i, log)
     log.raise_if_errors()
 
-    derived = sorted(c for c in DERIVED_COLUMNS if c in raw_visits.columns)
+    meta = _with_data_units(meta, units)
+    derived = sorted(c for c in DERIVED_COLUMNS if any(c in raw.columns for raw in raws.values()))
     return Study(folder=folder, metadata=meta, metadata_sha256=meta_hash, visits=long,
                  participants=participants, files=files, derived_columns=derived,
-                 warnings=log.warnings)
+                 warnings=log.warnings, outcome_files=outcome_files, record_selection=selection,
+                 units=units)
+
+
+def _with_data_units(meta: StudyMetadata, units: dict[str, str]) -> StudyMetadata:
+    """The metadata with each outcome's unit taken from the data (AVALU) where study.toml gives none."""
+    outcomes = [o.model_copy(update={"unit": units[o.param]}) if not o.unit and units.get(o.param) else o
+                for o in meta.outcomes]
+    return meta.model_copy(update={"outcomes": outcomes})
+
+
+def _stacked(pieces: list[pd.DataFrame], labels: list[str]) -> pd.DataFrame:
+    """The long frames of several visit files as one, each row tagged with its file (row numbers stay
+    those of its own file)."""
+    kept = [p.assign(file=label) for p, label in zip(pieces, labels) if not p.empty]
+    if not kept:
+        return pd.DataFrame()
+    out = pd.concat(kept, ignore_index=True)
+    for col in ("subject", "param", "visit", "visit_number", "arm", "file"):
+        if col in out.columns:
+            out[col] = out[col].astype("string")
+    return out
+
+
+def _pooled_without_arms(meta: StudyMetadata, participants: pd.DataFrame) -> bool:
+    """A blinded study declaring no arms, whose data carry no arm: pooled, nothing to check by arm."""
+    return (meta.study.blinded and not meta.study.arms and not participants.empty
+            and (participants["arm"] == POOLED_ARM).all())
+
+
+def _outcome_files(long: pd.DataFrame, meta: StudyMetadata, log: ProblemLog) -> dict[str, str]:
+    """The visit file of each outcome: ``outcomes.file`` when given, else the one file holding its
+    parameter; a parameter in several files without ``file`` is refused (which one is meant?)."""
+    out: dict[str, str] = {}
+    if long.empty:
+        return out
+    present = long.groupby("param", observed=True)["file"].agg(lambda s: sorted(set(s.dropna())))
+    for i, spec in enumerate(meta.outcomes):
+        holders = present.get(spec.param, [])
+        if spec.file is not None:
+            out[spec.param] = spec.file
+            if holders and spec.file not in holders:
+                log.add(METADATA_FILE, f"outcomes[{i}].file", meta.columns.param,
+                        f"parameter '{spec.param}' is not in '{spec.file}' (it is in {', '.join(holders)})",
+                        "correct file, or the parameter code")
+        elif len(holders) > 1:
+            log.add(METADATA_FILE, f"outcomes[{i}].file", meta.columns.param,
+                    f"parameter '{spec.param}' is in more than one visit file: {', '.join(holders)}",
+                    f"add file = \"{holders[0]}\" (say) to the outcome")
+        else:
+            out[spec.param] = holders[0] if holders else meta.files.visit_files[0]
+    return out
+
+
+def _selected_records(long: pd.DataFrame, raw_part: pd.DataFrame | None, outcome_files: dict[str, str],
+                      meta: StudyMetadata, log: ProblemLog,
+                      columns_of: dict[str, set[str]]) -> tuple[pd.DataFrame, dict, dict]:
+    """Each outcome's records after its record rules (:mod:`auditor.records`), records of other
+    parameters untouched; the counts per rule; and each outcome's unit."""
+    selection: dict[str, list] = {}
+    units: dict[str, str] = {}
+    if long.empty:
+        return long, selection, units
+    drop = np.zeros(len(long), dtype=bool)
+    for i, spec in enumerate(meta.outcomes):
+        label = outcome_files.get(spec.param)
+        if label is None:
+            continue
+        mine = ((long["param"] == spec.param) & (long["file"] == label)).fillna(False).to_numpy(dtype=bool)
+        rows = long[mine]
+        kept, counts = select_outcome_records(rows, spec, meta.record_rules(spec), f"outcomes[{i}]", label, meta,
+                                              raw_part, meta.files.participants, log, columns_of.get(label))
+        drop[np.flatnonzero(mine)[~rows.index.isin(kept.index)]] = True
+        selection[spec.param] = counts
+        units[spec.param] = outcome_unit(kept, spec, f"outcomes[{i}]", label, meta, log)
+    return long[~drop].reset_index(drop=True), selection, units
 
 
 def _normalise_long(df: pd.DataFrame, meta: StudyMetadata, label: str, log: ProblemLog) -> pd.DataFrame:
@@ -704,6 +803,11 @@ def _normalise_long(df: pd.DataFrame, meta: StudyMetadata, label: str, log: Prob
         out["visit_number"] = _keys(df[cm.visit_number], _visit_number_key)
     if arm_col is not None:
         out["arm"] = df[arm_col].astype("string").str.strip()
+    for name, col in (("dtype", cm.dtype), ("unit", cm.unit), ("category", cm.category)):
+        if col in df.columns:
+            out[name] = df[col].astype("string").str.strip()
+    for flag in sorted(flag_names(meta) & set(df.columns)):
+        out[flag_column(flag)] = df[flag].astype("string").str.strip()
     for col in sorted({s.exposure for s in meta.outcomes if s.exposure} & set(df.columns)):
         out[exposure_column(col)] = _as_numbers(df[col], label, col, log, what="observation time")
     _check_ids(out["subject"], label, cm.subject, log)
@@ -808,16 +912,18 @@ def _participants(raw: pd.DataFrame | None, long: pd.DataFrame, meta: StudyMetad
         return pd.DataFrame()
     if raw is None:
         if "arm" not in long.columns:
+            if meta.study.blinded and not meta.study.arms:
+                return pd.DataFrame({"subject": sorted(long["subject"].dropna().unique()), "arm": POOLED_ARM})
             if meta.study.design == "single-arm":
                 subj = sorted(long["subject"].dropna().unique())
                 return pd.DataFrame({"subject": subj, "arm": meta.study.arms[0] if meta.study.arms else "All"})
-            log.add(meta.files.visits, "row 1", cm.arm or "TRT01P", "no arm column",
+            log.add(meta.files.visit_files[0], "row 1", cm.arm or "TRT01P", "no arm column",
                     "add TRTP or TRT01P, map it in [columns] arm = ..., or give files.participants")
             return pd.DataFrame()
         arms = long.dropna(subset=["subject"]).groupby("subject")["arm"].agg(lambda s: sorted(set(s.dropna())))
         multi = arms[arms.map(len) > 1]
         if len(multi):
-            log.add(meta.files.visits, "-", cm.arm or "TRT01P",
+            log.add(meta.files.visit_files[0], "-", cm.arm or "TRT01P",
                     f"{len(multi)} participant(s) have more than one arm",
                     "give each participant a single planned arm")
         return pd.DataFrame({"subject": arms.index.astype(str),
@@ -828,7 +934,9 @@ def _participants(raw: pd.DataFrame | None, long: pd.DataFrame, meta: StudyMetad
     arm_col = _arm_column(raw, cm.arm)
     out = pd.DataFrame({"subject": raw[cm.subject].astype("string").str.strip()})
     if arm_col is None:
-        if meta.study.design == "single-arm":
+        if meta.study.blinded and not meta.study.arms:
+            out["arm"] = POOLED_ARM  # pooled: no arm is read
+        elif meta.study.design == "single-arm":
             out["arm"] = meta.study.arms[0] if meta.study.arms else "All"
         else:
             log.add(label, "row 1", cm.arm or "TRT01P", "no arm column",
@@ -842,6 +950,7 @@ def _participants(raw: pd.DataFrame | None, long: pd.DataFrame, meta: StudyMetad
         log.add(label, rows_text(np.flatnonzero(dup)), cm.subject,
                 "participant appears on more than one row", "keep one row per participant")
     extra_cols = set()
+    extra_cols.update(flag_names(meta) & set(raw.columns))
     for spec in meta.outcomes:
         extra_cols.update(spec.covariates)
         if spec.risk_endpoint:
@@ -857,7 +966,7 @@ def _check_arms(long: pd.DataFrame, part: pd.DataFrame, meta: StudyMetadata, arm
                 log: ProblemLog) -> None:
     """Arms against study.arms, the number of arms against the design, and participants present in
     one file but not the other."""
-    label = meta.files.participants or meta.files.visits
+    label = meta.files.participants or meta.files.visit_files[0]
     arm_name = arm_col or meta.columns.arm or "TRT01P"
     declared = set(meta.study.arms)
     present = set(part["arm"].dropna().unique()) - {""}
@@ -913,11 +1022,13 @@ def _subjects_in_both(long: pd.DataFrame, part: pd.DataFrame, meta: StudyMetadat
     if not meta.files.participants:
         return
     orphan = long["subject"].notna().to_numpy() & ~_among(long["subject"], part["subject"].unique())
-    if orphan.any():
-        n = long.loc[orphan, "subject"].nunique()
-        log.add(meta.files.visits, rows_text(np.flatnonzero(orphan)), meta.columns.subject,
-                f"{n} participant(s) are not in the participant file",
-                f"add them to {meta.files.participants} or drop their rows")
+    for label in meta.files.visit_files:
+        here = orphan & (long["file"] == label).fillna(False).to_numpy(dtype=bool) if "file" in long else orphan
+        if here.any():
+            n = long.loc[here, "subject"].nunique()
+            log.add(label, rows_text(long.loc[here, "row"].to_numpy()), meta.columns.subject,
+                    f"{n} participant(s) are not in the participant file",
+                    f"add them to {meta.files.participants} or drop their rows")
     silent = part["subject"].notna().to_numpy() & ~_among(part["subject"], long["subject"].unique())
     if silent.any():
         n = part.loc[silent, "subject"].nunique()
@@ -1002,7 +1113,7 @@ def _check_outcome(long: pd.DataFrame, part: pd.DataFrame, spec: OutcomeSpec, i:
                     severity="warning")
     if spec.exposure:
         _check_exposure(rows, used, spec, key, label, log)
-    plabel = meta.files.participants or meta.files.visits
+    plabel = meta.files.participants or meta.files.visit_files[0]
     for cov in spec.covariates:
         _check_covariate(part, spec, cov, f"{key}.covariates", plabel, meta, log)
     if spec.risk_endpoint:
@@ -1019,6 +1130,22 @@ def _check_outcome(long: pd.DataFrame, part: pd.DataFrame, spec: OutcomeSpec, i:
             if bad.any():
                 log.add(plabel, rows_text(np.flatnonzero(bad.to_numpy())), spec.risk_endpoint,
                         "event endpoint is not binary", "code it 0/1 or Y/N")
+
+
+def _check_entry_conditions(long: pd.DataFrame, spec: OutcomeSpec, i: int, log: ProblemLog) -> None:
+    """Each further entry condition must name a parameter and a visit that the data hold."""
+    if spec.entry_criterion is None:
+        return
+    for j, cond in enumerate(spec.entry_criterion.also):
+        key = f"outcomes[{i}].entry_criterion.also[{j}]"
+        param = cond.param or spec.param
+        rows = long[(long["param"] == param).fillna(False)]
+        if rows.empty:
+            log.add(METADATA_FILE, f"{key}.param", "-", f"parameter '{param}' is not in the data",
+                    f"correct the code ({did_you_mean(param, long['param'].dropna().unique())})")
+        elif not _visit_rows(rows, cond.visit).any():
+            log.add(METADATA_FILE, f"{key}.visit", "-", f"visit '{_visit_key(cond.visit)}' has no rows for "
+                    f"'{param}'", "correct the visit name")
 
 
 def _check_exposure(rows: pd.DataFrame, used: pd.DataFrame, spec: OutcomeSpec, key: str, label: str,
@@ -1091,6 +1218,8 @@ def _binary_code(v):
 def outcome_data(study: Study, spec: OutcomeSpec) -> OutcomeData:
     """One row per participant for one outcome (participants with no data for it are dropped)."""
     rows = study.visits[study.visits["param"] == spec.param]
+    if spec.param in study.outcome_files and "file" in rows.columns:
+        rows = rows[rows["file"] == study.outcome_files[spec.param]]
     part = study.participants
     frame = part[["subject", "arm"]].copy()
     frame = frame[_among(frame["subject"], rows["subject"].unique())]

@@ -215,7 +215,7 @@ def declared_selection_part(data, ctx) -> Part:
 
     q = "Did the baseline value select the participants?"
     ec = data.spec.entry_criterion
-    lead = f"entry criterion {ec.visit} {ec.operator} {ec.value:g}"
+    lead = f"entry criterion {ec.text}"
     try:
         share_out = declared_criterion_reach(data, ctx)
     except NotAssessable as exc:
@@ -226,7 +226,8 @@ def declared_selection_part(data, ctx) -> Part:
     est = [estimate("Share of the fitted population the entry criterion leaves out", 100 * share_out, unit="%",
                     note="truncated-normal fit of the entry reading, as in the regression-to-the-mean check",
                     key="change-score.selection.share-excluded")]
-    reach = f"the population fitted to the entry readings puts {share_text(share_out)} beyond the cutoff"
+    reach = (f"the population fitted to the entry readings puts {share_text(share_out)} "
+             f"{'outside the window' if ec.is_window else 'beyond the cutoff'}")
     if share_out < NEGLIGIBLE_EXCLUDED:
         return Part(SubFinding("selection", q, Verdict.SOUND,
                                f"{lead}, but {reach} (below {NEGLIGIBLE_EXCLUDED:.0%}, a convention of this "

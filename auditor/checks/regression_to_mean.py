@@ -24,6 +24,7 @@ from ..results import Estimate, Figure, SubFinding, Verdict
 from ..stats.linear import fit_ols
 from ..stats.rtm import (bias_after_second_baseline, expected_rtm, fit_truncated_normal, icc_oneway,
                          edge_test_scale, rtm_with_ci, shrunk_values, truncation_edge_test)
+from ..stats.rtm import fit_window_normal, rtm_window_with_ci, window_mean_shift
 from .common import estimate, fmt, fmt_p, result
 from .registry import CheckContext, NotAssessable, register
 
@@ -159,6 +160,26 @@ class Selection:
     source: str
     """``criterion`` (declared in study.toml) or ``edge`` (found in the data)."""
     operator: str
+    upper: float | None = None
+    """The upper end of a two-sided entry window (``cutoff`` is then its lower end and ``direction``
+    is ``window``); None for a one-sided cutoff."""
+
+    @property
+    def is_window(self) -> bool:
+        return self.upper is not None
+
+    @property
+    def text(self) -> str:
+        """The selection as the report writes it: ``Screening >= 24`` or ``24 <= Screening <= 73``."""
+        if self.is_window:
+            return f"{self.cutoff:g} <= {self.visit} <= {self.upper:g}"
+        return f"{self.visit} {self.operator} {self.cutoff:g}"
+
+    def keeps(self, s: np.ndarray) -> np.ndarray:
+        """Readings on the kept side of the cutoff, or inside the window (both ends kept)."""
+        if self.is_window:
+            return (s >= self.cutoff) & (s <= self.upper)
+        return (s >= self.cutoff) if self.direction == "above" else (s <= self.cutoff)
 
 
 @dataclass(frozen=True)
@@ -273,6 +294,9 @@ def declared_selection(spec) -> Selection:
     """The declared entry criterion as a selection: its reading, cutoff and kept side."""
     ec = spec.entry_criterion
     column = criterion_column(spec)
+    if ec.is_window:
+        return Selection(column, _visit_of(spec, column), float(ec.between[0]), "window", "criterion", "between",
+                         float(ec.between[1]))
     return Selection(column, _visit_of(spec, column), float(ec.value), ec.direction, "criterion", ec.operator)
 
 
@@ -284,6 +308,10 @@ def _declared_selection(spec, rd: Readings, ctx) -> tuple[Selection, list[EdgeFi
     if len(values) < MIN_SELECTED:
         raise NotAssessable(f"only {len(values)} participants have the {_visit_of(spec, column)} reading the "
                             f"entry criterion was applied to (at least {MIN_SELECTED} are needed)")
+    if ec.is_window:
+        sel = declared_selection(spec)
+        found = edge_finding(values[sel.keeps(values)], column, spec, "either", ALPHA, ctx)
+        return sel, [found] if found else []
     kept = values[values >= ec.value] if ec.direction == "above" else values[values <= ec.value]
     side = "lower" if ec.direction == "above" else "upper"
     found = edge_finding(kept, column, spec, side, ALPHA, ctx)
@@ -315,7 +343,7 @@ def selected(rd: Readings, sel: Selection) -> tuple[Readings, int]:
     counts as kept, since readings are rounded), and how many lie on the excluded side."""
     s = rd.cols[sel.column]
     has = np.isfinite(s)
-    ok = has & ((s >= sel.cutoff) if sel.direction == "above" else (s <= sel.cutoff))
+    ok = has & sel.keeps(s)
     work = rd.subset(ok)
     if ok.sum() < MIN_SELECTED:
         raise NotAssessable(f"only {int(ok.sum())} participants meet the entry cutoff (at least {MIN_SELECTED} "
@@ -326,6 +354,14 @@ def selected(rd: Readings, sel: Selection) -> tuple[Readings, int]:
 
 
 # ----------------------------------------------------------------------------- scale and population
+
+
+def _fit_selection(values_t: np.ndarray, sel: Selection, to):
+    """The truncated-normal fit of the entry readings (already on the analysis scale ``to``): one-sided
+    at the cutoff, or doubly truncated to a window."""
+    if sel.is_window:
+        return fit_window_normal(values_t, float(to(sel.cutoff)), float(to(sel.upper)))
+    return _fit(values_t, float(to(sel.cutoff)), sel.direction)
 
 
 def _fit(values_t: np.ndarray, cutoff_t: float, direction: str):
@@ -353,11 +389,11 @@ def choose_scale(spec, rd: Readings, sel: Selection) -> Scale:
         if spec.log_scale and not can_log:
             raise NotAssessable("log_scale is set but some readings or the cutoff are not positive")
         scale = Scale(bool(spec.log_scale), "declared in study.toml", None)
-        return Scale(scale.log, scale.reason, _fit(scale.to(s), float(scale.to(sel.cutoff)), sel.direction))
-    raw = _fit(s, sel.cutoff, sel.direction)
+        return Scale(scale.log, scale.reason, _fit_selection(scale.to(s), sel, scale.to))
+    raw = _fit_selection(s, sel, lambda x: x)
     if not can_log:
         return Scale(False, "raw scale (not every reading is positive)", raw)
-    logged = _fit(np.log(s), math.log(sel.cutoff), sel.direction)
+    logged = _fit_selection(np.log(s), sel, np.log)
     l_log = logged.loglik - float(np.sum(np.log(s)))
     if logged.converged and (not raw.converged or l_log > raw.loglik + LOG_MARGIN):
         why = ("the truncated normal fits only on the log scale" if not raw.converged else
@@ -372,6 +408,9 @@ def excluded_share(scale: Scale, sel: Selection) -> float:
     """Share of the fitted unselected population on the excluded side of the cutoff: how many the
     criterion leaves out of the population the selected readings imply."""
     fit, cut = scale.fit, float(scale.to(sel.cutoff))
+    if sel.is_window:
+        top = float(scale.to(sel.upper))
+        return float(stats.norm.cdf(cut, fit.mu, fit.sigma) + stats.norm.sf(top, fit.mu, fit.sigma))
     side = stats.norm.cdf if sel.direction == "above" else stats.norm.sf
     return float(side(cut, fit.mu, fit.sigma))
 
@@ -497,6 +536,28 @@ def expected_change(fit, rho: float, rho_se: float | None, cutoff_t: float, dire
                        n_draws=DRAWS_QUICK if ctx.quick else DRAWS_FULL, seed=ctx.seed, **kw)
 
 
+def expected_window_change(fit, rho: float, rho_se: float | None, ctx):
+    """Expected change for a two-sided entry window, ``-(1 - rho) E[X - mu | a <= X <= b]``, with a
+    parametric-bootstrap CI over the doubly truncated fit and the reliability."""
+    return rtm_window_with_ci(fit, rho, rho_se, level=ctx.level, n_draws=DRAWS_QUICK if ctx.quick else DRAWS_FULL,
+                              seed=ctx.seed)
+
+
+def further_conditions_caveat(spec, out: Out) -> None:
+    """Further entry conditions (``entry_criterion.also``) are not used in sizing this outcome's
+    regression to the mean: a condition on another parameter selects on a correlated variable, whose
+    effect on this outcome depends on a correlation the audit does not model; one on this parameter
+    at another visit is a second selection the single-reading model does not carry."""
+    ec = spec.entry_criterion
+    if ec is None or not ec.also:
+        return
+    listed = "; ".join(f"{c.param or spec.param} {c.text}" for c in ec.also)
+    out.caveats.append(f"Entry also required {listed}. Selection on these further conditions (on a correlated "
+                       f"variable, or on this one at another visit) also pulls this outcome toward its mean, by an "
+                       f"amount that depends on their correlation with it; it is not included in the expected "
+                       f"change above, which sizes the selection on {ec.visit} alone.")
+
+
 def mean_change(d, where: str, by_arm: bool, level: float) -> Change:
     """Mean of the differences ``d`` with its t interval."""
     d = np.asarray(d, dtype=float)
@@ -532,6 +593,8 @@ def selection_shift_se(fit, cutoff_t: float, direction: str) -> tuple[float, flo
     """``e = E[S - mu | selected]`` at the fit (signed) and its delta-method SE from the fit's
     covariance; ``e`` is minus the expected RTM at reliability 0."""
     def e(mu, sigma):
+        if direction == "window":
+            return float(window_mean_shift(mu, sigma, fit.lower, fit.upper))
         return -expected_rtm(mu, sigma, 0.0, cutoff_t, direction)
 
     h = 1e-5 * fit.sigma
@@ -557,10 +620,13 @@ def residual_bias(data, ctx, rd, scale, sel) -> tuple[Interval, Group]:
     rho_sb, rho_sf = slope(b, s)[0], slope(f, s)[0]
     diff, diff_se = slope(f - b, s)[:2]
     fit, cut = scale.fit, float(scale.to(sel.cutoff))
-    bias = bias_after_second_baseline(fit.mu, fit.sigma, cut, rho_screen_second=float(np.clip(rho_sb, -1, 1)),
-                                      rho_screen_followup=float(np.clip(rho_sf, -1, 1)),
-                                      direction=sel.direction).second_baseline_bias
     e, e_se = selection_shift_se(fit, cut, sel.direction)
+    if sel.is_window:  # the same relation, (rho_SF - rho_SB) e, with e the doubly truncated mean shift
+        bias = float((np.clip(rho_sf, -1, 1) - np.clip(rho_sb, -1, 1)) * e)
+    else:
+        bias = bias_after_second_baseline(fit.mu, fit.sigma, cut, rho_screen_second=float(np.clip(rho_sb, -1, 1)),
+                                          rho_screen_followup=float(np.clip(rho_sf, -1, 1)),
+                                          direction=sel.direction).second_baseline_bias
     se = math.sqrt(e ** 2 * diff_se ** 2 + diff ** 2 * e_se ** 2 + diff_se ** 2 * e_se ** 2)
     q = stats.norm.ppf(0.5 + ctx.level / 2)
     return Interval(bias, bias - q * se, bias + q * se), group
@@ -571,7 +637,7 @@ def second_baseline_share(data, ctx, rd, scale, sel, rel, rho, out: Out) -> floa
     it under stable true levels; ``(1 - rho) / (1 - rho_BF)`` when the follow-up correlates less with
     the entry reading than a repeat reading does (rho_BF: slope of follow-up on it in the comparison
     group)."""
-    if sel.column != "baseline":
+    if sel.column != "baseline" or sel.is_window:
         return None
     fit, cut = scale.fit, float(scale.to(sel.cutoff))
     stable = bias_after_second_baseline(fit.mu, fit.sigma, cut, rho_screen_second=rho, direction=sel.direction)
@@ -630,6 +696,9 @@ def _criterion_text(spec, sel: Selection, finds: list[EdgeFinding]) -> str:
     unit = f" {spec.unit}" if spec.unit else ""
     if sel.source == "criterion":
         where = ", the analysis baseline" if sel.column == "baseline" else ""
+        if sel.is_window:
+            return (f"Entry required {spec.param} between {sel.cutoff:g} and {sel.upper:g}{unit} at "
+                    f"{sel.visit}{where}")
         return f"Entry required {spec.param} {sel.operator} {sel.cutoff:g}{unit} at {sel.visit}{where}"
     f = next(x for x in finds if x.column == sel.column)
     return (f"{sel.visit} has a sharp {f.test.edge_side} edge at {fmt(sel.cutoff)}{unit} "
@@ -661,7 +730,7 @@ def selection_section(sel, finds, n_kept, n_excluded, out: Out, share_out: float
         return
     verdict = Verdict.CAUTION
     if sel.source == "criterion":
-        ev = f"entry criterion {sel.visit} {sel.operator} {sel.cutoff:g}" + (f"; in the data: {tests}" if tests else "")
+        ev = f"entry criterion {sel.text}" + (f"; in the data: {tests}" if tests else "")
         if share_out is not None:
             ev += (f"; the population fitted to the entry readings puts {share_text(share_out)} on the "
                    f"excluded side of the cutoff")
@@ -737,7 +806,12 @@ def expected_section(spec, scale, rtm, rel, sel, out: Out) -> None:
                                       math.exp(rtm.estimate), math.exp(rtm.lower), math.exp(rtm.upper),
                                       note=f"{_pct(rtm.estimate):+.1f}% on the original scale", by_arm=rel.by_arm,
                                       key="regression-to-mean.expected-ratio"))
-    if spec.reliability is not None and rel.source != "declared":
+    if spec.reliability is not None and rel.source != "declared" and sel.is_window:
+        alt = -(1 - float(spec.reliability)) * float(window_mean_shift(scale.fit.mu, scale.fit.sigma,
+                                                                      scale.fit.lower, scale.fit.upper))
+        out.estimates.append(estimate("Expected change with the declared reliability instead (sensitivity)",
+                                      alt, unit=unit, key="regression-to-mean.expected-change-declared-reliability"))
+    elif spec.reliability is not None and rel.source != "declared":
         alt = expected_rtm(scale.fit.mu, scale.fit.sigma, float(spec.reliability), float(scale.to(sel.cutoff)),
                            sel.direction)
         out.estimates.append(estimate("Expected change with the declared reliability instead (sensitivity)",
@@ -757,6 +831,7 @@ def shrinkage_section(spec, rd, scale, rho, sel, rel, out: Out) -> None:
         "rtm-shrinkage", "rtm_shrinkage", f"{spec.display_name}: observed entry reading against its shrunk value",
         {"observed": x.tolist(), "shrunk": shrunk.tolist(), "mu": scale.fit.mu,
          "cutoff": float(scale.to(sel.cutoff)), "log": scale.log, "xlabel": f"Observed {label}",
+         **({"upper": float(scale.to(sel.upper))} if sel.is_window else {}),
          "ylabel": f"Shrunk {label} (estimated true level)"},
         caption=f"One point per participant, in order of value. Each reading is pulled toward the population "
                 f"mean by 1 - reliability = {fmt(1 - rho)}: the further beyond the cutoff, the more the reading "
@@ -775,6 +850,7 @@ def pairs_figure(spec, rd, scale, sel, rel) -> Figure | None:
     order = np.lexsort((ys, xs))
     xs, ys = scale.to(xs[order]), scale.to(ys[order])
     data = {"x": xs.tolist(), "y": ys.tolist(), "cutoff": float(scale.to(sel.cutoff)),
+            **({"upper": float(scale.to(sel.upper))} if sel.is_window else {}),
             "cutoff_axis": "x" if sel.column == "screening" else "y", "log": scale.log,
             "xlabel": _unit_label(spec, spec.screening_visit), "ylabel": _unit_label(spec, spec.baseline_visit)}
     if rel.other in ("screening", "baseline"):
@@ -798,6 +874,7 @@ def truncation_figure(spec, rd, scale, sel) -> Figure:
                   f"{spec.display_name}: distribution of the entry reading ({sel.visit})",
                   {"values": v.tolist(), "mu": scale.fit.mu, "sigma": scale.fit.sigma,
                    "cutoff": float(scale.to(sel.cutoff)), "direction": sel.direction, "log": scale.log,
+                   **({"upper": float(scale.to(sel.upper))} if sel.is_window else {}),
                    "xlabel": _unit_label(spec, sel.visit)},
                   caption="Dotted: the cutoff. Solid curve: the truncated normal fitted by maximum likelihood; "
                           "dashed: the unselected population it implies"
@@ -1083,7 +1160,8 @@ def run(data, ctx: CheckContext):
     rel = choose_reliability(data, ctx, rd, scale, sel)
     reliability_section(spec, rel, out)
     rho = _capped(rel, out)
-    rtm = expected_change(scale.fit, rho, rel.se, float(scale.to(sel.cutoff)), sel.direction, ctx)
+    rtm = (expected_window_change(scale.fit, rho, rel.se, ctx) if sel.is_window else
+           expected_change(scale.fit, rho, rel.se, float(scale.to(sel.cutoff)), sel.direction, ctx))
     expected_section(spec, scale, rtm, rel, sel, out)
     obs = observed_change(data, ctx, rd, scale)
     pre = pre_treatment_change(rd, scale, sel, rel, spec, ctx.level)
@@ -1106,6 +1184,7 @@ def run(data, ctx: CheckContext):
     out.figures = figures + out.figures + [
         comparison_figure(spec, scale, figure_rows(sel, rtm, target, obs, pre), by_arm)]
     caveats(ctx, rel, out)
+    further_conditions_caveat(spec, out)
     text = (no_one_out_headline(spec, sel, finds, scale, rtm, target, share_out) if no_one_out and not material
             else headline(spec, data.design, sel, finds, scale, rtm, target, obs, second, ctx, sigma, material))
     return result(check, data, verdict, text,

@@ -67,8 +67,12 @@ def rtm_pairs(data, fig):
         ax.plot(line["x"], line["y"], lw=1.4, color=PALETTE[2], label=line["label"])
     if data["cutoff_axis"] == "x":
         ax.axvline(data["cutoff"], ls=":", lw=1.2, color=_CUTOFF_COLOUR, label="entry cutoff")
+        if data.get("upper") is not None:
+            ax.axvline(data["upper"], ls=":", lw=1.2, color=_CUTOFF_COLOUR)
     else:
         ax.axhline(data["cutoff"], ls=":", lw=1.2, color=_CUTOFF_COLOUR, label="entry cutoff")
+        if data.get("upper") is not None:
+            ax.axhline(data["upper"], ls=":", lw=1.2, color=_CUTOFF_COLOUR)
     dots(ax, x, y, PALETTE[0])
     _label_axes(ax, data, (lo, hi), (lo, hi))
     ax.legend(loc="upper left")
@@ -90,10 +94,14 @@ def rtm_truncation(data, fig):
     counts, edges, _ = ax.hist(v, bins=bins, color=PALETTE[0], alpha=0.75, label="selected participants")
     width = edges[1] - edges[0]
     kept = stats.norm.sf(cut, mu, sigma) if above else stats.norm.cdf(cut, mu, sigma)
+    top = data.get("upper")
+    if top is not None:  # a two-sided entry window [cutoff, upper]
+        kept = stats.norm.cdf(top, mu, sigma) - stats.norm.cdf(cut, mu, sigma)
+        ax.axvline(top, ls=":", lw=1.2, color=_CUTOFF_COLOUR)
     grid = np.linspace(lo, hi, 300)
     population = len(v) * width * stats.norm.pdf(grid, mu, sigma) / kept
     ax.plot(grid, population, ls="--", lw=1.1, color=_GREY, label="unselected population (fitted)")
-    side = grid >= cut if above else grid <= cut
+    side = (grid >= cut) & (grid <= top) if top is not None else (grid >= cut if above else grid <= cut)
     ax.plot(grid[side], population[side], lw=1.6, color=PALETTE[1], label="fitted truncated normal")
     ax.axvline(cut, ls=":", lw=1.2, color=_CUTOFF_COLOUR, label="entry cutoff")
     ax.axvline(mu, lw=0.8, color=PALETTE[2], label="population mean")
@@ -121,6 +129,8 @@ def rtm_shrinkage(data, fig):
     ax.plot([lo, hi], [lo, hi], ls="--", lw=0.9, color=_GREY, label="identity (no shrinkage)")
     ax.axhline(data["mu"], lw=0.8, color=PALETTE[2], label="population mean")
     ax.axvline(data["cutoff"], ls=":", lw=1.2, color=_CUTOFF_COLOUR, label="entry cutoff")
+    if data.get("upper") is not None:
+        ax.axvline(data["upper"], ls=":", lw=1.2, color=_CUTOFF_COLOUR)
     dots(ax, x, y, PALETTE[0])
     mx, my = float(np.mean(x)), float(np.mean(y))
     ax.annotate("", xy=(mx, my), xytext=(mx, mx),

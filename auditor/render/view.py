@@ -169,6 +169,9 @@ def _audit_strings(audit: Audit) -> dict:
                 ("Entry criterion", o["entry_criterion"] or "none declared"),
                 ("Risk endpoint", o["risk_endpoint"] or "none declared"),
             ],
+            "records": [{"rule": c["rule"], "records": f"{c['records_removed']:,}",
+                         "participants": f"{c['participants_removed']:,}", "left": f"{c['records_after']:,}"}
+                        for c in o.get("record_selection") or []],
             "results": results,
         })
     headlines = [{"param": r.outcome, "label": r.outcome_label, "check": r.check_title,
