@@ -71,7 +71,13 @@ def withhold_pooled_numbers(res: CheckResult) -> CheckResult:
     if res.verdict in (Verdict.NOT_ASSESSABLE, Verdict.TOOL_DEFECT):
         return res
     return replace(res, headline=WITHHELD_TEXT, estimates=[], tables=[], figures=[], caveats=[],
-                   subfindings=[replace(s, evidence="withheld") for s in res.subfindings])
+                   subfindings=[replace(s, evidence="withheld") for s in res.subfindings],
+                   recommendation=without_numbers(res.recommendation))
+
+
+def without_numbers(text: str) -> str:
+    """``text`` without its clauses (separated by semicolons) that quote a number."""
+    return "; ".join(c for c in text.split("; ") if not any(ch.isdigit() for ch in c))
 
 
 LIBRARIES = ("numpy", "pandas", "scipy", "statsmodels", "matplotlib", "jinja2", "weasyprint", "pydantic")
