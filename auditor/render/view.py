@@ -303,6 +303,6 @@ def verdict_tally(audit: Audit) -> str:
 def left_out_view(audit: Audit) -> list[dict]:
     """The participant listing grouped by outcome, in the report's outcome order."""
     labels = {o["param"]: o["label"] for o in audit.outcomes}
-    return [{"param": p, "label": labels[p],
+    return [{"param": p, "label": labels[p], "heading": outcome_heading(labels[p], p),
              "rows": [{"subject": x.subject, "reason": x.reason} for x in audit.left_out if x.outcome == p]}
             for p in labels]
