@@ -197,3 +197,15 @@ def test_blinded_audit_can_withhold_pooled_numbers(example_copy):
     assert all(r.estimates for r in shown.results)
     unblinded = audit_study(study, AuditOptions(quick=True, blinded=False, checks=("pre-post",)))
     assert unblinded.report.withheld == [] and all(r.headline != WITHHELD_TEXT for r in unblinded.results)
+
+
+def test_memo_escapes_and_isolates_user_labels(example_audit):
+    label = "<script>alert(1)</script>\u202eevil"
+    first = example_audit.outcomes[0]["param"]
+    audit = dataclasses.replace(
+        first_outcomes(example_audit, 1),
+        outcomes=[{**example_audit.outcomes[0], "label": label}],
+        results=[dataclasses.replace(r, outcome_label=label) for r in example_audit.results if r.outcome == first])
+    html = memo_html(audit)
+    assert "<script>" not in html and "&lt;script&gt;" in html
+    assert "\u2068&lt;script&gt;alert(1)&lt;/script&gt;\u202eevil\u2069" in html  # inside a first-strong isolate
