@@ -209,3 +209,27 @@ def test_memo_escapes_and_isolates_user_labels(example_audit):
     html = memo_html(audit)
     assert "<script>" not in html and "&lt;script&gt;" in html
     assert "\u2068&lt;script&gt;alert(1)&lt;/script&gt;\u202eevil\u2069" in html  # inside a first-strong isolate
+
+
+def test_run_memo_writes_six_files_with_the_same_bytes_on_rerun(tmp_path):
+    from typer.testing import CliRunner
+
+    from auditor.cli import app
+    from tests.conftest import EXAMPLE
+
+    runner = CliRunner()
+    args = ["run", str(EXAMPLE), "--check", "pre-post", "--memo", "--blinded", "--withhold-pooled", "--quiet"]
+    first, second = tmp_path / "a", tmp_path / "b"
+    for out in (first, second):
+        res = runner.invoke(app, args + ["-o", str(out)])
+        assert res.exit_code == 0, res.output
+    assert sorted(p.name for p in first.iterdir()) == sorted(OUTPUT_FILES + MEMO_FILES)
+    for name in OUTPUT_FILES + MEMO_FILES:
+        assert (first / name).read_bytes() == (second / name).read_bytes(), name
+    memo = (first / "memo.html").read_text()
+    assert OPEN_MARK in memo and WITHHELD_TEXT in memo and withheld_items(True, True)[-1] in memo
+    d = json.loads((first / "findings.json").read_text())
+    assert d["report"]["withheld"] == withheld_items(True, True)
+    # An existing memo is not replaced without --force.
+    res = runner.invoke(app, args + ["-o", str(first)])
+    assert res.exit_code == 2 and "memo.html" in res.output
