@@ -248,6 +248,7 @@ def batch(
     analysis_date: Optional[str] = typer.Option(None, "--analysis-date", help="Date printed on every report."),
     seed: Optional[int] = typer.Option(None, "--seed", help="Seed for every resampling (default: each study's)."),
     paper: str = typer.Option("A4", "--paper", help="PDF page size: A4 or letter."),
+    memo: bool = typer.Option(False, "--memo", help="Also write each study's memo.html and memo.pdf."),
 ):
     """Audit many studies in parallel: OUT/<study>/, OUT/index.html and OUT/summary.csv."""
     from .batch import default_jobs, expand_inputs, gate_reached, index_view, refuse_unsafe_batch, summary_csv
@@ -267,7 +268,7 @@ def batch(
                 err.print(f"{f}: is not a folder. Fix: give study folders or a manifest listing them.", markup=False)
             raise typer.Exit(EXIT_INPUT)
         refuse_unsafe_batch(folders, output, force)
-        options = {"blinded": blinded, "analysis_date": analysis_date, "seed": seed}
+        options = {"blinded": blinded, "analysis_date": analysis_date, "seed": seed, **({"memo": True} if memo else {})}
         n_jobs = jobs or default_jobs()
         results = _run_with_progress(folders, output, options, n_jobs, paper_size(paper), force)
         view = {**index_view(results, {**options, "paper": paper}), "cautions": CAUTIONS}
