@@ -138,8 +138,9 @@ def audit_one(args: tuple) -> StudyOutcome:
 
     try:
         study = load_study(folder)
-        audit = audit_study(study, AuditOptions(**options))
-        write_audit(audit, Path(target), force=force, paper=paper, protected=[Path(folder)])
+        audit = audit_study(study, AuditOptions(**{k: v for k, v in options.items() if k != "memo"}))
+        write_audit(audit, Path(target), force=force, paper=paper, protected=[Path(folder)],
+                    memo=bool(options.get("memo")))
     except StudyInputError as exc:
         first = exc.problems[0].one_line()
         more = f" (and {len(exc.problems) - 1} more)" if len(exc.problems) > 1 else ""

@@ -179,8 +179,14 @@ def run(
         False, "--list-left-out",
         help="Name, in the report's appendix and findings.json, the participants each outcome's analysis "
              "leaves out and why. This writes participant identifiers: off by default."),
+    memo: bool = typer.Option(False, "--memo", help="Also write memo.html and memo.pdf: a 2-4 page summary "
+                                                     "(cover, verdict grid, one paragraph per outcome, cautions)."),
+    withhold_pooled: Optional[bool] = typer.Option(
+        None, "--withhold-pooled/--show-pooled",
+        help="In a blinded audit, withhold the pooled numbers as well (verdicts and questions only); "
+             "default: as study.toml's withhold_pooled says."),
 ):
-    """Audit a study folder: write audit.html, audit.pdf, findings.json and findings.csv."""
+    """Audit a study folder: write audit.html, audit.pdf, findings.json and findings.csv (and the memo)."""
     from .options import (check_id_problems, date_problems, paper_problems, paper_size, refuse_if_any,
                           registered_check_ids, seed_problems)
     from .pipeline import AuditOptions, audit_study
@@ -195,15 +201,16 @@ def run(
             return _run_summaries(study_dir, output, force, analysis_date, today, seed, paper, check, strict, quiet)
         refuse_if_any(seed_problems(seed), date_problems(analysis_date, "--analysis-date"),
                       check_id_problems(check, registered_check_ids()), paper_problems(paper))
-        check_target(output, force, protected=[study_dir])
+        check_target(output, force, protected=[study_dir], memo=memo)
         study = load_study(study_dir)
         _print_study_warnings(study, blinded)
         opts = AuditOptions(blinded=blinded, analysis_date=analysis_date, use_clock=today, seed=seed,
-                            checks=tuple(check), list_left_out=list_left_out,
+                            checks=tuple(check), list_left_out=list_left_out, withhold_pooled=withhold_pooled,
                             **({"strict": True} if strict else {}))
         a = audit_study(study, opts)
         _warn_defects(a)
-        paths, recovery = write_audit(a, output, force=force, paper=paper_size(paper), protected=[study_dir])
+        paths, recovery = write_audit(a, output, force=force, paper=paper_size(paper), protected=[study_dir],
+                                      memo=memo)
         _report_recovery(recovery, output)
         if not quiet:
             out.print(_summary_table(a))
@@ -310,6 +317,7 @@ def batch(
     analysis_date: Optional[str] = typer.Option(None, "--analysis-date", help="Date printed on every report."),
     seed: Optional[int] = typer.Option(None, "--seed", help="Seed for every resampling (default: each study's)."),
     paper: str = typer.Option("A4", "--paper", help="PDF page size: A4 or letter."),
+    memo: bool = typer.Option(False, "--memo", help="Also write each study's memo.html and memo.pdf."),
 ):
     """Audit many studies in parallel: OUT/<study>/, OUT/index.html and OUT/summary.csv."""
     from .batch import batch_exit_code, default_jobs, expand_inputs, index_view, refuse_unsafe_batch, summary_csv
@@ -329,7 +337,7 @@ def batch(
                 err.print(f"{f}: is not a folder. Fix: give study folders or a manifest listing them.", markup=False)
             raise typer.Exit(EXIT_INPUT)
         refuse_unsafe_batch(folders, output, force)
-        options = {"blinded": blinded, "analysis_date": analysis_date, "seed": seed}
+        options = {"blinded": blinded, "analysis_date": analysis_date, "seed": seed, **({"memo": True} if memo else {})}
         n_jobs = jobs or default_jobs()
         results = _run_with_progress(folders, output, options, n_jobs, paper_size(paper), force)
         view = {**index_view(results, {**options, "paper": paper}), "cautions": CAUTIONS}

@@ -109,6 +109,20 @@ def _analysis_date(value):
 AnalysisDate = Annotated[Optional[dt.date], PlainValidator(_analysis_date)]
 
 
+def _data_cut(value):
+    """study.toml's data_cut: the date the data were frozen for this report, written as analysis_date is."""
+    if value is None:
+        return None
+    date = iso_date(value)
+    if date is None:
+        raise ValueError(f"data_cut {value!r:.60} is not a calendar date written YYYY-MM-DD "
+                         "(for example 2026-10-31)")
+    return date
+
+
+DataCut = Annotated[Optional[dt.date], PlainValidator(_data_cut)]
+
+
 class _Strict(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True)
 
@@ -125,6 +139,16 @@ class StudyInfo(_Strict):
     source: Literal["data", "summaries"] = "data"
     """What the folder holds: participant data (``data``) or a paper's published summaries
     (``summaries``, audited by :mod:`auditor.summaries`; see docs/summaries.md)."""
+    data_cut: DataCut = None
+    """Date of the data cut the report is made from (printed on the cover of the audit and the memo)."""
+    report_version: StrictStr = Field(default="", max_length=200)
+    """The report's own version, as the reader's records name it (for example "2.0, closed session")."""
+    author: StrictStr = Field(default="", max_length=2000)
+    """Who prepared the report (a role or a name), printed on the cover."""
+    interim: StrictBool = False
+    """The data are from an interim look: the cautions then say that p-values are not the final analysis's."""
+    withhold_pooled: StrictBool = False
+    """In a blinded audit, withhold the pooled numbers as well (verdicts and questions only)."""
 
     @model_validator(mode="after")
     def _arms_consistent(self):

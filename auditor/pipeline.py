@@ -22,7 +22,8 @@ from .checks.registry import CheckContext, NotAssessable, all_checks
 from .errors import one_line_text
 from .failures import ToolDefect, data_reason, defect_reason, is_defect
 from .listing import left_out
-from .results import Audit, CheckInfo, CheckResult, LeftOut, Provenance, Verdict, estimate_key_problems
+from .results import (Audit, CheckInfo, CheckResult, LeftOut, Provenance, ReportInfo, Verdict,
+                      estimate_key_problems)
 from .study import MIN_PER_ARM, Study, load_study, outcome_data
 
 CAUTIONS = [
@@ -35,6 +36,50 @@ CAUTIONS = [
     "Blinded data must stay blinded: run a blinded audit (blinded = true or --blinded) for anyone who "
     "must not see results by arm, and do not circulate an unblinded audit beyond those entitled to it.",
 ]
+
+INTERIM_CAUTION = (
+    "These data are from an interim look. A p-value or interval computed here is not the final analysis's: "
+    "the trial's alpha-spending (group-sequential) rules govern what may be concluded at an interim look, "
+    "and nothing in this audit is a stopping recommendation.")
+
+BLINDED_WITHHOLDS = [
+    "arm labels and the control arm",
+    "counts, estimates, tables and figures by arm or comparing arms",
+    "checks that need the arms (not assessed)",
+    "warnings that concern an arm",
+]
+POOLED_WITHHELD = "every pooled number (estimates, tables, figures, and numbers in headlines and evidence)"
+WITHHELD_TEXT = "Withheld in this blinded audit: the pooled numbers behind this verdict."
+
+
+def audit_cautions(interim: bool) -> list[str]:
+    """The cautions every report keeps, plus the interim-look caution when the data are an interim look."""
+    return list(CAUTIONS) + ([INTERIM_CAUTION] if interim else [])
+
+
+def withheld_items(blinded: bool, withhold_pooled: bool) -> list[str]:
+    """What a blinded audit leaves out, one phrase each, for its cover (empty when unblinded)."""
+    if not blinded:
+        return []
+    return BLINDED_WITHHOLDS + ([POOLED_WITHHELD] if withhold_pooled else [])
+
+
+def withhold_pooled_numbers(res: CheckResult) -> CheckResult:
+    """A blinded result with every pooled number removed as well: the verdict, the questions examined and
+    their verdicts stay; estimates, tables, figures and caveats go, and the headline and evidence (which
+    quote numbers) are replaced by a statement that they are withheld. Results that are not assessable
+    keep their reason, which quotes no outcome data."""
+    if res.verdict in (Verdict.NOT_ASSESSABLE, Verdict.TOOL_DEFECT):
+        return res
+    return replace(res, headline=WITHHELD_TEXT, estimates=[], tables=[], figures=[], caveats=[],
+                   subfindings=[replace(s, evidence="withheld") for s in res.subfindings],
+                   recommendation=without_numbers(res.recommendation))
+
+
+def without_numbers(text: str) -> str:
+    """``text`` without its clauses (separated by semicolons) that quote a number."""
+    return "; ".join(c for c in text.split("; ") if not any(ch.isdigit() for ch in c))
+
 
 LIBRARIES = ("numpy", "pandas", "scipy", "statsmodels", "matplotlib", "jinja2", "weasyprint", "pydantic")
 
@@ -56,6 +101,8 @@ class AuditOptions:
     """Run only these check ids (default: all)."""
     list_left_out: bool = False
     """Name, in an appendix, the participants each outcome's analysis leaves out (identifiers)."""
+    withhold_pooled: bool | None = None
+    """In a blinded audit, withhold the pooled numbers too (None: as the metadata say)."""
     strict: bool = field(default_factory=lambda: os.environ.get("AUDITOR_STRICT") == "1")
     """Raise :class:`~auditor.failures.ToolDefect` at the first defect instead of reporting it as a
     "tool defect" finding (the test suite sets AUDITOR_STRICT=1). Not recorded: it changes no number."""
@@ -244,11 +291,13 @@ def audit_study(study: Study, options: AuditOptions | None = None) -> Audit:
     _refuse_unblinding_a_pooled_study(study, blinded)
     seed = meta.study.seed if options.seed is None else options.seed
     ctx = CheckContext(seed=seed, blinded=blinded, quick=options.quick, strict=options.strict)
+    withhold = blinded and (meta.study.withhold_pooled if options.withhold_pooled is None else options.withhold_pooled)
     results: list[CheckResult] = []
     listing: list[LeftOut] | None = [] if options.list_left_out else None
     for spec in meta.outcomes:
         assembled = assemble_outcome(study, spec, ctx)
-        results.extend(run_checks_for_outcome(study, spec, ctx, options.checks, assembled))
+        found = run_checks_for_outcome(study, spec, ctx, options.checks, assembled)
+        results.extend([withhold_pooled_numbers(r) for r in found] if withhold else found)
         if listing is not None and assembled[0] is not None:
             listing.extend(left_out(assembled[0], study.participants["subject"]))
     prov = Provenance(
@@ -271,9 +320,10 @@ def audit_study(study: Study, options: AuditOptions | None = None) -> Audit:
         outcomes=[outcome_summary(study, s) for s in meta.outcomes],
         results=results,
         provenance=prov,
-        cautions=list(CAUTIONS),
+        cautions=audit_cautions(meta.study.interim),
         left_out=listing,
         checks=checks_in(results),
+        report=report_info(meta.study, blinded, withhold),
     )
 
 
@@ -288,6 +338,13 @@ def _refuse_unblinding_a_pooled_study(study: Study, blinded: bool) -> None:
                                             "but the study is pooled (blinded, with no arms)",
                                             "audit it blinded, or declare arms and control_arm and give the "
                                             "arm column")])
+
+
+def report_info(info, blinded: bool, withhold: bool) -> ReportInfo:
+    """The cover fields of the report, from study.toml's [study] table, and what a blinded audit withholds."""
+    return ReportInfo(data_cut="" if info.data_cut is None else info.data_cut.isoformat(),
+                      report_version=info.report_version, author=info.author, interim=info.interim,
+                      withheld=withheld_items(blinded, withhold))
 
 
 def checks_in(results: list[CheckResult]) -> list[CheckInfo]:

@@ -14,7 +14,9 @@ from typing import Any
 
 SCHEMA_VERSION = "1.2"
 """1.1: the ``checks`` list (id, title, order, summary of every check in the audit).
-1.2: every estimate carries a stable ``key`` (and ``arm`` when it describes one of several contrasts)."""
+1.2: every estimate carries a stable ``key`` (and ``arm`` when it describes one of several contrasts);
+each result's ``recommendation`` and the audit's ``report`` block (data cut, version, author,
+interim, what a blinded audit withholds); readers of 1.1 files ignore neither, as both are additions."""
 
 
 class Verdict(str, Enum):
@@ -177,6 +179,8 @@ class CheckResult:
     method: str = ""
     reason: str = ""
     """Why the check is not assessable, when it is not."""
+    recommendation: str = ""
+    """The analysis this check recommends for the outcome, from what it concluded ("" when it has none)."""
 
     def to_dict(self) -> dict[str, Any]:
         return _without_drawings(_clean(asdict(self)))
@@ -219,6 +223,18 @@ class LeftOut:
 
 
 @dataclass(frozen=True)
+class ReportInfo:
+    """What the cover of a report says about the report itself (from study.toml's [study] table)."""
+
+    data_cut: str = ""
+    report_version: str = ""
+    author: str = ""
+    interim: bool = False
+    withheld: list[str] = field(default_factory=list)
+    """What a blinded audit leaves out, one phrase each (empty in an unblinded audit)."""
+
+
+@dataclass(frozen=True)
 class Provenance:
     """What the audit was computed from and with: enough to reproduce it byte for byte."""
 
@@ -251,6 +267,8 @@ class Audit:
     checks: list[CheckInfo] = field(default_factory=list)
     """The checks that produced ``results``, in report order (so that rendering needs no registry)."""
     schema_version: str = SCHEMA_VERSION
+    report: ReportInfo = field(default_factory=ReportInfo)
+    """The cover fields and, in a blinded audit, what it withholds."""
 
     def to_dict(self) -> dict[str, Any]:
         d = _clean(asdict(self))

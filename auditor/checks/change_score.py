@@ -621,6 +621,33 @@ def decide(planned: str, parts: dict[str, Part], r, cost) -> tuple[Verdict, str]
     return Verdict.SOUND, f"{prefix} suits these data (r {fmt(r.r)}, no evidence of nonlinearity in baseline)."
 
 
+def recommended_analysis(planned: str, verdict: Verdict, parts: dict[str, Part]) -> str:
+    """The analysis this check recommends, from its verdict: for a change-type plan, ANCOVA on follow-up
+    with a flexible baseline once change costs materially or an assumption fails (proportional odds for
+    an ordinal or bounded scale), the planned analysis when sound; for other plans, the baseline-adjusted
+    analysis it judged."""
+    ordinal = parts["interval"].sub.verdict != Verdict.SOUND and "ordinal" in parts["interval"].phrase
+    flexible = "ANCOVA on follow-up with a flexible (spline) baseline" + (
+        ", or a proportional-odds ANCOVA" if ordinal else "")
+    if planned in CHANGE_PLANS:
+        if verdict is Verdict.SOUND:
+            return f"the planned {PLAN_WORDS.get(planned, planned)} analysis"
+        return flexible if verdict is Verdict.UNSUPPORTED else f"{flexible}; or the planned analysis with its cost stated"
+    if planned == "follow-up-only":
+        return ("ANCOVA on follow-up adjusted for baseline" if verdict is not Verdict.SOUND
+                else "the planned follow-up-only analysis")
+    awkward = any(parts[k].sub.verdict != Verdict.SOUND for k in ("bounds", "interval", "scale"))
+    if verdict is Verdict.SOUND:
+        return ("ANCOVA on follow-up adjusted for baseline, rather than percent change" if planned == "percent-change"
+                else "the planned baseline-adjusted analysis (ANCOVA)")
+    return "ANCOVA on follow-up with a flexible (spline) baseline" + (
+        ", or a proportional-odds ANCOVA" if awkward else "")
+
+
+PLAN_WORDS = {"change": "change-from-baseline", "responder": "change-based responder",
+              "repeated-with-baseline-response": "longitudinal"}
+
+
 @register(CHECK_ID, "Change-score assumptions", _applies, order=20,
           summary="Tests each assumption that subtracting baseline needs and what the planned analysis "
                   "costs against ANCOVA with a flexible baseline.")
@@ -692,7 +719,7 @@ def run(data, ctx: CheckContext):
     verdict, headline = decide(data.spec.planned_analysis, parts, r, cost)
     return result(check, data, verdict, headline, subfindings=[p.sub for p in parts.values()],
                   estimates=estimates, tables=tables, figures=_figures(data, df, arms, flex_fit, model, ctx.seed),
-                  caveats=caveats,
+                  caveats=caveats, recommendation=recommended_analysis(data.spec.planned_analysis, verdict, parts),
                   references=cite(["frison-pocock-1992", "clifton-2019", "vickers-altman-2001",
                                    "durrleman-simon-1989", "stone-koo-1985", "box-cox-1964", "glejser-1969", "mchorney-tarlov-1995",
                                    "terwee-2007", "barnett-2005", "mccullagh-1980", "holm-1979"]),

@@ -234,6 +234,7 @@ def run(data, ctx: CheckContext):
     figure = _figure(df, arms, spec, ctx, _expected_rates(rate, arms, cols))
     return result(check, data, verdict, headline, subfindings=subs, estimates=estimates, tables=tables,
                   figures=[figure], caveats=caveats + _fit_caveats(fit_warnings),
+                  recommendation=recommended_analysis(verdict),
                   references=cite(["cameron-trivedi-2013", "wedderburn-1974", "kruskal-wallis-1952"]),
                   method="Observation time summarised by its coefficient of variation (equal below 0.10, a "
                          "convention); Kruskal-Wallis test of time across arms; Poisson log-linear models of the "
@@ -242,6 +243,14 @@ def run(data, ctx: CheckContext):
                          "when counts are proportional to time). Unsupported when time differs between arms "
                          f"(p < {ARM_TIME_ALPHA:g}) and the count ratio differs from the rate ratio by a factor of "
                          f"{MATERIAL_RATIO:g} or more (a convention).")
+
+
+def recommended_analysis(verdict: Verdict) -> str:
+    """The analysis this check recommends: the planned count comparison when observation times are
+    nearly equal (sound), a rate model otherwise."""
+    if verdict is Verdict.SOUND:
+        return "the planned comparison of counts (observation times are nearly equal)"
+    return "a rate model of the counts with log observation time as offset (Poisson or negative binomial)"
 
 
 def _arm_view(ctx, data, arms) -> str:

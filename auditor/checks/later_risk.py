@@ -553,6 +553,7 @@ def run(data, ctx: CheckContext):
     view = _View(an, data.spec, inputs, ctx.level)
     verdict = overall_verdict(an)
     return result(check, data, verdict, view.headline(verdict), subfindings=view.subfindings(),
+                  recommendation=recommended_analysis(an, verdict),
                   estimates=view.estimates(),
                   tables=view.tables(), figures=view.figures(), caveats=view.caveats(),
                   references=cite(["durrleman-simon-1989", "peduzzi-1996", "stone-koo-1985", "wilks-1938", "akaike-1974",
@@ -608,6 +609,20 @@ def finding_verdicts(an: Analysis) -> dict[str, Verdict]:
         else:
             out[f"{_key(d)}-information"] = out[f"{_key(d)}-weights"] = Verdict.SOUND
     return out
+
+
+def recommended_analysis(an: Analysis, verdict: Verdict) -> str:
+    """The analysis this check recommends: with no declared change or ratio definition, risk modelled on
+    the latest value (flexibly when it turns); with one, the declared definition when sound, else a model
+    of risk on both values."""
+    if an.judged is None:
+        return ("risk modelled on the latest value with a flexible (spline) term, not a one-sided cutoff"
+                if verdict is not Verdict.SOUND else "risk modelled on the latest value")
+    label = an.judged.definition.label
+    if verdict is Verdict.SOUND:
+        return f"the declared {label}-based definition"
+    both = "risk modelled on the latest and the earlier value together, each with a flexible term"
+    return both if verdict is Verdict.UNSUPPORTED else f"{both}, as a sensitivity analysis to the declared {label}-based definition"
 
 
 def overall_verdict(an: Analysis) -> Verdict:

@@ -179,6 +179,18 @@ def _axis(spec, what: str) -> str:
 # --------------------------------------------------------------------------- undefined or unstable
 
 
+def recommended_analysis(spec, verdict: Verdict) -> str:
+    """The analysis this check recommends: the planned one when sound; otherwise, for percent change, the
+    log-scale ANCOVA (a ratio of geometric means), and for a responder rule, ANCOVA on the continuous
+    outcome with the responder shares derived from it."""
+    responder = spec.planned_analysis == "responder"
+    if verdict is Verdict.SOUND:
+        return "the planned responder analysis" if responder else "the planned percent-change analysis"
+    if responder:
+        return "ANCOVA on the continuous follow-up adjusted for baseline, with responder shares derived from it"
+    return "ANCOVA of log follow-up adjusted for log baseline (a ratio of geometric means)"
+
+
 def _definedness_verdict(ins: rc.Instability) -> Verdict:
     """Unsupported: any baseline at or below zero, 5% or more near zero, or a change of 1000% or more;
     caution: any baseline near zero; sound otherwise."""
@@ -717,6 +729,7 @@ def run(data, ctx: CheckContext):
     withheld = ctx.blinded and data.design == "parallel" and spec.planned_analysis != "responder"
     return result(check, data, verdict, _headline(spec, verdict, out.clauses, withheld), subfindings=out.subfindings,
                   estimates=out.estimates, tables=out.tables, figures=out.figures, caveats=out.caveats,
+                  recommendation=recommended_analysis(spec, verdict),
                   references=cite(out.references),
                   method="Percent change 100(f - b)/b and log ratio log(f/b) per participant; near zero: baseline "
                          "below 5% of the median. Effects: percent change on arm; ANCOVA of log follow-up on a "

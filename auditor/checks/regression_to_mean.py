@@ -1041,6 +1041,20 @@ def recommendation(design, second_share: float | None) -> str:
     return second
 
 
+def recommended_analysis(design, verdict: Verdict, second_share: float | None = None) -> str:
+    """The analysis this check recommends: with no material shift, no change of plan; with one, the
+    randomised comparison adjusted for baseline rather than within-arm change (parallel design), or a
+    concurrent control or second baseline (single-arm design)."""
+    if verdict is Verdict.SOUND:
+        return "no change of plan for regression to the mean"
+    extra = recommendation(design, second_share)
+    if design in WITHIN_ARM_DESIGNS:
+        return f"do not read the before-after change as an effect; {extra}"
+    lead = ("the comparison between arms, adjusted for baseline (ANCOVA); do not read within-arm change, "
+            "baseline subgroups or responder shares as effects")
+    return f"{lead}; {extra}" if extra else lead
+
+
 def no_one_out_headline(spec, sel, finds, scale, rtm, target, share_out: float) -> str:
     """Headline for a declared criterion that excludes no one: says so, with the computed size."""
     lead = _criterion_text(spec, sel, finds)
@@ -1129,6 +1143,7 @@ def no_selection_result(check, data, finds, out: Out):
     return result(check, data, Verdict.SOUND,
                   f"No selection on this outcome was declared or detected: regression to the mean is not expected "
                   f"to bias within-arm change or the comparison ({why}).", subfindings=out.subfindings, estimates=out.estimates,
+                  recommendation=recommended_analysis(data.design, Verdict.SOUND),
                   references=cite(["barnett-2005"]), method=_METHOD)
 
 
@@ -1189,6 +1204,7 @@ def run(data, ctx: CheckContext):
             else headline(spec, data.design, sel, finds, scale, rtm, target, obs, second, ctx, sigma, material))
     return result(check, data, verdict, text,
                   subfindings=out.subfindings, estimates=out.estimates, figures=out.figures, caveats=out.caveats,
+                  recommendation=recommended_analysis(data.design, verdict, second),
                   references=cite(["barnett-2005", "shrout-fleiss-1979", "pearson-1903", "cohen-1991",
                                    "kelley-1947"] + (["goodman-1960"] if sel.column != "baseline" else [])),
                   method=_METHOD)

@@ -120,4 +120,7 @@ def audit_user_strings(audit) -> list[str]:
         out += [o.get("param"), o.get("label"), o.get("unit"), o.get("baseline_visit"), o.get("main_followup"),
                 o.get("screening_visit"), o.get("risk_endpoint"), *(o.get("followup_visits") or [])]
     out += [r.outcome_label for r in audit.results]
+    report = getattr(audit, "report", None)
+    if report is not None:
+        out += [report.author, report.report_version]
     return [str(s) for s in out if s is not None]

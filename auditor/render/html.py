@@ -11,7 +11,7 @@ import markupsafe
 
 from ..results import Audit
 from .bidi import contained
-from .view import audit_view
+from .view import audit_view, memo_view
 
 
 def _template_dir() -> Path:
@@ -72,5 +72,31 @@ def render_view(template: str, view: dict, paper: str = "A4") -> str:
     return environment().get_template(template).render(v=view, css=stylesheet(paper))
 
 
+def css_string(text: str) -> str:
+    """``text`` as a CSS string literal (backslash, quote and line breaks escaped)."""
+    body = text.replace("\\", "\\\\").replace('"', '\\"').replace("\n", "\\a ")
+    return f'"{body}"'
+
+
+MARK_COLOUR = {"closed": "#a93226", "open": "#566573"}
+
+
+def marking_css(text: str, kind: str = "closed") -> str:
+    """The page rule that prints the report's marking (closed or open) at the top of every PDF page."""
+    return ("\n@page { @top-center { content: " + css_string(text) + "; font-family: \"DejaVu Sans\", sans-serif; "
+            f"font-size: 8pt; font-weight: bold; color: {MARK_COLOUR[kind]}; }} }}\n")
+
+
+def render_marked(template: str, view: dict, paper: str = "A4") -> str:
+    """A report template rendered with the view's marking on every printed page."""
+    css = stylesheet(paper) + marking_css(view["marking"], view["marking_class"])
+    return environment().get_template(template).render(v=view, css=css)
+
+
 def report_html(audit: Audit, paper: str = "A4") -> str:
-    return render_view("report.html.j2", audit_view(audit), paper)
+    return render_marked("report.html.j2", audit_view(audit), paper)
+
+
+def memo_html(audit: Audit, paper: str = "A4") -> str:
+    """memo.html: the short report (cover, verdict grid, one paragraph per outcome, cautions, sources)."""
+    return render_marked("memo.html.j2", memo_view(audit), paper)

@@ -28,6 +28,31 @@ PLANNED_TEXT = {
 }
 
 
+CLOSED_MARK = "CLOSED REPORT – CONFIDENTIAL: results by arm. Closed session only; do not circulate."
+OPEN_MARK = "OPEN REPORT: pooled data only, no results by arm."
+SUMMARIES_MARK = "AUDIT FROM PUBLISHED SUMMARIES: the paper's reported numbers only, no participant data."
+
+
+def marking(blinded: bool) -> str:
+    """The marking every page of the report carries: closed (confidential, by arm) for an unblinded
+    audit, open (pooled) for a blinded one."""
+    return OPEN_MARK if blinded else CLOSED_MARK
+
+
+def audit_marking(audit: Audit) -> tuple[str, str]:
+    """The marking and its class for an audit: an audit from published summaries holds nothing
+    confidential (the numbers are the paper's), so it is marked as what it is instead."""
+    if isinstance(audit, SummaryAudit):
+        return SUMMARIES_MARK, "open"
+    return marking(audit.blinded), "open" if audit.blinded else "closed"
+
+
+def outcome_heading(label: str, param: str) -> str:
+    """How an outcome is named in headings and captions: its label, with the code in brackets when the
+    label is not the code itself."""
+    return label if not label or label == param else f"{label} ({param})"
+
+
 def number(x, digits: int = 3) -> str:
     """A value for display: integers with thousands separators, other numbers to 3 significant digits."""
     if x is None:
@@ -119,6 +144,7 @@ def result_view(r: CheckResult, figure_no: list[int]) -> dict:
         "verdict_class": VERDICT_CLASS[r.verdict],
         "headline": r.headline,
         "reason": r.reason,
+        "recommendation": r.recommendation,
         "method": r.method,
         "subfindings": [{"question": s.question, "verdict": s.verdict.value,
                          "verdict_class": VERDICT_CLASS[s.verdict], "evidence": s.evidence}
@@ -150,13 +176,14 @@ def _audit_strings(audit: Audit) -> dict:
             cells.append(None if r is None else {"verdict": r.verdict.value,
                                                  "verdict_class": VERDICT_CLASS[r.verdict],
                                                  "anchor": f"{o['param']}--{c.id}"})
-        grid.append({"param": o["param"], "label": o["label"], "cells": cells})
+        grid.append({"param": o["param"], "label": o["label"], "heading": outcome_heading(o["label"], o["param"]),
+                     "cells": cells})
     figure_no = [0]
     sections = []
     for o in audit.outcomes:
         results = [result_view(r, figure_no) for r in audit.results if r.outcome == o["param"]]
         sections.append({
-            "param": o["param"], "label": o["label"],
+            "param": o["param"], "label": o["label"], "heading": outcome_heading(o["label"], o["param"]),
             "facts": o.get("facts") or [
                 ("Scale", o["scale"] + (f" (levels {', '.join(number(v) for v in o['levels'])})"
                                         if o["levels"] else "")),
@@ -208,6 +235,10 @@ def _audit_strings(audit: Audit) -> dict:
         "left_out": None if audit.left_out is None else left_out_view(audit),
         "schema_version": audit.schema_version,
         **summary_view(audit),
+        "marking": audit_marking(audit)[0],
+        "marking_class": audit_marking(audit)[1],
+        "cover": cover_view(audit),
+        "withheld": list(audit.report.withheld),
     }
 
 
@@ -221,9 +252,80 @@ def summary_view(audit: Audit) -> dict:
                           "evidence": c.evidence, "request": c.request} for c in audit.comments]}
 
 
+def cover_view(audit: Audit) -> list[tuple[str, str]]:
+    """The report's own fields for the cover (data cut, version, author, interim look), those given only."""
+    r = audit.report
+    rows = [("Data cut", r.data_cut), ("Report version", r.report_version), ("Prepared by", r.author)]
+    out = [(k, v) for k, v in rows if v]
+    if r.interim:
+        out.append(("Look", "interim analysis (not the final analysis)"))
+    return out
+
+
+VERDICT_WORST_FIRST = sorted(Verdict, key=lambda v: -v.rank)
+
+
+def outcome_paragraph(o: dict, results: list[CheckResult], order: dict[str, int]) -> dict:
+    """One outcome's memo paragraph, assembled from its results: the planned analysis, the worst finding's
+    verdict and headline (which states the consequence with its interval), the recommended analysis of
+    that finding, the other findings that are not sound (verdict and headline), and the sound ones by title.
+    Ties between equally bad findings go to one that recommends an analysis, then to the check that comes
+    first in the report."""
+    ranked = sorted(results, key=lambda r: (-r.verdict.rank, not r.recommendation, order.get(r.check_id, 0)))
+    advised = [r for r in ranked if r.recommendation]
+    lead = ranked[0] if ranked else None
+    advice = advised[0].recommendation if advised else ""
+    others = [r for r in ranked[1:] if r.verdict is not Verdict.SOUND]
+    sound = [r.check_title for r in ranked[1:] if r.verdict is Verdict.SOUND]
+    return {
+        "param": o["param"],
+        "heading": outcome_heading(o["label"], o["param"]),
+        "planned": PLANNED_TEXT.get(o["planned_analysis"], o["planned_analysis"]),
+        "lead": None if lead is None else {"check": lead.check_title, "verdict": lead.verdict.value,
+                                            "verdict_class": VERDICT_CLASS[lead.verdict],
+                                            "headline": lead.headline},
+        "recommendation": _sentence(advice) if advice else "",
+        "recommended_by": advised[0].check_title if advised else "",
+        "others": [{"check": r.check_title, "verdict": r.verdict.value, "verdict_class": VERDICT_CLASS[r.verdict],
+                    "headline": r.headline} for r in others],
+        "sound": ", ".join(sound),
+        "cited": sorted({k for r in ranked if r is lead or r in others for k in r.references}),
+    }
+
+
+def _sentence(text: str) -> str:
+    """``text`` with a capital first letter and a closing full stop."""
+    text = text.strip()
+    return text[:1].upper() + text[1:] + ("" if text.endswith(".") else ".")
+
+
+def memo_view(audit: Audit) -> dict:
+    """What the short memo prints: the cover, the verdict grid, one paragraph per outcome, the cautions and
+    the sources cited, as display strings (user text isolated as in the full report)."""
+    full = _audit_strings(audit)
+    order = {c.id: c.order for c in audit.checks}
+    paragraphs = [outcome_paragraph(o, [r for r in audit.results if r.outcome == o["param"]], order)
+                  for o in audit.outcomes]
+    keys = ("study_id", "title", "design", "arms", "control_arm", "blinded", "checks", "grid", "references",
+            "cautions", "marking", "marking_class", "cover", "withheld", "schema_version")
+    view = {k: full[k] for k in keys}
+    cited = sorted({k for p in paragraphs for k in p.pop("cited")})
+    view["references"] = [{"key": k, "text": REFERENCES[k]} for k in cited]
+    view.update(paragraphs=paragraphs, analysis_date=full["provenance"]["analysis_date"],
+                tool_version=full["provenance"]["tool_version"],
+                counts=verdict_tally(audit))
+    return UserText(audit_user_strings(audit)).view(view)
+
+
+def verdict_tally(audit: Audit) -> str:
+    """'3 unsupported, 4 caution, 19 sound': how many findings have each verdict, worst first."""
+    counts = [(v, sum(r.verdict is v for r in audit.results)) for v in VERDICT_WORST_FIRST]
+    return ", ".join(f"{n} {v.value}" for v, n in counts if n)
+
+
 def left_out_view(audit: Audit) -> list[dict]:
     """The participant listing grouped by outcome, in the report's outcome order."""
     labels = {o["param"]: o["label"] for o in audit.outcomes}
-    return [{"param": p, "label": labels[p],
+    return [{"param": p, "label": labels[p], "heading": outcome_heading(labels[p], p),
              "rows": [{"subject": x.subject, "reason": x.reason} for x in audit.left_out if x.outcome == p]}
             for p in labels]

@@ -43,6 +43,13 @@ def test_every_estimate_has_a_stable_key():
     assert a.arms and not any(arm.lower() in k for k in keys for arm in a.arms)
 
 
+def test_marked_as_published_summaries_not_as_a_closed_report():
+    from auditor.render.view import audit_view
+
+    v = audit_view(_audit())
+    assert "PUBLISHED SUMMARIES" in v["marking"] and "CLOSED" not in v["marking"]
+
+
 def test_run_writes_labelled_report_and_comments(tmp_path):
     out = tmp_path / "review_out"
     res = CliRunner().invoke(app, ["run", str(EXAMPLE), "-o", str(out), "--quiet"])
