@@ -233,7 +233,8 @@ def audit_study(study: Study, options: AuditOptions | None = None) -> Audit:
     meta = study.metadata
     blinded = meta.study.blinded if options.blinded is None else options.blinded
     seed = meta.study.seed if options.seed is None else options.seed
-    ctx = CheckContext(seed=seed, blinded=blinded, quick=options.quick, strict=options.strict)
+    ctx = CheckContext(seed=seed, blinded=blinded, quick=options.quick, strict=options.strict,
+                       thresholds=meta.thresholds)
     results: list[CheckResult] = []
     listing: list[LeftOut] | None = [] if options.list_left_out else None
     for spec in meta.outcomes:
@@ -250,6 +251,7 @@ def audit_study(study: Study, options: AuditOptions | None = None) -> Audit:
         analysis_date=_analysis_date(study, options),
         seed=seed,
         platform=f"Python {platform.python_version()} on {platform.system()} {platform.machine()}",
+        thresholds=meta.thresholds.as_record(),
     )
     return Audit(
         study_id=meta.study.id,

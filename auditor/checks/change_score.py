@@ -36,7 +36,8 @@ trend, Box-Cox power, slope 1), Holm-adjusted together; also the level of the in
 (convention of this tool)."""
 MATERIAL_RATIO = 1.10
 """Materiality of a sample-size cost: 10% more participants for the same power, i.e. an efficiency
-below 1/1.10 (a convention of this tool)."""
+below 1/1.10 (a convention of this tool). The default of ``sample_size_ratio`` in study.toml's
+``[thresholds]``; a check reads the study's value from ``ctx.thresholds``."""
 BOUND_SHARE = 0.15
 """Share at a bound above which a floor or ceiling is flagged (McHorney and Tarlov 1995; Terwee et al. 2007)."""
 HEAP_SHARE = 0.20
@@ -329,8 +330,10 @@ def slope_part(test, adj, p_adj) -> Part:
 
 
 def efficiency_part(df, arms, ctx) -> tuple[Part, object, object]:
-    """The trial's own cost of change against ANCOVA (variance-aware Frison-Pocock ratio) and its CI."""
-    q = f"What does subtracting baseline cost against ANCOVA (material above {_pct(MATERIAL_RATIO)} more participants)?"
+    """The trial's own cost of change against ANCOVA (variance-aware Frison-Pocock ratio) and its CI,
+    graded against the study's sample-size threshold (``ctx.thresholds.sample_size_ratio``)."""
+    material_ratio = ctx.thresholds.sample_size_ratio
+    q = f"What does subtracting baseline cost against ANCOVA (material above {_pct(material_ratio)} more participants)?"
     r = pearson(df["baseline"], df["followup"], ctx.level)
     cost = own_cost(df["baseline"], df["followup"], df["arm"].to_numpy() if len(arms) > 1 else None, ctx.level)
     eq = compare_with_ci("change", "ancova", r.r, r.lower, r.upper)
@@ -350,9 +353,9 @@ def efficiency_part(df, arms, ctx) -> tuple[Part, object, object]:
         estimate("Sample-size ratio, change / follow-up only (equal variances)", change_vs_fu.ratio,
                  change_vs_fu.lower, change_vs_fu.upper, note="2(1-r); CI from the CI of r"),
     ]
-    if cost.lower > MATERIAL_RATIO:
+    if cost.lower > material_ratio:
         verdict, phrase = Verdict.UNSUPPORTED, f"change needs {_cost_ci(cost)} than ANCOVA"
-    elif cost.ratio > MATERIAL_RATIO:
+    elif cost.ratio > material_ratio:
         verdict, phrase = Verdict.CAUTION, f"change needs {_cost_ci(cost)} than ANCOVA"
     else:
         verdict, phrase = Verdict.SOUND, ""
@@ -563,7 +566,7 @@ ASSUMPTIONS = ("interval", "bounds", "linearity", "selection", "scale")
 """The sub-findings whose detectable departure matters to a change analysis and so raises caution."""
 
 
-def decide(planned: str, parts: dict[str, Part], r, cost) -> tuple[Verdict, str]:
+def decide(planned: str, parts: dict[str, Part], r, cost, material_ratio: float = MATERIAL_RATIO) -> tuple[Verdict, str]:
     """Overall verdict and headline for the planned analysis.
 
     For a change plan the verdict follows the trial's own cost of change against ANCOVA: unsupported
@@ -573,7 +576,7 @@ def decide(planned: str, parts: dict[str, Part], r, cost) -> tuple[Verdict, str]
     p-value, so it never decides the verdict alone."""
     eff = parts["efficiency"]
     soft = [parts[k].phrase for k in ASSUMPTIONS if parts[k].sub.verdict != Verdict.SOUND and parts[k].phrase]
-    material = f"{_pct(MATERIAL_RATIO)} this tool treats as material"
+    material = f"{_pct(material_ratio)} this tool treats as material"
     lead = f"Change from baseline needs {_cost_ci(cost)} than ANCOVA in this trial"
     if planned in CHANGE_PLANS:
         ordinal = parts["interval"].sub.verdict != Verdict.SOUND and "ordinal" in parts["interval"].phrase
@@ -675,7 +678,7 @@ def run(data, ctx: CheckContext):
             table, notes = repeated_caveat_and_fit(data, ctx, arms)
             tables.append(table)
             caveats += notes
-    verdict, headline = decide(data.spec.planned_analysis, parts, r, cost)
+    verdict, headline = decide(data.spec.planned_analysis, parts, r, cost, ctx.thresholds.sample_size_ratio)
     return result(check, data, verdict, headline, subfindings=[p.sub for p in parts.values()],
                   estimates=estimates, tables=tables, figures=_figures(data, df, arms, flex_fit, model, ctx.seed),
                   caveats=caveats,
@@ -688,5 +691,7 @@ def run(data, ctx: CheckContext):
                          "tests and the t test of slope 1 Holm-adjusted together at a family-wise 5%; shares at bounds "
                          "(15% threshold); the trial's own sample-size ratio of change to ANCOVA, "
                          "var(change) / residual variance of ANCOVA within arm (Frison and Pocock 1992), with a "
-                         "delta-method CI, material above 10% more participants (a convention of this tool); the "
-                         "four analyses fitted on the same participants.")
+                         "delta-method CI, material above "
+                         f"{_pct(ctx.thresholds.sample_size_ratio)} more participants (sample_size_ratio "
+                         f"{ctx.thresholds.sample_size_ratio:g}; study.toml [thresholds], default a convention of "
+                         "this tool); the four analyses fitted on the same participants.")

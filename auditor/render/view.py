@@ -16,6 +16,7 @@ VERDICT_CLASS = {
     Verdict.UNSUPPORTED: "v-unsupported",
     Verdict.NOT_ASSESSABLE: "v-na",
     Verdict.TOOL_DEFECT: "v-defect",
+    Verdict.FOR_INFORMATION: "v-info",
 }
 
 PLANNED_TEXT = {
@@ -201,6 +202,7 @@ def _audit_strings(audit: Audit) -> dict:
             "options": sorted((k, str(v)) for k, v in p.options.items()),
             "seed": p.seed,
             "platform": p.platform,
+            "thresholds": sorted((k, number(v)) for k, v in p.thresholds.items()),
         },
         "left_out": None if audit.left_out is None else left_out_view(audit),
         "schema_version": audit.schema_version,
