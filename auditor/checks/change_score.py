@@ -11,7 +11,7 @@ Thresholds are module constants documented in docs/methods/change-score.md.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -164,12 +164,11 @@ def edge_sides(b, spec) -> tuple[str | None, str]:
 def edge_test(data, df, ctx):
     """The truncation-edge test on baseline where it may run: (result or None, scale name, note).
 
-    Not run when an entry criterion is declared (the values it selected would confirm it), with too
-    few distinct values, when more than BOUND_SHARE of baseline sits at a declared bound, or when both
-    ends sit at the scale's bounds."""
+    With a declared entry criterion it runs on the unselected side only (criterion ">= c": the upper
+    edge), since the values the criterion selected would confirm it. Not run with too few distinct
+    values, when more than BOUND_SHARE of baseline sits at a declared bound, or when every side it may
+    examine sits at the scale's bounds."""
     b = df["baseline"].to_numpy()
-    if data.spec.entry_criterion is not None:
-        return None, "", "the edge test is not run on values the declared criterion selected"
     if len(np.unique(b)) < EDGE_MIN_DISTINCT:
         return None, "", "too few distinct values for an edge test"
     s = bound_shares(b, data.spec.lower_bound, data.spec.upper_bound)
@@ -178,6 +177,7 @@ def edge_test(data, df, ctx):
                           f"so the edge test's continuous reference does not apply (see the floor and ceiling "
                           f"sub-finding)")
     side, note = edge_sides(b, data.spec)
+    side, note = unselected_side(side, note, data.spec.entry_criterion)
     if side is None:
         return None, "", note
     tested = edge_test_scale(b, data.spec.log_scale)  # the same scale as the regression-to-the-mean check
@@ -185,10 +185,45 @@ def edge_test(data, df, ctx):
     return test, ("" if tested.name == "raw" else f" ({tested.name} scale)"), note
 
 
+def unselected_side(side: str | None, note: str, criterion) -> tuple[str | None, str]:
+    """The sides the edge test may examine, less the side a declared criterion selected on: a
+    criterion ">= c" (or "> c") truncates the lower end, so only the upper edge is tested, and vice
+    versa. Returns (side or None, note)."""
+    if criterion is None or side is None:
+        return side, note
+    free = "upper" if criterion.direction == "above" else "lower"
+    skipped = f"not tested at the {'lower' if free == 'upper' else 'upper'} end, which the declared criterion selected"
+    note = f"{skipped}; {note}" if note else skipped
+    return (free if side in ("either", free) else None), note
+
+
+def unselected_edge(part: Part, df, test, scale, note, p_adj) -> Part:
+    """The declared-criterion selection finding with the edge test of the unselected side added: a
+    sharp edge there (Holm-adjusted p below ALPHA) suggests selection beyond the declared criterion
+    and raises a caution; otherwise the evidence says no edge was found there."""
+    if test is None:
+        return Part(replace(part.sub, evidence=f"{part.sub.evidence}; {note}") if note else part.sub,
+                    part.estimates, part.phrase)
+    b = df["baseline"].to_numpy()
+    edge = float(np.min(b) if test.edge_side == "lower" else np.max(b))
+    ps = f"{fmt_p(test.p_value)}, Holm-adjusted {fmt_p(p_adj)}"
+    est = [estimate(f"Truncation-edge test{scale} on the unselected side, likelihood-ratio statistic",
+                    test.statistic, p=test.p_value,
+                    note=f"{test.edge_side} edge at {fmt(edge)}; Holm-adjusted p {p_adj:.3g}")]
+    if p_adj < ALPHA:
+        ev = (f"{part.sub.evidence}; the unselected {test.edge_side} end also has a sharp edge at {fmt(edge)}{scale} "
+              f"({ps}): possible selection beyond the declared criterion")
+        phrase = f"a sharp {test.edge_side} edge in baseline beyond the declared criterion ({ps})"
+        return Part(replace(part.sub, verdict=Verdict.CAUTION, evidence=ev), part.estimates + est,
+                    part.phrase or phrase)
+    ev = f"{part.sub.evidence}; no evidence of a sharp edge at the unselected {test.edge_side} end ({ps})"
+    return Part(replace(part.sub, evidence=ev), part.estimates + est, part.phrase)
+
+
 def selection_part(data, df, ctx, test, scale, note, p_adj) -> Part:
     q = "Did the baseline value select the participants?"
     if data.spec.entry_criterion is not None:
-        return declared_selection_part(data, ctx)
+        return unselected_edge(declared_selection_part(data, ctx), df, test, scale, note, p_adj)
     if test is None:
         return Part(SubFinding("selection", q, Verdict.SOUND, f"no entry criterion declared; {note}"), [])
     b = df["baseline"].to_numpy()
