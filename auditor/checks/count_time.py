@@ -35,6 +35,8 @@ add_reference("cameron-trivedi-2013", "Cameron AC, Trivedi PK. Regression Analys
                                       "Cambridge University Press, 2013.")
 add_reference("wedderburn-1974", "Wedderburn RWM. Quasi-likelihood functions, generalized linear models, "
                                  "and the Gauss-Newton method. Biometrika 1974;61:439-447.")
+add_reference("stefanski-boos-2002", "Stefanski LA, Boos DD. The calculus of M-estimation. Am Stat "
+                                     "2002;56:29-38.")
 add_reference("kruskal-wallis-1952", "Kruskal WH, Wallis WA. Use of ranks in one-criterion variance "
                                      "analysis. J Am Stat Assoc 1952;47:583-621.")
 
@@ -244,7 +246,8 @@ def run(data, ctx: CheckContext):
     figure = _figure(df, arms, spec, ctx, _expected_rates(rate, arms, cols))
     return result(check, data, verdict, headline, subfindings=subs, estimates=estimates, tables=tables,
                   figures=[figure], caveats=caveats + _fit_caveats(fit_warnings),
-                  references=cite(["cameron-trivedi-2013", "wedderburn-1974", "kruskal-wallis-1952"]),
+                  references=cite(["cameron-trivedi-2013", "wedderburn-1974", "kruskal-wallis-1952",
+                                   "stefanski-boos-2002"]),
                   method="Observation time summarised by its coefficient of variation (equal below 0.10, a "
                          "convention); Kruskal-Wallis test of time across arms; Poisson log-linear models of the "
                          "follow-up count with robust (HC0) standard errors: with log time as offset (the rate "
