@@ -618,7 +618,8 @@ def _responder(inp: _Inputs, spec, ctx: CheckContext, resp: np.ndarray, cost: _C
                          if verdict is Verdict.UNSUPPORTED else "")
                       + f" (about {fmt(c.inflation, 1)} times by normal theory)")
     elif c.inflation > ratio:
-        clause += f"; without the arms' data its interval is not sized, so it is not judged unsupported"
+        clause += ("; its interval is not sized here (no informative comparison between arms), so it is not "
+                   "judged unsupported")
     out.sub("dichotomy", "Does the responder rule keep most of the information (sample-size inflation below "
             f"{ratio:g} against ANCOVA)?", verdict, evidence, by_arm=empirical is not None)
     out.clauses["dichotomy"] = clause
@@ -630,7 +631,9 @@ def _dichotomy_verdict(inflation: float, normal_ok: bool, empirical: _Cost | Non
     """The normal-theory inflation is a point value with no interval, so on its own it raises caution
     at most (above ``ratio``); the trial's own efficiency, when informative, is graded by
     :func:`_efficiency_verdict` and alone can make the rule unsupported (its whole cost interval above
-    ``ratio``). The worse of the two."""
+    ``ratio``). The worse of the two. ``normal_ok`` (the normal fit predicts the responder share) is
+    reported in the evidence; it no longer changes the verdict, since the analytic tier is already
+    caution at most."""
     analytic = Verdict.CAUTION if inflation > ratio else Verdict.SOUND
     if empirical is None:
         return analytic
