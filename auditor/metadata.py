@@ -358,6 +358,9 @@ class OutcomeSpec(_Strict):
     """Only records whose parameter category (PARCAT1) is this value."""
     records: Optional[RecordRules] = None
     """Record selection for this outcome, overriding the study's [records] key by key."""
+    effect_basis: Literal["between-arm", "within-arm-change"] = "between-arm"
+    """What the trial reports as the treatment effect: the contrast between arms (default) or the
+    change within an arm from baseline (a before-after claim, which regression to the mean biases)."""
 
     @field_validator("levels")
     @classmethod
@@ -437,12 +440,35 @@ def _key(visit) -> str:
     return str(visit).strip()
 
 
+class Thresholds(_Strict):
+    """The materiality conventions the checks grade consequences by (``[thresholds]`` in study.toml).
+
+    Each default is a convention of this tool (docs/methods/verdicts.md); a statistician may set the
+    trial's own, and the values used are printed in every finding's method text and in the provenance."""
+
+    sample_size_ratio: Finite = Field(default=1.10, gt=1, le=10)
+    """Extra participants an analysis needs against the better one (change or percent change against
+    ANCOVA, a responder rule against the continuous analysis): material above this ratio."""
+    rtm_shift_sd: Finite = Field(default=0.10, gt=0, le=5)
+    """Expected shift from regression to the mean, in SDs of the unselected population."""
+    odds_ratio: Finite = Field(default=2.0, gt=1, le=1000)
+    """Odds ratio of the later event that a declared change or ratio definition ignores (or its inverse)."""
+    count_ratio: Finite = Field(default=1.10, gt=1, le=10)
+    """Factor by which the count ratio (time ignored) may differ from the rate ratio (or its inverse)."""
+    recoding_change: Finite = Field(default=0.10, gt=0, le=10)
+    """Relative change of a percent-change effect when equally valid ordinal codes are shifted by one."""
+
+    def as_record(self) -> dict:
+        return {k: float(v) for k, v in self.model_dump().items()}
+
+
 class StudyMetadata(_Strict):
     study: StudyInfo
     files: FilesInfo
     columns: ColumnMap = Field(default_factory=ColumnMap)
     outcomes: list[OutcomeSpec] = Field(min_length=1)
     records: RecordRules = Field(default_factory=RecordRules)
+    thresholds: Thresholds = Field(default_factory=Thresholds)
 
     def record_rules(self, spec: OutcomeSpec) -> RecordRules:
         """The record rules of one outcome: the study's, with the outcome's own keys in their place."""
@@ -482,6 +508,7 @@ _FIELDS_BY_SECTION = {
     ("records",): RecordRules.model_fields,
     ("outcomes", "records"): RecordRules.model_fields,
     ("outcomes", "responder"): ResponderRule.model_fields,
+    ("thresholds",): Thresholds.model_fields,
 }
 
 

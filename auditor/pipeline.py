@@ -290,7 +290,8 @@ def audit_study(study: Study, options: AuditOptions | None = None) -> Audit:
     blinded = meta.study.blinded if options.blinded is None else options.blinded
     _refuse_unblinding_a_pooled_study(study, blinded)
     seed = meta.study.seed if options.seed is None else options.seed
-    ctx = CheckContext(seed=seed, blinded=blinded, quick=options.quick, strict=options.strict)
+    ctx = CheckContext(seed=seed, blinded=blinded, quick=options.quick, strict=options.strict,
+                       thresholds=meta.thresholds)
     withhold = blinded and (meta.study.withhold_pooled if options.withhold_pooled is None else options.withhold_pooled)
     results: list[CheckResult] = []
     listing: list[LeftOut] | None = [] if options.list_left_out else None
@@ -309,6 +310,7 @@ def audit_study(study: Study, options: AuditOptions | None = None) -> Audit:
         analysis_date=_analysis_date(study, options),
         seed=seed,
         platform=f"Python {platform.python_version()} on {platform.system()} {platform.machine()}",
+        thresholds=meta.thresholds.as_record(),
     )
     return Audit(
         study_id=meta.study.id,

@@ -35,6 +35,8 @@ class Verdict(str, Enum):
     """The check could not be computed (too little data, a model that would not fit, blinding)."""
     TOOL_DEFECT = "tool defect"
     """A defect of the tool stopped the check; it says nothing about the data (please report it)."""
+    FOR_INFORMATION = "for information"
+    """A descriptive check that judges no analysis (it informs the others); ranked like sound."""
 
     @property
     def rank(self) -> int:
@@ -42,7 +44,7 @@ class Verdict(str, Enum):
 
 
 _VERDICT_RANK = {Verdict.SOUND: 0, Verdict.NOT_ASSESSABLE: 1, Verdict.CAUTION: 2, Verdict.UNSUPPORTED: 3,
-                 Verdict.TOOL_DEFECT: 4}
+                 Verdict.TOOL_DEFECT: 4, Verdict.FOR_INFORMATION: 0}
 
 
 def _clean(value: Any) -> Any:
@@ -246,6 +248,8 @@ class Provenance:
     analysis_date: str
     seed: int
     platform: str
+    thresholds: dict[str, float] = field(default_factory=dict)
+    """The materiality conventions every verdict was graded by (study.toml ``[thresholds]`` or defaults)."""
 
 
 @dataclass(frozen=True)

@@ -11,7 +11,7 @@ Thresholds are module constants documented in docs/methods/change-score.md.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -36,7 +36,8 @@ trend, Box-Cox power, slope 1), Holm-adjusted together; also the level of the in
 (convention of this tool)."""
 MATERIAL_RATIO = 1.10
 """Materiality of a sample-size cost: 10% more participants for the same power, i.e. an efficiency
-below 1/1.10 (a convention of this tool)."""
+below 1/1.10 (a convention of this tool). The default of ``sample_size_ratio`` in study.toml's
+``[thresholds]``; a check reads the study's value from ``ctx.thresholds``."""
 BOUND_SHARE = 0.15
 """Share at a bound above which a floor or ceiling is flagged (McHorney and Tarlov 1995; Terwee et al. 2007)."""
 HEAP_SHARE = 0.20
@@ -163,12 +164,11 @@ def edge_sides(b, spec) -> tuple[str | None, str]:
 def edge_test(data, df, ctx):
     """The truncation-edge test on baseline where it may run: (result or None, scale name, note).
 
-    Not run when an entry criterion is declared (the values it selected would confirm it), with too
-    few distinct values, when more than BOUND_SHARE of baseline sits at a declared bound, or when both
-    ends sit at the scale's bounds."""
+    With a declared entry criterion it runs on the unselected side only (criterion ">= c": the upper
+    edge), since the values the criterion selected would confirm it. Not run with too few distinct
+    values, when more than BOUND_SHARE of baseline sits at a declared bound, or when every side it may
+    examine sits at the scale's bounds."""
     b = df["baseline"].to_numpy()
-    if data.spec.entry_criterion is not None:
-        return None, "", "the edge test is not run on values the declared criterion selected"
     if len(np.unique(b)) < EDGE_MIN_DISTINCT:
         return None, "", "too few distinct values for an edge test"
     s = bound_shares(b, data.spec.lower_bound, data.spec.upper_bound)
@@ -177,6 +177,7 @@ def edge_test(data, df, ctx):
                           f"so the edge test's continuous reference does not apply (see the floor and ceiling "
                           f"sub-finding)")
     side, note = edge_sides(b, data.spec)
+    side, note = unselected_side(side, note, data.spec.entry_criterion)
     if side is None:
         return None, "", note
     tested = edge_test_scale(b, data.spec.log_scale)  # the same scale as the regression-to-the-mean check
@@ -184,10 +185,49 @@ def edge_test(data, df, ctx):
     return test, ("" if tested.name == "raw" else f" ({tested.name} scale)"), note
 
 
+def unselected_side(side: str | None, note: str, criterion) -> tuple[str | None, str]:
+    """The sides the edge test may examine, less the side a declared criterion selected on: a
+    criterion ">= c" (or "> c") truncates the lower end, so only the upper edge is tested, and vice
+    versa. Returns (side or None, note)."""
+    if criterion is None or side is None:
+        return side, note
+    if criterion.direction == "window":
+        skipped = "not tested at either end, both of which the declared window selected"
+        return None, f"{skipped}; {note}" if note else skipped
+    free = "upper" if criterion.direction == "above" else "lower"
+    skipped = f"not tested at the {'lower' if free == 'upper' else 'upper'} end, which the declared criterion selected"
+    note = f"{skipped}; {note}" if note else skipped
+    return (free if side in ("either", free) else None), note
+
+
+def unselected_edge(part: Part, df, test, scale, note, p_adj) -> Part:
+    """The declared-criterion selection finding with the edge test of the unselected side added: a
+    sharp edge there (Holm-adjusted p below ALPHA) suggests selection beyond the declared criterion
+    and raises a caution; otherwise the evidence says no edge was found there."""
+    if test is None:
+        return Part(replace(part.sub, evidence=f"{part.sub.evidence}; {note}") if note else part.sub,
+                    part.estimates, part.phrase)
+    b = df["baseline"].to_numpy()
+    edge = float(np.min(b) if test.edge_side == "lower" else np.max(b))
+    ps = f"{fmt_p(test.p_value)}, Holm-adjusted {fmt_p(p_adj)}"
+    est = [estimate(f"Truncation-edge test{scale} on the unselected side, likelihood-ratio statistic",
+                    test.statistic, p=test.p_value,
+                    note=f"{test.edge_side} edge at {fmt(edge)}; Holm-adjusted p {p_adj:.3g}",
+                    key="change-score.selection.unselected-edge-statistic")]
+    if p_adj < ALPHA:
+        ev = (f"{part.sub.evidence}; the unselected {test.edge_side} end also has a sharp edge at {fmt(edge)}{scale} "
+              f"({ps}): possible selection beyond the declared criterion")
+        phrase = f"a sharp {test.edge_side} edge in baseline beyond the declared criterion ({ps})"
+        return Part(replace(part.sub, verdict=Verdict.CAUTION, evidence=ev), part.estimates + est,
+                    part.phrase or phrase)
+    ev = f"{part.sub.evidence}; no evidence of a sharp edge at the unselected {test.edge_side} end ({ps})"
+    return Part(replace(part.sub, evidence=ev), part.estimates + est, part.phrase)
+
+
 def selection_part(data, df, ctx, test, scale, note, p_adj) -> Part:
     q = "Did the baseline value select the participants?"
     if data.spec.entry_criterion is not None:
-        return declared_selection_part(data, ctx)
+        return unselected_edge(declared_selection_part(data, ctx), df, test, scale, note, p_adj)
     if test is None:
         return Part(SubFinding("selection", q, Verdict.SOUND, f"no entry criterion declared; {note}"), [])
     b = df["baseline"].to_numpy()
@@ -336,8 +376,10 @@ def slope_part(test, adj, p_adj) -> Part:
 
 
 def efficiency_part(df, arms, ctx) -> tuple[Part, object, object]:
-    """The trial's own cost of change against ANCOVA (variance-aware Frison-Pocock ratio) and its CI."""
-    q = f"What does subtracting baseline cost against ANCOVA (material above {_pct(MATERIAL_RATIO)} more participants)?"
+    """The trial's own cost of change against ANCOVA (variance-aware Frison-Pocock ratio) and its CI,
+    graded against the study's sample-size threshold (``ctx.thresholds.sample_size_ratio``)."""
+    material_ratio = ctx.thresholds.sample_size_ratio
+    q = f"What does subtracting baseline cost against ANCOVA (material above {_pct(material_ratio)} more participants)?"
     r = pearson(df["baseline"], df["followup"], ctx.level)
     cost = own_cost(df["baseline"], df["followup"], df["arm"].to_numpy() if len(arms) > 1 else None, ctx.level)
     eq = compare_with_ci("change", "ancova", r.r, r.lower, r.upper)
@@ -360,9 +402,9 @@ def efficiency_part(df, arms, ctx) -> tuple[Part, object, object]:
                  change_vs_fu.lower, change_vs_fu.upper, note="2(1-r); CI from the CI of r",
                  key="change-score.efficiency.ratio-vs-followup-equal-var"),
     ]
-    if cost.lower > MATERIAL_RATIO:
+    if cost.lower > material_ratio:
         verdict, phrase = Verdict.UNSUPPORTED, f"change needs {_cost_ci(cost)} than ANCOVA"
-    elif cost.ratio > MATERIAL_RATIO:
+    elif cost.ratio > material_ratio:
         verdict, phrase = Verdict.CAUTION, f"change needs {_cost_ci(cost)} than ANCOVA"
     else:
         verdict, phrase = Verdict.SOUND, ""
@@ -576,7 +618,7 @@ ASSUMPTIONS = ("interval", "bounds", "linearity", "selection", "scale")
 """The sub-findings whose detectable departure matters to a change analysis and so raises caution."""
 
 
-def decide(planned: str, parts: dict[str, Part], r, cost) -> tuple[Verdict, str]:
+def decide(planned: str, parts: dict[str, Part], r, cost, material_ratio: float = MATERIAL_RATIO) -> tuple[Verdict, str]:
     """Overall verdict and headline for the planned analysis.
 
     For a change plan the verdict follows the trial's own cost of change against ANCOVA: unsupported
@@ -586,7 +628,7 @@ def decide(planned: str, parts: dict[str, Part], r, cost) -> tuple[Verdict, str]
     p-value, so it never decides the verdict alone."""
     eff = parts["efficiency"]
     soft = [parts[k].phrase for k in ASSUMPTIONS if parts[k].sub.verdict != Verdict.SOUND and parts[k].phrase]
-    material = f"{_pct(MATERIAL_RATIO)} this tool treats as material"
+    material = f"{_pct(material_ratio)} this tool treats as material"
     lead = f"Change from baseline needs {_cost_ci(cost)} than ANCOVA in this trial"
     if planned in CHANGE_PLANS:
         ordinal = parts["interval"].sub.verdict != Verdict.SOUND and "ordinal" in parts["interval"].phrase
@@ -716,7 +758,7 @@ def run(data, ctx: CheckContext):
             table, notes = repeated_caveat_and_fit(data, ctx, arms)
             tables.append(table)
             caveats += notes
-    verdict, headline = decide(data.spec.planned_analysis, parts, r, cost)
+    verdict, headline = decide(data.spec.planned_analysis, parts, r, cost, ctx.thresholds.sample_size_ratio)
     return result(check, data, verdict, headline, subfindings=[p.sub for p in parts.values()],
                   estimates=estimates, tables=tables, figures=_figures(data, df, arms, flex_fit, model, ctx.seed),
                   caveats=caveats, recommendation=recommended_analysis(data.spec.planned_analysis, verdict, parts),
@@ -729,5 +771,7 @@ def run(data, ctx: CheckContext):
                          "tests and the t test of slope 1 Holm-adjusted together at a family-wise 5%; shares at bounds "
                          "(15% threshold); the trial's own sample-size ratio of change to ANCOVA, "
                          "var(change) / residual variance of ANCOVA within arm (Frison and Pocock 1992), with a "
-                         "delta-method CI, material above 10% more participants (a convention of this tool); the "
-                         "four analyses fitted on the same participants.")
+                         "delta-method CI, material above "
+                         f"{_pct(ctx.thresholds.sample_size_ratio)} more participants (sample_size_ratio "
+                         f"{ctx.thresholds.sample_size_ratio:g}; study.toml [thresholds], default a convention of "
+                         "this tool); the four analyses fitted on the same participants.")

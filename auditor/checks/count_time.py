@@ -18,7 +18,7 @@ import numpy as np
 from ..references import add_reference, cite
 from ..results import Figure, SubFinding, Table, Verdict
 from ..stats.linear import arm_indicators
-from ..stats.rates import fit_log_linear, log_baseline_rate, time_spread, times_differ_by_arm
+from ..stats.rates import coefficient_shift, fit_log_linear, log_baseline_rate, time_spread, times_differ_by_arm
 from .common import arms_present, estimate, fmt, fmt_ci, fmt_p, result, thin
 from .registry import CheckContext, NotAssessable, register
 
@@ -26,13 +26,17 @@ CHECK_ID = "count-time"
 TITLE = "Counts over unequal observation time"
 MIN_PARTICIPANTS = 10
 MATERIAL_RATIO = 1.10
-"""A count ratio that differs from the rate ratio by this factor or more is material (a convention)."""
+"""A count ratio that differs from the rate ratio by this factor or more is material (a convention of
+this tool; the default of ``count_ratio`` in study.toml's ``[thresholds]``). Unsupported needs the
+whole interval of that factor beyond it."""
 ARM_TIME_ALPHA = 0.05
 
 add_reference("cameron-trivedi-2013", "Cameron AC, Trivedi PK. Regression Analysis of Count Data, 2nd ed. "
                                       "Cambridge University Press, 2013.")
 add_reference("wedderburn-1974", "Wedderburn RWM. Quasi-likelihood functions, generalized linear models, "
                                  "and the Gauss-Newton method. Biometrika 1974;61:439-447.")
+add_reference("stefanski-boos-2002", "Stefanski LA, Boos DD. The calculus of M-estimation. Am Stat "
+                                     "2002;56:29-38.")
 add_reference("kruskal-wallis-1952", "Kruskal WH, Wallis WA. Use of ranks in one-criterion variance "
                                      "analysis. J Am Stat Assoc 1952;47:583-621.")
 
@@ -99,7 +103,10 @@ def _comparisons(df, arms, control, cols, rate, ctx) -> tuple[list[dict], tuple[
         counts_cols["log baseline rate"] = np.log(df["baseline"].to_numpy() + 0.5)
     count = fit_log_linear(df["followup"], counts_cols, level=ctx.level)
     ref = control if control is not None else arms[0]
-    return [{"name": f"{a} vs {ref}", "rate": rate.ratio(f"arm[{a}]"), "count": count.ratio(f"arm[{a}]")}
+    offset = np.log(df["followup_time"].to_numpy(dtype=float))
+    return [{"name": f"{a} vs {ref}", "rate": rate.ratio(f"arm[{a}]"), "count": count.ratio(f"arm[{a}]"),
+             "shift": coefficient_shift(df["followup"], counts_cols, cols, f"arm[{a}]", offset_b=offset,
+                                        level=ctx.level)}
             for a in arms if a != ref], count.notes
 
 
@@ -187,6 +194,7 @@ def run(data, ctx: CheckContext):
                            "not be typical of the whole (early withdrawal of the sickest, say). A rate model "
                            "still removes the time imbalance but its rate ratio should be read with that in mind.")
 
+    threshold = ctx.thresholds.count_ratio
     arm_differs, material, comparisons = False, False, []
     if len(arms) > 1:
         h, p = times_differ_by_arm(df["followup_time"], df["arm"])
@@ -197,14 +205,16 @@ def run(data, ctx: CheckContext):
         rows = []
         for i, c in enumerate(comparisons, 1):
             (rr, rl, ru, rp), (cr, cl, cu, cp) = c["rate"], c["count"]
-            shift = cr / rr
-            material = material or max(shift, 1 / shift) >= MATERIAL_RATIO
+            s = c["shift"]
+            material = material or (not spread.equal and s.beyond(threshold))
             estimates += [estimate(f"Rate ratio, {c['name']} (log time as offset)", rr, rl, ru, rp, by_arm=True,
                                    key=f"count-time.rate-ratio.contrast-{i}", arm=c["name"]),
                           estimate(f"Count ratio, {c['name']} (time ignored)", cr, cl, cu, cp, by_arm=True,
                                    key=f"count-time.count-ratio.contrast-{i}", arm=c["name"]),
-                          estimate(f"Count ratio over rate ratio, {c['name']}", shift, by_arm=True,
-                                   note=f"material at {MATERIAL_RATIO:g} or its inverse",
+                          estimate(f"Count ratio over rate ratio, {c['name']}", s.estimate, s.lower, s.upper,
+                                   by_arm=True,
+                                   note=f"material when the whole interval lies beyond {threshold:g} or its "
+                                        f"inverse (count_ratio); interval from the stacked sandwich of both fits",
                                    key=f"count-time.count-over-rate.contrast-{i}", arm=c["name"])]
             rows += [["rate model (reference)", c["name"], "ratio of rates", rr, rl, ru],
                      ["counts, time ignored", c["name"], "ratio of counts", cr, cl, cu]]
@@ -215,13 +225,20 @@ def run(data, ctx: CheckContext):
                                  "the baseline rate (rate model) or the log baseline count (counts)." if with_baseline
                             else "Both are Poisson log-linear models with robust (sandwich) intervals.",
                             by_arm=True))
+        detectable = not spread.equal and any(c["shift"].detectable or
+                                              max(c["shift"].estimate, 1 / c["shift"].estimate) >= threshold
+                                              for c in comparisons)
+        differs = (f"observation time differs between arms (Kruskal-Wallis chi-square {fmt(h)} on {len(arms) - 1} "
+                   f"df, {fmt_p(p)})" if p < ARM_TIME_ALPHA else
+                   f"no evidence that observation time differs between arms (Kruskal-Wallis chi-square {fmt(h)} "
+                   f"on {len(arms) - 1} df, {fmt_p(p)})")
         subs.append(SubFinding("time-by-arm", "Does observation time differ between arms enough to move the "
                                               "treatment comparison?",
-                               Verdict.UNSUPPORTED if arm_differs and material else
-                               Verdict.CAUTION if arm_differs or material else Verdict.SOUND,
-                               f"Kruskal-Wallis chi-square {fmt(h)} on {len(arms) - 1} df, {fmt_p(p)}; count "
-                               f"ratio over rate ratio {', '.join(fmt(c['count'][0] / c['rate'][0]) for c in comparisons)}"
-                               f" (material at {MATERIAL_RATIO:g} or its inverse)", by_arm=True))
+                               Verdict.UNSUPPORTED if material else
+                               Verdict.CAUTION if arm_differs or detectable else Verdict.SOUND,
+                               f"{differs}; count ratio over rate ratio "
+                               f"{', '.join(_shift_text(c['shift']) for c in comparisons)} (material when the "
+                               f"whole interval lies beyond {threshold:g} or 1/{threshold:g})", by_arm=True))
 
     if ctx.blinded and not spread.equal:
         subs.append(SubFinding("time-by-arm", "Does observation time differ between arms enough to move the "
@@ -230,19 +247,21 @@ def run(data, ctx: CheckContext):
                                "differ between arms, and what ignoring them does to the treatment comparison, "
                                "cannot be judged without unblinding"))
     verdict, headline = _verdict(spread, spread_text, arm_differs, material, comparisons, scale_ok,
-                                 _arm_view(ctx, data, arms))
+                                 _arm_view(ctx, data, arms), threshold)
     figure = _figure(df, arms, spec, ctx, _expected_rates(rate, arms, cols))
     return result(check, data, verdict, headline, subfindings=subs, estimates=estimates, tables=tables,
                   figures=[figure], caveats=caveats + _fit_caveats(fit_warnings),
                   recommendation=recommended_analysis(verdict),
-                  references=cite(["cameron-trivedi-2013", "wedderburn-1974", "kruskal-wallis-1952"]),
+                  references=cite(["cameron-trivedi-2013", "wedderburn-1974", "kruskal-wallis-1952",
+                                   "stefanski-boos-2002"]),
                   method="Observation time summarised by its coefficient of variation (equal below 0.10, a "
                          "convention); Kruskal-Wallis test of time across arms; Poisson log-linear models of the "
                          "follow-up count with robust (HC0) standard errors: with log time as offset (the rate "
                          "ratio), without it (the count ratio), and with log time as a covariate (its slope is 1 "
-                         "when counts are proportional to time). Unsupported when time differs between arms "
-                         f"(p < {ARM_TIME_ALPHA:g}) and the count ratio differs from the rate ratio by a factor of "
-                         f"{MATERIAL_RATIO:g} or more (a convention).")
+                         "when counts are proportional to time); the count ratio over the rate ratio with a Wald "
+                         "interval from the stacked sandwich of the two fits (Stefanski and Boos 2002). "
+                         "Unsupported when that interval lies wholly beyond a factor of "
+                         f"{threshold:g} or its inverse (count_ratio; default a convention of this tool).")
 
 
 def recommended_analysis(verdict: Verdict) -> str:
@@ -261,34 +280,52 @@ def _arm_view(ctx, data, arms) -> str:
     return "compared" if len(arms) > 1 else "single"
 
 
+def _shift_text(s) -> str:
+    """'0.68 (0.62 to 0.75)': the count ratio over the rate ratio with its interval."""
+    return fmt_ci(s.estimate, s.lower, s.upper)
+
+
 def _verdict(spread, spread_text, arm_differs, material, comparisons, scale_ok,
-             arm_view: str = "compared") -> tuple[Verdict, str]:
-    """Verdict and headline. Only an audit that compared the arms may say the unequal times leave the
-    treatment comparison unchanged; a blinded one says that consequence is withheld."""
+             arm_view: str = "compared", threshold: float = MATERIAL_RATIO) -> tuple[Verdict, str]:
+    """Verdict and headline, consequence first: how far ignoring observation time moves the treatment
+    comparison (the count ratio over the rate ratio, with its interval).
+
+    Sound when the times are nearly equal. Unsupported when the interval of that factor lies wholly
+    beyond ``threshold`` or its inverse (the study's ``count_ratio``); caution when the times vary
+    otherwise (a detectable or uncertain shift, or none). Only an audit that compared the arms may say
+    the unequal times leave the comparison unchanged; a blinded one says that consequence is withheld."""
     if spread.equal:
         return Verdict.SOUND, (f"Observation time is nearly equal ({spread_text}): comparing the counts "
                                "compares rates.")
-    if arm_differs and material:
-        c = comparisons[0]
-        return Verdict.UNSUPPORTED, ("Counts are not comparable as they stand: observation time differs between "
-                                     f"arms and ignoring it gives a "
-                                     f"count ratio of {fmt(c['count'][0])} against a rate ratio of "
-                                     f"{fmt_ci(*c['rate'][:3])}; analyse rates (log time as offset).")
     tail = "" if scale_ok else "; the count does not grow in proportion to time, so read rates with care"
-    if arm_differs or material:
-        c = comparisons[0]
-        return Verdict.CAUTION, (f"Observation time varies ({spread_text}); the count ratio "
-                                 f"{fmt(c['count'][0])} and the rate ratio {fmt(c['rate'][0])} differ, though not "
-                                 f"both materially and beyond chance: analyse rates (log time as offset){tail}.")
+    if comparisons:
+        c = max(comparisons, key=lambda c: abs(math.log(c["shift"].estimate)))
+        s = c["shift"]
+        lead = (f"Ignoring observation time moves the treatment comparison ({c['name']}) by a factor of "
+                f"{_shift_text(s)}: count ratio {fmt(c['count'][0])} against rate ratio {fmt_ci(*c['rate'][:3])}")
+        times = ("observation time differs between arms" if arm_differs else
+                 "no evidence that observation time differs between arms")
+        if material:
+            return Verdict.UNSUPPORTED, (f"{lead}, wholly beyond the materiality threshold ({threshold:g} or "
+                                         f"1/{threshold:g}); {times} ({spread_text}): analyse rates (log time as "
+                                         f"offset){tail}.")
+        if s.detectable or max(s.estimate, 1 / s.estimate) >= threshold:
+            return Verdict.CAUTION, (f"{lead}, a shift that is detectable or large at its estimate but not wholly "
+                                     f"beyond the materiality threshold ({threshold:g} or 1/{threshold:g}); "
+                                     f"{times} ({spread_text}): analyse rates (log time as offset){tail}.")
+        return Verdict.CAUTION, (f"{lead}: no evidence that ignoring time moves the comparison; {times}, but "
+                                 f"observation time varies ({spread_text}), so a rate model (log time as offset) "
+                                 f"is still the analysis that matches how the counts were made{tail}.")
+    return _without_comparison(spread_text, tail, arm_view)
+
+
+def _without_comparison(spread_text: str, tail: str, arm_view: str) -> tuple[Verdict, str]:
+    """Unequal times with no comparison between arms to size: blinded (withheld) or a single arm."""
     if arm_view == "blinded":
         return Verdict.CAUTION, (f"Observation time varies ({spread_text}); whether it differs between arms, "
                                  f"and so what ignoring it does to the treatment comparison, is withheld in this "
                                  f"blinded audit and cannot be judged without unblinding: analyse rates (log "
                                  f"time as offset){tail}.")
-    if arm_view == "single":
-        return Verdict.CAUTION, (f"Observation time varies ({spread_text}); with a single arm there is no "
-                                 f"comparison between arms, but each count mixes the rate with the time "
-                                 f"observed: analyse rates (log time as offset){tail}.")
-    return Verdict.CAUTION, (f"Observation time varies ({spread_text}) without changing the treatment "
-                             f"comparison here; a rate model (log time as offset) is still the analysis that "
-                             f"matches how the counts were made{tail}.")
+    return Verdict.CAUTION, (f"Observation time varies ({spread_text}); with a single arm there is no "
+                             f"comparison between arms, but each count mixes the rate with the time "
+                             f"observed: analyse rates (log time as offset){tail}.")

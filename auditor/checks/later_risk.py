@@ -289,10 +289,11 @@ class SameValue:
         _, lo, hi = self.interval(level)
         return lo > 1 or hi < 1
 
-    def material(self, level: float) -> bool:
-        """The interval lies wholly beyond MATERIAL_ODDS_RATIO (or its inverse)."""
+    def material(self, level: float, threshold: float = MATERIAL_ODDS_RATIO) -> bool:
+        """The interval lies wholly beyond ``threshold`` (or its inverse): the study's ``odds_ratio``,
+        default MATERIAL_ODDS_RATIO."""
         _, lo, hi = self.interval(level)
-        return lo > MATERIAL_ODDS_RATIO or hi < 1 / MATERIAL_ODDS_RATIO
+        return lo > threshold or hi < 1 / threshold
 
 
 def end_odds_ratios(test: ExtremumTest, level: float) -> list[tuple[float, float, float, float]]:
@@ -324,6 +325,8 @@ class Analysis:
     declared: str | None = None
     """``risk_definition`` from study.toml: change, ratio, latest or None."""
     level: float = 0.95
+    material_odds_ratio: float = MATERIAL_ODDS_RATIO
+    """The odds ratio a consequence must clear to be material (study.toml ``odds_ratio``)."""
 
     @property
     def full(self) -> LogisticFit:
@@ -359,7 +362,7 @@ class Analysis:
     def turning_material(self) -> bool:
         """A supported turning point with both ends' odds-ratio intervals wholly above MATERIAL_ODDS_RATIO."""
         t = self.turning
-        return t is not None and all(lo > MATERIAL_ODDS_RATIO for _, _, lo, _ in end_odds_ratios(t, self.level))
+        return t is not None and all(lo > self.material_odds_ratio for _, _, lo, _ in end_odds_ratios(t, self.level))
 
     def models(self) -> list[tuple[str, LogisticFit]]:
         out = [("Latest value only", self.partition.reduced[f"-{EARLIER}"]),
@@ -370,7 +373,8 @@ class Analysis:
 
 
 def analyse(y, latest, earlier, adjust: dict[str, np.ndarray] | None = None, log_scale: bool | None = None,
-            level: float = 0.95, resamples: int = 0, seed: int = 0, definition: str | None = None) -> Analysis:
+            level: float = 0.95, resamples: int = 0, seed: int = 0, definition: str | None = None,
+            material_odds_ratio: float = MATERIAL_ODDS_RATIO) -> Analysis:
     """Every model, test and estimate of the check, from arrays (no verdict).
 
     ``definition``: the declared ``risk_definition`` (change, ratio, latest or None). Raises
@@ -419,7 +423,7 @@ def analyse(y, latest, earlier, adjust: dict[str, np.ndarray] | None = None, log
             skipped.append(f"The {kind.label} model could not be fitted ({exc}).")
     same = same_value_contrast(partition.full, lt, et, earlier)
     return Analysis(y, latest, earlier, adjust, log, reason, lt, et, partition, shape, lowest, same, derived,
-                    skipped, definition, level)
+                    skipped, definition, level, material_odds_ratio)
 
 
 def same_value_contrast(full: LogisticFit, lt: Term, et: Term, earlier) -> SameValue:
@@ -549,7 +553,8 @@ def run(data, ctx: CheckContext):
     check = get_check(CHECK_ID)
     inputs = risk_inputs(data, ctx)
     an = analyse(inputs.y, inputs.latest, inputs.earlier, inputs.adjust, data.spec.log_scale, ctx.level,
-                 QUICK_RESAMPLES if ctx.quick else RESAMPLES, ctx.seed, data.spec.risk_definition)
+                 QUICK_RESAMPLES if ctx.quick else RESAMPLES, ctx.seed, data.spec.risk_definition,
+                 ctx.thresholds.odds_ratio)
     view = _View(an, data.spec, inputs, ctx.level)
     verdict = overall_verdict(an)
     return result(check, data, verdict, view.headline(verdict), subfindings=view.subfindings(),
@@ -593,13 +598,13 @@ def finding_verdicts(an: Analysis) -> dict[str, Verdict]:
             out[f"{_key(d)}-information"] = out[f"{_key(d)}-weights"] = Verdict.SOUND
         return out
     lost = judged.information.p_value < STRONG
-    material = an.same_value.material(level) or an.turning_material
+    material = an.same_value.material(level, an.material_odds_ratio) or an.turning_material
     out["monotone"] = (Verdict.UNSUPPORTED if lost and an.turning_material else
                        Verdict.CAUTION if sh.flagged or sh.suggested is not None else Verdict.SOUND)
     out["earlier-informative"] = (Verdict.CAUTION if p.joint.p_value >= ALPHA
                                   or (p.total[EARLIER].p_value >= ALPHA and p.total[LATEST].p_value < ALPHA)
                                   else Verdict.SOUND)
-    out["same-value"] = (Verdict.UNSUPPORTED if lost and an.same_value.material(level) else
+    out["same-value"] = (Verdict.UNSUPPORTED if lost and an.same_value.material(level, an.material_odds_ratio) else
                          Verdict.CAUTION if an.same_value.detectable(level) else Verdict.SOUND)
     for d in an.derived:
         if d is judged:
@@ -769,12 +774,13 @@ class _View:
         q = ("Do participants whose value did not change have the same risk whatever their starting value, as a "
              "change- or ratio-based definition assumes?")
         ev = self._same_value_phrase() + ", from the model of both values"
-        if sv.material(level):
+        m = self.an.material_odds_ratio
+        if sv.material(level, m):
             text = f"No: {ev}; the interval lies wholly beyond the materiality threshold (odds ratio " \
-                   f"{MATERIAL_ODDS_RATIO:g} or 1/{MATERIAL_ODDS_RATIO:g})"
+                   f"{m:g} or 1/{m:g})"
         elif sv.detectable(level):
             text = f"Not quite: {ev}; the interval excludes 1 but not the materiality threshold (odds ratio " \
-                   f"{MATERIAL_ODDS_RATIO:g} or 1/{MATERIAL_ODDS_RATIO:g})"
+                   f"{m:g} or 1/{m:g})"
         else:
             text = f"No evidence of a difference: {ev}"
         if self.an.judged is None:
@@ -838,7 +844,7 @@ class _View:
                 Verdict.UNSUPPORTED: f"the declared {label}-based definition misses risk that the two values carry",
                 Verdict.CAUTION: f"the declared {label}-based definition may miss some risk: the departure is "
                                  f"detectable, but its size is uncertain or below the materiality threshold "
-                                 f"(odds ratio {MATERIAL_ODDS_RATIO:g})",
+                                 f"(odds ratio {an.material_odds_ratio:g})",
                 Verdict.SOUND: f"no evidence that the declared {label}-based definition misses risk the two "
                                f"values carry"}[verdict])
         text = "; ".join(parts) + "."
@@ -1084,7 +1090,9 @@ class _View:
                   "nested in; a turning point is supported when the nonlinear terms are significant and the "
                   "fitted logits at the 5th and 95th percentiles each differ from it (one-sided, 0.05, "
                   "max-t adjusted for the choice of the point); "
-                  "percentile bootstrap of the lowest point.")
+                  "percentile bootstrap of the lowest point; a consequence is material when its odds-ratio "
+                  f"interval lies wholly beyond {an.material_odds_ratio:g} or 1/{an.material_odds_ratio:g} "
+                  "(odds_ratio; default a convention of this tool).")
 
 
 def _typical_steps(values: np.ndarray, definition: Definition) -> list[float]:

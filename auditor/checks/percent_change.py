@@ -32,12 +32,9 @@ from .registry import CheckContext, NotAssessable, register
 CHECK_ID = "percent-change"
 TITLE = "Percent change and responder definitions"
 
-UNDEFINED_SHARE_NEAR_ZERO = 0.05
-"""At least this share of baselines near zero makes percent change unsupported (convention of this
-tool: one participant in twenty with a denominator close to zero)."""
 EXTREME_PERCENT = 1000.0
 """A percent change of this size (a elevenfold rise) from one participant dominates a mean of percent
-changes; it makes percent change unsupported (convention of this tool)."""
+changes; it raises a caution (convention of this tool)."""
 HIGH_SKEW = 1.0
 """|skewness| above 1: a highly skewed distribution (Bulmer 1979)."""
 FLOOR_SHARE = 0.10
@@ -45,17 +42,15 @@ FLOOR_SHARE = 0.10
 BASELINE_RHO = 0.3
 """|Spearman rho| of percent change with baseline at or above this, with a CI excluding 0, is a
 material dependence (Cohen 1988 calls 0.3 a medium correlation)."""
-HARMLESS_EFFICIENCY = 0.9
-"""Efficiency at or above 0.9 against the reference analysis (at most about 11% more participants)
-is harmless (convention of this tool)."""
-COSTLY_EFFICIENCY = 2 / 3
-"""Efficiency below 2/3 (50% more participants) is clearly worse (convention of this tool)."""
+MATERIAL_SAMPLE_RATIO = 1.10
+"""Materiality of a sample-size cost against the reference analysis (10% more participants; a
+convention of this tool, the default of ``sample_size_ratio`` in study.toml's ``[thresholds]``)."""
 INFORMATIVE_Z = 2.0
 """An empirical efficiency is used only when the reference analysis shows |effect / SE| >= 2;
 below that the ratio of two noisy statistics says little (convention of this tool)."""
 RECODE_CHANGE = 0.10
-"""A relative change of 10% or more in the estimate when ordinal codes are shifted by one makes
-percent change unsupported (convention of this tool)."""
+"""A relative change of 10% or more in the estimate when ordinal codes are shifted by one is material
+(convention of this tool; the default of ``recoding_change`` in study.toml's ``[thresholds]``)."""
 NORMAL_SHARE_TOLERANCE = 0.05
 """The normal-theory inflation is trusted when the normal distribution fitted to the change predicts
 the observed responder share within 5 percentage points (convention of this tool)."""
@@ -192,12 +187,13 @@ def recommended_analysis(spec, verdict: Verdict) -> str:
 
 
 def _definedness_verdict(ins: rc.Instability) -> Verdict:
-    """Unsupported: any baseline at or below zero, 5% or more near zero, or a change of 1000% or more;
-    caution: any baseline near zero; sound otherwise."""
+    """Caution: any baseline at or below zero, any near zero, or a change of 1000% or more; sound
+    otherwise. Never unsupported on its own: what an unstable percent change costs the treatment
+    comparison is sized by the efficiency finding, which alone can make the check unsupported."""
     extreme = max(abs(ins.largest_rise), abs(ins.largest_fall)) if math.isfinite(ins.largest_rise) else 0.0
-    if ins.n_undefined or ins.n_near_zero / ins.n >= UNDEFINED_SHARE_NEAR_ZERO or extreme >= EXTREME_PERCENT:
-        return Verdict.UNSUPPORTED
-    return Verdict.CAUTION if ins.n_near_zero else Verdict.SOUND
+    if ins.n_undefined or ins.n_near_zero or extreme >= EXTREME_PERCENT:
+        return Verdict.CAUTION
+    return Verdict.SOUND
 
 
 def _definedness(inp: _Inputs, spec, out: _Collect) -> Verdict:
@@ -235,7 +231,7 @@ def _definedness(inp: _Inputs, spec, out: _Collect) -> Verdict:
         out.clauses["defined"] = (f"{_n(ins.n_near_zero, 'baseline')} below {ins.fraction:.0%} of the median "
                                   f"({_g(ins.median_baseline)}{unit}) and changes from {_pct(ins.largest_fall)} "
                                   f"to {_pct(ins.largest_rise)}")
-    elif verdict is Verdict.UNSUPPORTED:
+    elif verdict is Verdict.CAUTION:
         out.clauses["defined"] = f"percent changes reach {_pct(ins.largest_rise)}"
     return verdict
 
@@ -288,13 +284,16 @@ def _recoding(inp: _Inputs, spec, ctx: CheckContext, out: _Collect) -> Verdict:
     undefined = rows[0][2] + rows[1][2]
     rel = abs(c - a) / abs(a) if (a is not None and c is not None and a != 0) else math.inf
     flipped = a is not None and c is not None and np.sign(a) != np.sign(c)
-    if undefined or rel >= RECODE_CHANGE or flipped:
-        verdict = Verdict.UNSUPPORTED
-    else:
-        verdict = Verdict.CAUTION
+    # Caution either way: percent change of ordinal codes depends on an arbitrary origin; the size of
+    # that dependence (against the study's recoding_change) is stated, and only the efficiency finding
+    # can make the check unsupported.
+    material = bool(undefined or rel >= ctx.thresholds.recoding_change or flipped)
+    verdict = Verdict.CAUTION
     evidence = (f"{what}: {fmt(a)}% with the declared codes, "
                 + (f"{fmt(c)}%" if c is not None else "undefined") + f" with codes shifted by {shift:+g}"
-                + (f" ({rel:.0%} relative change)" if math.isfinite(rel) else "")
+                + (f" ({rel:.0%} relative change" + (f", at or above the {ctx.thresholds.recoding_change:.0%} this "
+                                                       "tool treats as material)" if material else ")")
+                   if math.isfinite(rel) else "")
                 + (f"; {rows[1][2]} participant(s) undefined after the shift" if rows[1][2] else ""))
     out.sub("coding", "Does percent change of the ordinal codes survive an equally valid coding?", verdict,
             evidence, by_arm=by_arm)
@@ -369,8 +368,10 @@ def _baseline_dependence(inp: _Inputs, spec, ctx: CheckContext, out: _Collect) -
         r, lo, hi, where = rho.r, rho.lower, rho.upper, "pooled"
     material = abs(r) >= BASELINE_RHO and not (lo <= 0 <= hi)
     verdict = Verdict.CAUTION if material else Verdict.SOUND
+    lead = ("" if material else "no evidence that percent change depends on baseline: " if lo <= 0 <= hi
+            else f"a dependence on baseline below |rho| {BASELINE_RHO:g} ({where}): ")
     out.sub("baseline", "Is percent change free of baseline (|Spearman rho| below 0.3, pooled and within each "
-            "arm)?", verdict, f"pooled rho {fmt_ci(rho.r, rho.lower, rho.upper)}"
+            "arm)?", verdict, f"{lead}pooled rho {fmt_ci(rho.r, rho.lower, rho.upper)}"
             + ("; within arm " + ", ".join(f"{x[0]} {fmt_ci(x[2], x[3], x[4])}" for x in rows) if rows else ""),
             by_arm=bool(rows))
     if material:
@@ -518,36 +519,55 @@ def _report_effects(fits: _Fits, cost: _Cost, inp: _Inputs, spec, out: _Collect)
         key="percent-change.planned-efficiency", arm=_contrast_label(cost.contrast, inp.control)))
 
 
-def _rate_cost(fits: _Fits, cost: _Cost, inp: _Inputs, out: _Collect) -> Verdict | None:
-    """The efficiency sub-finding and headline clause for a percent-change plan (None: not rated)."""
+def _cost_text(eff: float, interval: rc.EfficiencyInterval) -> str:
+    """'45% more participants (20% to 80%)': the sample-size cost 1/efficiency - 1 with the interval
+    from the efficiency's bootstrap interval (the cost is its inverse, so the ends swap)."""
+    def pct(e):
+        return "n/a" if not (e > 0 and math.isfinite(e)) else f"{100 * (1 / e - 1):+.0f}%"
+    more = 100 * (1 / eff - 1) if eff > 0 else math.inf
+    word = (f"{more:.0f}% more participants" if more >= 0.5 else
+            f"{-more:.0f}% fewer participants" if more <= -0.5 else "as many participants")
+    return f"{word} ({pct(interval.upper)} to {pct(interval.lower)})"
+
+
+def _rate_cost(fits: _Fits, cost: _Cost, inp: _Inputs, out: _Collect,
+               ratio: float = MATERIAL_SAMPLE_RATIO) -> Verdict | None:
+    """The efficiency sub-finding and headline clause for a percent-change plan (None: not rated).
+    The consequence is the sample-size cost of percent change against the reference analysis, judged
+    against the study's ``sample_size_ratio`` (see :func:`_efficiency_verdict`)."""
     ref_name = fits.reference_design.analysis
     eff = cost.efficiency
-    question = f"Is the planned analysis about as efficient as the {ref_name} (efficiency 0.9 or more)?"
+    question = (f"What does the planned analysis cost against the {ref_name} (material above "
+                f"{100 * (ratio - 1):.0f}% more participants)?")
     if not cost.informative:
         out.sub("efficiency", question, Verdict.NOT_ASSESSABLE,
                 f"the {ref_name} effect is small (estimate / SE {fmt(cost.reference.statistic)}), so the "
                 f"efficiency {fmt(eff)} is not informative", by_arm=True)
         return None
-    verdict = _efficiency_verdict(eff, cost.interval)
+    verdict = _efficiency_verdict(eff, cost.interval, ratio)
+    judged = {Verdict.UNSUPPORTED: f"wholly above the {100 * (ratio - 1):.0f}% threshold of materiality",
+              Verdict.CAUTION: (f"above the {100 * (ratio - 1):.0f}% threshold of materiality at its estimate, but "
+                                "its interval reaches below it" if eff < 1 / ratio else
+                                f"a detectable loss, below the {100 * (ratio - 1):.0f}% threshold of materiality"),
+              Verdict.SOUND: f"no evidence of a cost above the {100 * (ratio - 1):.0f}% threshold"}[verdict]
     out.sub("efficiency", question, verdict,
-            f"efficiency {fmt(eff)} (bootstrap {fmt(cost.interval.lower)} to {fmt(cost.interval.upper)}), "
-            f"{_contrast_label(cost.contrast, inp.control)}: the planned analysis needs "
-            f"{fmt(1 / eff if eff > 0 else math.inf)} times the participants", by_arm=True)
-    if ref_name == "log-scale ANCOVA":
-        effect = f"the ratio of geometric means {fmt_ci(*cost.reference.exp())}"
-    else:
-        effect = "the ANCOVA of follow-up on baseline"
-    if eff < 1:
-        out.clauses["cost"] = f"{effect} needs {1 - eff:.0%} fewer participants for the same power"
-    else:
-        out.clauses["cost"] = f"percent change is as efficient as {effect} (efficiency {fmt(eff)})"
+            f"percent change needs {_cost_text(eff, cost.interval)} than the {ref_name}, {judged}: efficiency "
+            f"{fmt(eff)} (bootstrap {fmt(cost.interval.lower)} to {fmt(cost.interval.upper)}), "
+            f"{_contrast_label(cost.contrast, inp.control)}", by_arm=True)
+    effect = (f"whose ratio of geometric means is {fmt_ci(*cost.reference.exp())}" if ref_name == "log-scale ANCOVA"
+              else "of follow-up on baseline")
+    out.clauses["cost"] = f"it needs {_cost_text(eff, cost.interval)} than the {ref_name} {effect}, {judged}"
     return verdict
 
 
-def _efficiency_verdict(eff: float, interval: rc.EfficiencyInterval) -> Verdict:
-    if eff < COSTLY_EFFICIENCY and math.isfinite(interval.upper) and interval.upper < HARMLESS_EFFICIENCY:
+def _efficiency_verdict(eff: float, interval: rc.EfficiencyInterval, ratio: float = MATERIAL_SAMPLE_RATIO) -> Verdict:
+    """Unsupported when the whole interval of the sample-size cost 1/efficiency lies above ``ratio``
+    (the efficiency's upper bound below 1/ratio); caution when the cost is above ``ratio`` at its
+    estimate or a loss is detectable (the efficiency's interval below 1); sound otherwise."""
+    upper = interval.upper
+    if math.isfinite(upper) and upper < 1 / ratio:
         return Verdict.UNSUPPORTED
-    if eff < HARMLESS_EFFICIENCY:
+    if eff < 1 / ratio or (math.isfinite(upper) and upper < 1):
         return Verdict.CAUTION
     return Verdict.SOUND
 
@@ -600,7 +620,8 @@ def _responder(inp: _Inputs, spec, ctx: CheckContext, resp: np.ndarray, cost: _C
                  key="percent-change.responder-inflation"),
     ]
     empirical = cost if cost is not None and cost.informative else None
-    verdict = _dichotomy_verdict(c.inflation, normal_ok, empirical)
+    ratio = ctx.thresholds.sample_size_ratio
+    verdict = _dichotomy_verdict(c.inflation, normal_ok, empirical, ratio)
     comparator = "ANCOVA" if c.scale == "change" else "the log-scale ANCOVA"
     evidence = (f"responders {c.share_observed:.0%} (normal theory predicts {c.share_normal:.0%}); the cut lies "
                 f"at z = {fmt(c.z_cut)}, so dichotomising keeps {c.dichotomy_efficiency:.0%} of the information "
@@ -613,27 +634,33 @@ def _responder(inp: _Inputs, spec, ctx: CheckContext, resp: np.ndarray, cost: _C
         evidence += (f"; in the trial's own data the efficiency is {fmt(empirical.efficiency)} (bootstrap "
                      f"{fmt(empirical.interval.lower)} to {fmt(empirical.interval.upper)})")
         if empirical.efficiency > 0:
-            clause += f"; {fmt(1 / empirical.efficiency, 1)} times in the trial's own data"
+            clause = (f"the responder rule ({rule_text}) needs {_cost_text(empirical.efficiency, empirical.interval)} "
+                      f"than the {'continuous ANCOVA' if c.scale == 'change' else comparator.removeprefix('the ')} "
+                      f"in the trial's own data"
+                      + (f", wholly above the {100 * (ratio - 1):.0f}% threshold of materiality"
+                         if verdict is Verdict.UNSUPPORTED else "")
+                      + f" (about {fmt(c.inflation, 1)} times by normal theory)")
+    elif c.inflation > ratio:
+        clause += ("; its interval is not sized here (no informative comparison between arms), so it is not "
+                   "judged unsupported")
     out.sub("dichotomy", "Does the responder rule keep most of the information (sample-size inflation below "
-            "1.11 against ANCOVA)?", verdict, evidence, by_arm=empirical is not None)
+            f"{ratio:g} against ANCOVA)?", verdict, evidence, by_arm=empirical is not None)
     out.clauses["dichotomy"] = clause
     return _worst(verdict, _responder_baseline(inp, spec, ctx, resp, out))
 
 
-def _dichotomy_verdict(inflation: float, normal_ok: bool, empirical: _Cost | None) -> Verdict:
-    """Analytic tier from the inflation (capped at caution when the normal fit misses the responder
-    share), combined with the empirical tier when the trial's own efficiency is informative: the worse
-    of the two, except that an empirical interval wholly above 2/3 overrules an analytic 'unsupported'."""
-    analytic = (Verdict.UNSUPPORTED if inflation >= 1 / COSTLY_EFFICIENCY else
-                Verdict.CAUTION if inflation >= 1 / HARMLESS_EFFICIENCY else Verdict.SOUND)
-    if not normal_ok:
-        analytic = min(analytic, Verdict.CAUTION, key=_VERDICT_ORDER.index)
+def _dichotomy_verdict(inflation: float, normal_ok: bool, empirical: _Cost | None,
+                       ratio: float = MATERIAL_SAMPLE_RATIO) -> Verdict:
+    """The normal-theory inflation is a point value with no interval, so on its own it raises caution
+    at most (above ``ratio``); the trial's own efficiency, when informative, is graded by
+    :func:`_efficiency_verdict` and alone can make the rule unsupported (its whole cost interval above
+    ``ratio``). The worse of the two. ``normal_ok`` (the normal fit predicts the responder share) is
+    reported in the evidence; it no longer changes the verdict, since the analytic tier is already
+    caution at most."""
+    analytic = Verdict.CAUTION if inflation > ratio else Verdict.SOUND
     if empirical is None:
         return analytic
-    lower = empirical.interval.lower
-    if analytic is Verdict.UNSUPPORTED and math.isfinite(lower) and lower > COSTLY_EFFICIENCY:
-        return Verdict.CAUTION
-    return _worst(analytic, _efficiency_verdict(empirical.efficiency, empirical.interval))
+    return _worst(analytic, _efficiency_verdict(empirical.efficiency, empirical.interval, ratio))
 
 
 def _responder_baseline(inp: _Inputs, spec, ctx: CheckContext, resp: np.ndarray, out: _Collect) -> Verdict:
@@ -659,7 +686,8 @@ def _responder_baseline(inp: _Inputs, spec, ctx: CheckContext, resp: np.ndarray,
     ]
     out.sub("responder-baseline", "Is the chance of responding free of baseline (less than 10 points across the "
             "10th to 90th baseline percentiles)?", verdict,
-            f"probability {curve.prob_low:.0%} at baseline {_g(curve.x_low)} and {curve.prob_high:.0%} at "
+            ("" if curve.p_value < 0.05 else "no evidence that the chance of responding depends on baseline: ")
+            + f"probability {curve.prob_low:.0%} at baseline {_g(curve.x_low)} and {curve.prob_high:.0%} at "
             f"{_g(curve.x_high)} (log odds per unit "
             f"{fmt_ci(curve.slope, curve.slope_lower, curve.slope_upper, 3)})")
     if material:
@@ -712,7 +740,8 @@ def run(data, ctx: CheckContext):
         fits = _fit_analyses(inp, spec, ctx, responder, out)
         cost = _measure_cost(fits, inp, ctx)
         _report_effects(fits, cost, inp, spec, out)
-        rated = _rate_cost(fits, cost, inp, out) if spec.planned_analysis != "responder" else None
+        rated = (_rate_cost(fits, cost, inp, out, ctx.thresholds.sample_size_ratio)
+                 if spec.planned_analysis != "responder" else None)
         if rated is not None:
             verdicts.append(rated)
     if responder is not None:
@@ -737,12 +766,15 @@ def run(data, ctx: CheckContext):
                          "geometric means; proportional-odds ANCOVA on a spline of baseline plus arm; efficiency "
                          "(z / z_ref)^2 with a stratified percentile bootstrap. Responder rules: normal-theory "
                          "inflation phi(z)^2/(Phi(z)(1-Phi(z))) times the efficiency of change against ANCOVA; "
-                         "logistic regression of responder status on baseline.")
+                         "logistic regression of responder status on baseline. Unsupported only when the whole "
+                         "interval of the sample-size cost (1 / efficiency) lies above "
+                         f"{ctx.thresholds.sample_size_ratio:g} (sample_size_ratio; default a convention of this "
+                         "tool).")
 
 
 _LEAD = {
     Verdict.UNSUPPORTED: "Percent change is unsupported here",
-    Verdict.CAUTION: "Percent change costs precision here",
+    Verdict.CAUTION: "Percent change needs care here",
     Verdict.SOUND: "Percent change is harmless here",
 }
 
@@ -768,9 +800,9 @@ def _headline_text(spec, verdict: Verdict, clauses: dict[str, str], withheld: bo
                 Verdict.CAUTION: "The responder definition costs precision",
                 Verdict.SOUND: "The responder definition is harmless here"}[verdict]
     else:
-        order = ["defined", "coding", "cost", "asymmetry", "baseline"]
+        order = ["cost", "defined", "coding", "asymmetry", "baseline"]
         lead = BLINDED_SOUND_LEAD if withheld and verdict is Verdict.SOUND else _LEAD[verdict]
-        if verdict is not Verdict.SOUND and "defined" in clauses:
+        if verdict is Verdict.CAUTION and "defined" in clauses:
             lead = "Percent change is unstable here" if "undefined" not in clauses["defined"] else \
                 "Percent change is undefined here"
     picked = [clauses[k] for k in order if k in clauses][:3]

@@ -2,8 +2,8 @@
 
 Reports the Pearson and Spearman correlations of baseline with follow-up (with CIs), the slope of
 follow-up on baseline adjusted for arm, and the number of complete pairs. The check is descriptive:
-it judges nothing about the planned analysis, so its verdict is sound whenever the numbers can be
-computed. Whether a change score suits the data (slope 1, Clifton and Clifton 2019; correlation
+it judges nothing about the planned analysis, so its verdict is "for information" whenever the
+numbers can be computed (ranked like sound by every gate). Whether a change score suits the data (slope 1, Clifton and Clifton 2019; correlation
 above 0.5, Frison and Pocock 1992) is judged by the change-score check, and selection on baseline by
 the regression-to-the-mean check. The two descriptive sub-findings set these numbers beside 1 and 0.5
 as reading aids only.
@@ -110,7 +110,7 @@ def run(data, ctx: CheckContext):
                      "xlabel": _axis(data.spec, "Baseline"), "ylabel": _axis(data.spec, "Follow-up")},
                     caption="Dashed: identity line (follow-up = baseline). Solid: LOWESS smooth, pooled." + note,
                     by_arm=bool(arms))
-    return result(check, data, Verdict.SOUND, headline, subfindings=subs, estimates=estimates, tables=tables,
+    return result(check, data, Verdict.FOR_INFORMATION, headline, subfindings=subs, estimates=estimates, tables=tables,
                   figures=[figure],
                   references=cite(["frison-pocock-1992", "clifton-2019", "fieller-1957", "cleveland-1979"]),
                   method="Pearson r with Fisher z interval; Spearman rho with the Fieller-Hartley-Pearson "
@@ -119,16 +119,17 @@ def run(data, ctx: CheckContext):
 
 
 def descriptive_subfindings(slope: float, s_lo: float, s_hi: float, pr) -> list[SubFinding]:
-    """Where the slope stands against 1 and r against 0.5, as description (verdict sound): what a
+    """Where the slope stands against 1 and r against 0.5, as description ("for information"): what a
     change score would need is judged by the change-score check, not here."""
     inside = "includes" if s_lo <= 1.0 <= s_hi else "excludes"
     side = "at or above" if pr.r >= RHO_HALF else "below"
     return [
-        SubFinding("slope-one", "Where does the slope of follow-up on baseline stand against 1?", Verdict.SOUND,
+        SubFinding("slope-one", "Where does the slope of follow-up on baseline stand against 1?",
+                   Verdict.FOR_INFORMATION,
                    f"slope {fmt_ci(slope, s_lo, s_hi)}; its interval {inside} 1 (descriptive; the change-score "
                    f"check judges what this means for the planned analysis)"),
         SubFinding("correlation-half", "Where does the correlation of baseline with follow-up stand against 0.5?",
-                   Verdict.SOUND,
+                   Verdict.FOR_INFORMATION,
                    f"Pearson r {fmt_ci(pr.r, pr.lower, pr.upper)}, {side} {RHO_HALF:g} (descriptive; the "
                    f"change-score check judges what this means for the planned analysis)"),
     ]

@@ -10,7 +10,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Callable
 
-from ..metadata import OutcomeSpec
+from ..metadata import OutcomeSpec, Thresholds
 from ..results import CheckResult
 
 
@@ -29,6 +29,8 @@ class CheckContext:
     """Fewer resamples (used by tests and the quick self-check)."""
     strict: bool = False
     """Raise defects of the tool instead of reporting them (see :mod:`auditor.failures`)."""
+    thresholds: Thresholds = field(default_factory=Thresholds)
+    """The materiality conventions of the study (``[thresholds]`` in study.toml, else the defaults)."""
 
 
 @dataclass(frozen=True)

@@ -55,6 +55,12 @@ side of the shift (convention of this tool)."""
 WITHIN_ARM_DESIGNS = ("single-arm",)
 """Designs whose effect is a within-arm (before-after) change, which carries regression to the mean
 in full; in a randomised parallel design it affects both arms alike and the contrast is not biased."""
+WITHIN_ARM_EFFECT = "within-arm-change"
+"""The judged design of a parallel trial whose outcome declares ``effect_basis = "within-arm-change"``:
+it reports within-arm change as the treatment effect, which carries regression to the mean in full
+although the design has a control arm."""
+WITHIN_ARM_BIAS = ("within-arm change, reported here as the treatment effect, is biased by regression to "
+                   "the mean")
 BIASED_BY_RTM = ("within-arm change, before-after claims, readings of baseline subgroups (those who start "
                  "worse seeming to benefit more) and responder shares")
 """What regression to the mean biases in a randomised parallel trial."""
@@ -975,9 +981,18 @@ def expected_in_change(data, ctx, rd, scale, sel, rtm, rel, out: Out) -> tuple[I
 # ----------------------------------------------------------------------------- verdict and headline
 
 
-def is_material(target: Interval, sigma: float) -> bool:
-    """The whole interval of the expected shift lies beyond MATERIAL_SD population SDs on one side."""
-    threshold = MATERIAL_SD * sigma
+def judged_design(data) -> str:
+    """The design as the verdict reads it: ``WITHIN_ARM_EFFECT`` for a parallel trial that reports
+    within-arm change as the treatment effect (``effect_basis``), else the declared design."""
+    if data.design == "parallel" and getattr(data.spec, "effect_basis", "between-arm") == WITHIN_ARM_EFFECT:
+        return WITHIN_ARM_EFFECT
+    return data.design
+
+
+def is_material(target: Interval, sigma: float, material_sd: float = MATERIAL_SD) -> bool:
+    """The whole interval of the expected shift lies beyond ``material_sd`` population SDs on one side
+    (the study's ``rtm_shift_sd``, default MATERIAL_SD)."""
+    threshold = material_sd * sigma
     return bool(target.upper < -threshold or target.lower > threshold)
 
 
@@ -987,7 +1002,7 @@ def decide(design, material: bool, no_one_out: bool = False) -> Verdict:
     not biased by it. A declared criterion that selects no one out, with no material shift: sound."""
     if no_one_out and not material:
         return Verdict.SOUND
-    if design in WITHIN_ARM_DESIGNS:
+    if design in WITHIN_ARM_DESIGNS or design == WITHIN_ARM_EFFECT:
         return Verdict.UNSUPPORTED if material else Verdict.CAUTION
     return Verdict.CAUTION if material else Verdict.SOUND
 
@@ -1002,21 +1017,23 @@ def sd_text(target: Interval, sigma: float, log: bool = False) -> str:
     return f"{abs(target.estimate) / sigma:.2f} {unit} ({a / sigma:.2f} to {b / sigma:.2f})"
 
 
-def material_rule(design) -> str:
-    rule = (f"material when the whole interval lies beyond {MATERIAL_SD:g} SD of the unselected population "
-            f"(a convention of this tool)")
+def material_rule(design, material_sd: float = MATERIAL_SD) -> str:
+    rule = (f"material when the whole interval lies beyond {material_sd:g} SD of the unselected population "
+            f"(rtm_shift_sd; default a convention of this tool)")
+    if design == WITHIN_ARM_EFFECT:
+        return f"{rule}; within-arm change is reported as the treatment effect, so it carries it in full"
     if design in WITHIN_ARM_DESIGNS:
         return f"{rule}; single-arm design: the before-after change carries it in full"
     return f"{rule}; randomised parallel design: it affects both arms alike, so caution at most"
 
 
 def bias_sub(spec, design, sel, target: Interval, sigma: float, scale, material: bool, verdict: Verdict,
-             by_arm: bool, out: Out) -> None:
+             by_arm: bool, out: Out, material_sd: float = MATERIAL_SD) -> None:
     def t(v):
         return value_text(v, scale, spec.unit)
 
     size = f"{t(target.estimate)} ({t(target.lower)} to {t(target.upper)}), {sd_text(target, sigma, scale.log)}"
-    judged = f"{'material' if material else 'not material'} ({material_rule(design)})"
+    judged = f"{'material' if material else 'not material'} ({material_rule(design, material_sd)})"
     if sel.column == "baseline":
         out.sub("bias", "Is the analysis baseline the reading that decided entry?", verdict,
                 f"yes: the change from baseline carries the whole expected regression to the mean, {size}: {judged}",
@@ -1036,6 +1053,9 @@ def recommendation(design, second_share: float | None) -> str:
     """What would reduce the shift: a second, later baseline; without a control arm, a concurrent control."""
     second = (f"a second, later baseline would remove about {100 * second_share:.0f}% of it"
               if second_share is not None else "")
+    if design == WITHIN_ARM_EFFECT:
+        contrast = "report the randomised contrast between arms (ANCOVA) as the treatment effect"
+        return f"{contrast}; {second}" if second else contrast
     if design in WITHIN_ARM_DESIGNS:
         return f"{second}, or add a concurrent control" if second else "add a concurrent control"
     return second
@@ -1070,16 +1090,26 @@ def share_text(share: float) -> str:
     return f"{pct:.1f}%" if pct >= 0.05 or pct == 0 else "less than 0.1%"
 
 
-def consequence(spec, design, sel, scale, target: Interval, sigma: float, material: bool) -> str:
+def consequence(spec, design, sel, scale, target: Interval, sigma: float, material: bool,
+                material_sd: float = MATERIAL_SD) -> str:
     """The first sentence of the headline: the expected shift in the analysed change with its interval,
     its size in SDs, and what it does and does not bias in this design."""
     size = amount(target.estimate, target.lower, target.upper, scale, spec.unit)
     where = ("the change from baseline" if sel.column == "baseline" else
              f"the change from baseline ({spec.baseline_visit}, after entry was decided at {sel.visit})")
     lead = f"Regression to the mean alone is expected to shift {where} by {size}, {sd_text(target, sigma, scale.log)}"
-    beyond = (f"wholly beyond the {MATERIAL_SD:g} SD threshold of materiality" if material else
-              f"not wholly beyond the {MATERIAL_SD:g} SD threshold of materiality")
+    beyond = (f"wholly beyond the {material_sd:g} SD threshold of materiality" if material else
+              f"not wholly beyond the {material_sd:g} SD threshold of materiality")
+    if design == WITHIN_ARM_EFFECT:
+        if material:
+            return (f"{lead}, {beyond}: {WITHIN_ARM_BIAS}; the randomised comparison between arms is not "
+                    f"biased by it.")
+        return (f"{lead}, {beyond}; the within-arm change reported as the treatment effect still includes "
+                f"part of it.")
     if design in WITHIN_ARM_DESIGNS:
+        if material and getattr(spec, "effect_basis", "between-arm") == WITHIN_ARM_EFFECT:
+            return (f"{lead}, {beyond}: {WITHIN_ARM_BIAS}, and without a control arm the before-after change "
+                    f"cannot be told apart from it.")
         if material:
             return f"{lead}, {beyond}: without a control arm the before-after change cannot be told apart from it."
         return (f"{lead}, {beyond}; without a control arm a before-after change may still include part of "
@@ -1108,9 +1138,10 @@ def evidence(spec, design, sel, finds, scale, rtm, target, obs, second, ctx) -> 
     return "Evidence: " + "; ".join(parts) + (f". {advice[0].upper()}{advice[1:]}." if advice else ".")
 
 
-def headline(spec, design, sel, finds, scale, rtm, target, obs, second, ctx, sigma, material) -> str:
+def headline(spec, design, sel, finds, scale, rtm, target, obs, second, ctx, sigma, material,
+             material_sd: float = MATERIAL_SD) -> str:
     """Consequence first, with its interval; then the evidence."""
-    return (f"{consequence(spec, design, sel, scale, target, sigma, material)} "
+    return (f"{consequence(spec, design, sel, scale, target, sigma, material, material_sd)} "
             f"{evidence(spec, design, sel, finds, scale, rtm, target, obs, second, ctx)}")
 
 
@@ -1187,24 +1218,28 @@ def run(data, ctx: CheckContext):
     shrinkage_section(spec, rd, scale, rho, sel, rel, out)
     second = second_baseline_share(data, ctx, rd, scale, sel, rel, rho, out)
     sigma = scale.fit.sigma
-    material = is_material(target, sigma)
-    verdict = decide(data.design, material, no_one_out)
+    material_sd = ctx.thresholds.rtm_shift_sd
+    design = judged_design(data)
+    material = is_material(target, sigma, material_sd)
+    verdict = decide(design, material, no_one_out)
     out.estimates.append(estimate("Expected shift in the analysed change, in SDs of the unselected population",
                                   target.estimate / sigma, target.lower / sigma, target.upper / sigma,
-                                  note=f"material when the whole interval lies beyond {MATERIAL_SD:g} SD "
-                                       f"(convention of this tool)", by_arm=target_by_arm,
+                                  note=f"material when the whole interval lies beyond {material_sd:g} SD "
+                                       f"(rtm_shift_sd; default a convention of this tool)", by_arm=target_by_arm,
                                   key="regression-to-mean.shift-sd"))
-    bias_sub(spec, data.design, sel, target, sigma, scale, material, verdict, target_by_arm, out)
+    bias_sub(spec, design, sel, target, sigma, scale, material, verdict, target_by_arm, out, material_sd)
     figures = [f for f in (pairs_figure(spec, rd, scale, sel, rel), truncation_figure(spec, rd, scale, sel)) if f]
     out.figures = figures + out.figures + [
         comparison_figure(spec, scale, figure_rows(sel, rtm, target, obs, pre), by_arm)]
     caveats(ctx, rel, out)
     further_conditions_caveat(spec, out)
     text = (no_one_out_headline(spec, sel, finds, scale, rtm, target, share_out) if no_one_out and not material
-            else headline(spec, data.design, sel, finds, scale, rtm, target, obs, second, ctx, sigma, material))
+            else headline(spec, design, sel, finds, scale, rtm, target, obs, second, ctx, sigma, material,
+                          material_sd))
     return result(check, data, verdict, text,
                   subfindings=out.subfindings, estimates=out.estimates, figures=out.figures, caveats=out.caveats,
                   recommendation=recommended_analysis(data.design, verdict, second),
                   references=cite(["barnett-2005", "shrout-fleiss-1979", "pearson-1903", "cohen-1991",
                                    "kelley-1947"] + (["goodman-1960"] if sel.column != "baseline" else [])),
-                  method=_METHOD)
+                  method=_METHOD + f" Material: the whole interval of the expected shift beyond {material_sd:g} "
+                                   f"SD of the unselected population (rtm_shift_sd).")

@@ -16,6 +16,7 @@ VERDICT_CLASS = {
     Verdict.UNSUPPORTED: "v-unsupported",
     Verdict.NOT_ASSESSABLE: "v-na",
     Verdict.TOOL_DEFECT: "v-defect",
+    Verdict.FOR_INFORMATION: "v-info",
 }
 
 PLANNED_TEXT = {
@@ -231,6 +232,7 @@ def _audit_strings(audit: Audit) -> dict:
             "options": sorted((k, str(v)) for k, v in p.options.items()),
             "seed": p.seed,
             "platform": p.platform,
+            "thresholds": sorted((k, number(v)) for k, v in p.thresholds.items()),
         },
         "left_out": None if audit.left_out is None else left_out_view(audit),
         "schema_version": audit.schema_version,
@@ -268,14 +270,17 @@ VERDICT_WORST_FIRST = sorted(Verdict, key=lambda v: -v.rank)
 def outcome_paragraph(o: dict, results: list[CheckResult], order: dict[str, int]) -> dict:
     """One outcome's memo paragraph, assembled from its results: the planned analysis, the worst finding's
     verdict and headline (which states the consequence with its interval), the recommended analysis of
-    that finding, the other findings that are not sound (verdict and headline), and the sound ones by title.
-    Ties between equally bad findings go to one that recommends an analysis, then to the check that comes
-    first in the report."""
-    ranked = sorted(results, key=lambda r: (-r.verdict.rank, not r.recommendation, order.get(r.check_id, 0)))
+    that finding, the other findings that are not sound (verdict and headline), and the sound ones by title
+    (descriptive "for information" findings are not listed). Ties between equally bad findings go to a
+    judging check before a descriptive one, to one that recommends an analysis, then to the check that
+    comes first in the report."""
+    quiet = (Verdict.SOUND, Verdict.FOR_INFORMATION)
+    ranked = sorted(results, key=lambda r: (-r.verdict.rank, r.verdict is Verdict.FOR_INFORMATION,
+                                            not r.recommendation, order.get(r.check_id, 0)))
     advised = [r for r in ranked if r.recommendation]
     lead = ranked[0] if ranked else None
     advice = advised[0].recommendation if advised else ""
-    others = [r for r in ranked[1:] if r.verdict is not Verdict.SOUND]
+    others = [r for r in ranked[1:] if r.verdict not in quiet]
     sound = [r.check_title for r in ranked[1:] if r.verdict is Verdict.SOUND]
     return {
         "param": o["param"],

@@ -215,3 +215,22 @@ simulation(SimulationCase(
 simulation(SimulationCase(
     "count-time/shorter-active", "count-time", "the active arm observed for fewer days: called unsupported",
     ">= 0.80", _count_time("detect"), "detection", 0.80))
+
+
+def _percent_change_rate(scenario: str, n: int, *verdicts: str):
+    def compute(replicates: int, seed: int) -> float:
+        from .percent_change_cases import verdict_rates
+
+        rates = verdict_rates(scenario, replicates, seed, n)
+        return sum(rates[v] for v in verdicts)
+    return compute
+
+
+simulation(SimulationCase(
+    "percent-change/null-multiplicative", "percent-change", "multiplicative effect, log-normal error (N = 200): "
+    "percent change called unsupported", "<= 0.05 + 2 MCSE", _percent_change_rate("multiplicative", 200, "unsupported"),
+    "false-alarm", 0.05))
+simulation(SimulationCase(
+    "percent-change/additive-costly", "percent-change", "additive effect, baseline varying fifteenfold (N = 200): "
+    "percent change called unsupported", ">= 0.80", _percent_change_rate("additive", 200, "unsupported"),
+    "detection", 0.80))

@@ -199,7 +199,7 @@ def test_a_scale_bound_is_not_a_sharp_edge():
     assert sel.verdict.value == "sound" and "not tested at the upper end at the scale bound 28" in sel.evidence
 
 
-def test_the_edge_test_is_not_run_on_values_the_declared_criterion_selected():
+def test_the_edge_test_runs_only_on_the_side_the_declared_criterion_did_not_select():
     from auditor.metadata import OutcomeSpec
     from auditor.study import OutcomeData
 
@@ -211,8 +211,12 @@ def test_the_edge_test_is_not_run_on_values_the_declared_criterion_selected():
                        followup_visits=["F"], planned_analysis="change",
                        entry_criterion={"visit": "B", "operator": ">=", "value": 50})
     res = run(OutcomeData(spec, data.frame, data.arms, data.control_arm, data.design, []), CTX)
-    assert not any(e.name.startswith("Truncation-edge") for e in res.estimates)
-    assert _sub(res, "selection").verdict.value == "caution"  # from the declaration, not the edge test
+    # The selected (lower) end is never tested; the unselected upper end is, and has no edge here.
+    edge = [e for e in res.estimates if e.name.startswith("Truncation-edge")]
+    assert len(edge) == 1 and "unselected side" in edge[0].name and edge[0].note.startswith("upper edge")
+    sel = _sub(res, "selection")
+    assert sel.verdict.value == "caution"  # from the declaration, not the edge test
+    assert "no evidence of a sharp edge at the unselected upper end" in sel.evidence
 
 
 def test_hidden_selection_alone_raises_caution_only():

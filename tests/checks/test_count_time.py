@@ -180,3 +180,40 @@ def test_a_warning_from_the_rate_fit_becomes_a_caveat(monkeypatch):
     res = cases.run_check(cases.simulate(np.random.default_rng(2), days_active=(8, 28)))
     warned = [c for c in res.caveats if "did not fully converge" in c]
     assert len(warned) == 1, res.caveats
+
+
+# --------------------------------------------------------------------------- verdicts on the consequence
+
+
+def test_headline_states_the_shift_with_its_interval():
+    # Known truth: diaries of 10-20 days on the active arm against 16-28: without time the comparison
+    # moves by about 15 / 22 = 0.68 (mean days, by construction), wholly beyond 1/1.1.
+    res = cases.run_check(cases.simulate(np.random.default_rng(31), n=400, days_active=(10, 20)))
+    s = _est(res, "Count ratio over rate ratio")
+    assert res.verdict == Verdict.UNSUPPORTED and s.upper < 1 / 1.1 and s.lower <= 15 / 22 <= s.upper
+    assert res.headline.startswith("Ignoring observation time moves the treatment comparison (Active vs Placebo) "
+                                   f"by a factor of {s.value:.2f} ({s.lower:.2f} to {s.upper:.2f})")
+    assert "wholly beyond the materiality threshold (1.1 or 1/1.1)" in res.headline
+
+
+def test_balanced_times_say_no_evidence_of_a_shift():
+    res = cases.run_check(cases.simulate(np.random.default_rng(32), days_control=(8, 28), days_active=(8, 28)))
+    assert res.verdict == Verdict.CAUTION
+    assert "no evidence that ignoring time moves the comparison" in res.headline
+    assert "no evidence that observation time differs between arms" in res.headline
+
+
+def test_changed_count_ratio_threshold_changes_the_verdict_on_the_same_data():
+    # The same trial (shift about 0.68): unsupported at the default 1.1, caution when the threshold is a
+    # factor of 2 (the interval cannot lie wholly beyond 1/2).
+    from auditor.checks.count_time import run
+    from auditor.checks.registry import CheckContext
+    from auditor.metadata import Thresholds
+
+    frame = cases.simulate(np.random.default_rng(33), n=400, days_active=(10, 20))
+    data = cases.outcome_data_for(frame)
+    default = run(data, CheckContext(seed=1, blinded=False, quick=True))
+    loose = run(data, CheckContext(seed=1, blinded=False, quick=True, thresholds=Thresholds(count_ratio=2.0)))
+    assert default.verdict == Verdict.UNSUPPORTED and loose.verdict == Verdict.CAUTION
+    assert "not wholly beyond the materiality threshold (2 or 1/2)" in loose.headline
+    assert "beyond a factor of 2 or its inverse" in loose.method

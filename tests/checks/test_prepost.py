@@ -64,11 +64,11 @@ def test_correlation_refuses_constant_input():
 
 def test_example_prepost_verdicts(example_audit):
     # The check is descriptive (docs/methods/pre-post.md): every example outcome is assessable, so
-    # every verdict is sound. Before, FENO (and five others) were cautions worded about change scores
+    # every verdict is "for information" (a descriptive check judges no analysis). Before, FENO (and five others) were cautions worded about change scores
     # even where ANCOVA is planned; that judgement belongs to the change-score check.
     by = {r.outcome: r for r in example_audit.results if r.check_id == "pre-post"}
     assert {p: r.verdict.value for p, r in by.items()} == dict.fromkeys(
-        ["FEV1", "FENO", "EOS", "NSS", "K", "ACS", "RESC"], "sound")
+        ["FEV1", "FENO", "EOS", "NSS", "K", "ACS", "RESC"], "for information")
     # FEV1 is generated as baseline + effect + noise: slope 1 by construction.
     slope = next(e for e in by["FEV1"].estimates if e.name.startswith("Slope"))
     assert slope.lower <= 1 <= slope.upper
@@ -100,7 +100,8 @@ def test_prepost_headline_reports_the_computed_numbers():
     frame = pd.DataFrame({"subject": [f"S{i}" for i in range(n)], "arm": arm, "baseline": b, "followup": f,
                           "fu:F": f})
     res = run(OutcomeData(spec, frame, ["A", "B"], "A", "parallel", []), CheckContext(seed=1, blinded=False))
-    assert res.verdict.value == "sound"
+    assert res.verdict.value == "for information"
+    assert all(s.verdict.value == "for information" for s in res.subfindings)
     est, lo, hi, *_ = baseline_slope(frame, ["A", "B"], "A")
     assert lo < 0.6 < hi and f"{est:.2f} ({lo:.2f} to {hi:.2f})" in res.headline
     assert "change" not in res.headline

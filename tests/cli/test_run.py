@@ -126,7 +126,7 @@ def test_api_returns_audit_with_dataframe():
     a = aud.audit(EXAMPLE, checks=("pre-post",), quick=True)
     df = a.findings_frame()
     assert list(df["outcome"]) == ["FEV1", "FENO", "EOS", "NSS", "K", "ACS", "RESC"]
-    assert set(df["verdict"]) <= {"sound", "caution", "unsupported", "not assessable"}
+    assert set(df["verdict"]) <= {"sound", "caution", "unsupported", "not assessable", "for information"}
 
 
 def test_label_with_markup_is_escaped(example_copy, tmp_path):
