@@ -16,7 +16,9 @@ SCHEMA_VERSION = "1.2"
 """1.1: the ``checks`` list (id, title, order, summary of every check in the audit).
 1.2: every estimate carries a stable ``key`` (and ``arm`` when it describes one of several contrasts);
 each result's ``recommendation`` and the audit's ``report`` block (data cut, version, author,
-interim, what a blinded audit withholds); readers of 1.1 files ignore neither, as both are additions."""
+interim, what a blinded audit withholds); the verdict "for information" (descriptive checks); the
+materiality thresholds used (``provenance.thresholds``); each outcome's ``record_selection``. All are
+additions, so a reader of 1.1 files can ignore them."""
 
 
 class Verdict(str, Enum):
