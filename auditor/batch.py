@@ -120,14 +120,18 @@ def audit_one(args: tuple) -> StudyOutcome:
     """Worker: audit one study folder into ``target`` (all four files or none)."""
     folder, name, target, options, paper, force = args
     from .pipeline import AuditOptions, audit_study
-    from .render.output import write_audit
+    from .render.output import FORMATS, write_audit
     from .study import load_study
     from .writeguard import OutputRefused
 
+    options = dict(options)
+    formats = tuple(options.pop("formats", ",".join(FORMATS)).split(","))
+    figure_data = bool(options.pop("figure_data", False))
     try:
         study = load_study(folder)
-        audit = audit_study(study, AuditOptions(**options))
-        write_audit(audit, Path(target), force=force, paper=paper, protected=[Path(folder)])
+        audit = audit_study(study, AuditOptions(**options, draw=bool({"html", "pdf"} & set(formats))))
+        write_audit(audit, Path(target), force=force, paper=paper, protected=[Path(folder)],
+                    formats=formats, figure_data=figure_data)
     except StudyInputError as exc:
         first = exc.problems[0].one_line()
         more = f" (and {len(exc.problems) - 1} more)" if len(exc.problems) > 1 else ""

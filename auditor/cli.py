@@ -153,6 +153,39 @@ def _summary_table(audit) -> Table:
     return table
 
 
+PROGRESS_MIN_OUTCOMES = 20
+"""From this many outcomes a run reports its progress even when stderr is not a terminal (a log
+file, a CI job): a line per outcome. A convention of this tool."""
+
+
+@contextlib.contextmanager
+def _outcome_progress(total: int, quiet: bool):
+    """A ``progress(done, total, param)`` callback for :func:`~auditor.pipeline.audit_study`, shown
+    on stderr only (never in an output file): a progress bar on a terminal, one line per outcome in
+    a long run elsewhere, nothing for a short run that is not on a terminal or with --quiet."""
+    if quiet or total == 0 or not (err.is_terminal or total >= PROGRESS_MIN_OUTCOMES):
+        yield None
+        return
+    if not err.is_terminal:
+        def line(done, n, param):
+            err.print(f"outcome {done} of {n} audited ({one_line_text(param, 80)})", markup=False)
+
+        from .errors import one_line_text
+
+        yield line
+        return
+    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
+
+    with Progress(TextColumn("outcomes"), BarColumn(), MofNCompleteColumn(), TextColumn("{task.fields[last]}"),
+                  TimeElapsedColumn(), console=err, transient=True) as progress:
+        task = progress.add_task("outcomes", total=total, last="")
+
+        def tick(done, n, param):
+            progress.update(task, completed=done, last=Text(param))
+
+        yield tick
+
+
 @app.command()
 def run(
     study_dir: Path = typer.Argument(..., help="The study folder (holding study.toml)."),
@@ -173,26 +206,38 @@ def run(
         False, "--list-left-out",
         help="Name, in the report's appendix and findings.json, the participants each outcome's analysis "
              "leaves out and why. This writes participant identifiers: off by default."),
+    formats: str = typer.Option("html,pdf,json,csv", "--formats",
+                                help="Which files to write, comma-separated: html, pdf, json, csv."),
+    figure_data: bool = typer.Option(False, "--figure-data",
+                                     help="Keep in findings.json the data arrays every figure is drawn from."),
+    jobs: int = typer.Option(0, "--jobs", "-j", help="Processes across outcomes (default: the number of cores)."),
 ):
     """Audit a study folder: write audit.html, audit.pdf, findings.json and findings.csv."""
-    from .options import (check_id_problems, date_problems, paper_problems, paper_size, refuse_if_any,
-                          registered_check_ids, seed_problems)
+    from .options import (check_id_problems, date_problems, formats_problems, jobs_problems, output_formats,
+                          paper_problems, paper_size, refuse_if_any, registered_check_ids, seed_problems)
     from .pipeline import AuditOptions, audit_study
     from .render.output import check_target, write_audit
     from .study import load_study
 
     def body():
         refuse_if_any(seed_problems(seed), date_problems(analysis_date, "--analysis-date"),
-                      check_id_problems(check, registered_check_ids()), paper_problems(paper))
+                      check_id_problems(check, registered_check_ids()), paper_problems(paper),
+                      formats_problems(formats), jobs_problems(jobs))
+        chosen = output_formats(formats)
         check_target(output, force, protected=[study_dir])
         study = load_study(study_dir)
         _print_study_warnings(study, blinded)
+        from .batch import default_jobs
+
         opts = AuditOptions(blinded=blinded, analysis_date=analysis_date, use_clock=today, seed=seed,
                             checks=tuple(check), list_left_out=list_left_out,
+                            draw=bool({"html", "pdf"} & set(chosen)), jobs=jobs or default_jobs(),
                             **({"strict": True} if strict else {}))
-        a = audit_study(study, opts)
+        with _outcome_progress(len(study.metadata.outcomes), quiet) as tick:
+            a = audit_study(study, opts, progress=tick)
         _warn_defects(a)
-        paths, recovery = write_audit(a, output, force=force, paper=paper_size(paper), protected=[study_dir])
+        paths, recovery = write_audit(a, output, force=force, paper=paper_size(paper), protected=[study_dir],
+                                      formats=chosen, figure_data=figure_data)
         _report_recovery(recovery, output)
         if not quiet:
             out.print(_summary_table(a))
@@ -241,18 +286,23 @@ def batch(
     analysis_date: Optional[str] = typer.Option(None, "--analysis-date", help="Date printed on every report."),
     seed: Optional[int] = typer.Option(None, "--seed", help="Seed for every resampling (default: each study's)."),
     paper: str = typer.Option("A4", "--paper", help="PDF page size: A4 or letter."),
+    formats: str = typer.Option("html,pdf,json,csv", "--formats",
+                                help="Which files to write for each study, comma-separated: html, pdf, json, csv."),
+    figure_data: bool = typer.Option(False, "--figure-data",
+                                     help="Keep in each findings.json the data arrays every figure is drawn from."),
 ):
     """Audit many studies in parallel: OUT/<study>/, OUT/index.html and OUT/summary.csv."""
     from .batch import default_jobs, expand_inputs, gate_reached, index_view, refuse_unsafe_batch, summary_csv
-    from .options import (date_problems, fail_on_problems, jobs_problems, paper_problems, paper_size, refuse_if_any,
-                          seed_problems)
+    from .options import (date_problems, fail_on_problems, formats_problems, jobs_problems, output_formats,
+                          paper_problems, paper_size, refuse_if_any, seed_problems)
     from .pipeline import CAUTIONS
     from .render.html import render_view
     from .writeguard import write_file_set
 
     def body():
         refuse_if_any(jobs_problems(jobs), fail_on_problems(fail_on), seed_problems(seed),
-                      date_problems(analysis_date, "--analysis-date"), paper_problems(paper))
+                      date_problems(analysis_date, "--analysis-date"), paper_problems(paper),
+                      formats_problems(formats))
         folders = expand_inputs(inputs)
         missing = [f for f in folders if not f.is_dir()]
         if missing:
@@ -261,6 +311,8 @@ def batch(
             raise typer.Exit(EXIT_INPUT)
         refuse_unsafe_batch(folders, output, force)
         options = {"blinded": blinded, "analysis_date": analysis_date, "seed": seed}
+        if formats != "html,pdf,json,csv" or figure_data:
+            options.update(formats=",".join(output_formats(formats)), figure_data=figure_data)
         n_jobs = jobs or default_jobs()
         results = _run_with_progress(folders, output, options, n_jobs, paper_size(paper), force)
         view = {**index_view(results, {**options, "paper": paper}), "cautions": CAUTIONS}
