@@ -177,11 +177,14 @@ def _outcome_progress(total: int, quiet: bool):
     from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
 
     with Progress(TextColumn("outcomes"), BarColumn(), MofNCompleteColumn(), TextColumn("{task.fields[last]}"),
-                  TimeElapsedColumn(), console=err, transient=True) as progress:
+                  TimeElapsedColumn(), console=err, transient=True, auto_refresh=False) as progress:
+        # No refresh thread: outcomes may be audited in forked processes, and a fork should not copy
+        # a thread that holds the console's lock.
         task = progress.add_task("outcomes", total=total, last="")
 
         def tick(done, n, param):
             progress.update(task, completed=done, last=Text(param))
+            progress.refresh()
 
         yield tick
 

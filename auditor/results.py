@@ -12,8 +12,9 @@ from dataclasses import asdict, dataclass, field
 from enum import Enum
 from typing import Any
 
-SCHEMA_VERSION = "1.1"
-"""1.1: the ``checks`` list (id, title, order, summary of every check in the audit)."""
+SCHEMA_VERSION = "1.2"
+"""1.1: the ``checks`` list (id, title, order, summary of every check in the audit). 1.2: a figure's
+``data`` arrays only with ``--figure-data`` (docs/findings-json.md)."""
 
 
 class Verdict(str, Enum):

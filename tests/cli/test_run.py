@@ -44,7 +44,7 @@ def test_html_is_self_contained(audit_dir):
 
 def test_findings_json_carries_schema_and_provenance(audit_dir):
     d = json.loads((audit_dir / "findings.json").read_text())
-    assert d["schema_version"] == "1.1"
+    assert d["schema_version"] == "1.2"
     assert [c["id"] for c in d["checks"]] == ["pre-post"]  # the fixture runs --check pre-post only
     assert all(c["title"] and c["summary"] for c in d["checks"])
     assert d["study_id"] == "TQ-ASTH-02"
