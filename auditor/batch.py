@@ -197,7 +197,9 @@ def summary_csv(results: list[StudyOutcome]) -> str:
 
 
 def index_view(results: list[StudyOutcome], options: dict) -> dict:
-    """Display strings for OUT/index.html: one row per study, verdict counts by check."""
+    """Display strings for OUT/index.html: one row per study, verdict counts by check (a study is
+    linked to its audit.html only when the batch wrote one, see ``--formats``)."""
+    with_html = "html" in str(options.get("formats", "html")).split(",")
     checks = sorted({r["check_id"] for s in results for r in s.rows})
     verdicts = [v.value for v in Verdict]
     studies = []
@@ -210,7 +212,7 @@ def index_view(results: list[StudyOutcome], options: dict) -> dict:
                     counts[r["verdict"]] += 1
             cells.append(", ".join(f"{n} {v}" for v, n in counts.items() if n) or "–")
         studies.append({"name": s.name, "study_id": s.study_id or "–", "status": s.status, "error": s.error,
-                        "link": f"{s.name}/audit.html" if s.status == "ok" else "", "cells": cells,
+                        "link": f"{s.name}/audit.html" if s.status == "ok" and with_html else "", "cells": cells,
                         "n_outcomes": s.n_outcomes})
     totals = {v: sum(1 for s in results for r in s.rows if r["verdict"] == v) for v in verdicts}
     return {"studies": studies, "checks": checks, "totals": list(totals.items()),

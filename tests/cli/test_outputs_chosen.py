@@ -66,6 +66,7 @@ def test_batch_refuses_an_unknown_format_and_honours_a_known_one(small_study, tm
                               "--formats", "json"])
     assert res.exit_code == 0, _stderr(res)
     assert sorted(p.name for p in (tmp_path / "b" / "study").iterdir()) == ["findings.json"]
+    assert "audit.html" not in (tmp_path / "b" / "index.html").read_text()  # no link to a file not written
 
 
 def _figures_of(text: str) -> list[dict]:
