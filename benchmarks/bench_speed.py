@@ -9,7 +9,8 @@ Prints, for the example study:
 2. ``auditor run`` wall time, peak memory and output sizes: the earlier revision, this tree at
    ``--jobs 1`` and this tree at its default (one process per core); then this tree writing JSON and
    CSV only (``--formats json,csv``);
-3. with ``--outcomes N``, a synthetic study of N outcomes x 30 participants (this tree only, at N
+3. the same audit in stages (imports, loading, checks with figures, HTML, PDF), before and after;
+4. with ``--outcomes N``, a synthetic study of N outcomes x 30 participants (this tree only, at N
    and 2N outcomes, JSON and CSV), to show that time and memory grow linearly in outcomes.
 
     python benchmarks/bench_speed.py [--baseline REV] [--repeats 3] [--outcomes 0]
@@ -66,6 +67,32 @@ def cli(tree: Path, *args: str) -> tuple[float, float]:
         raise SystemExit(f"{tree}: auditor {' '.join(args)} failed ({res.returncode}):\n{res.stderr[-2000:]}")
     peak_kb = int(res.stderr.rsplit("PEAK_KB", 1)[1].split()[0])
     return wall, peak_kb / 1024
+
+
+_STAGES = (
+    "import json, sys, time\n"
+    "t0 = time.perf_counter()\n"
+    "from auditor.pipeline import audit_study\n"
+    "from auditor.render.html import report_html\n"
+    "from auditor.render.pdf import html_to_pdf\n"
+    "from auditor.study import load_study\n"
+    "t1 = time.perf_counter(); study = load_study(sys.argv[1])\n"
+    "t2 = time.perf_counter(); audit = audit_study(study)\n"
+    "t3 = time.perf_counter(); html = report_html(audit)\n"
+    "t4 = time.perf_counter(); html_to_pdf(html)\n"
+    "t5 = time.perf_counter()\n"
+    "print(json.dumps({'imports': t1 - t0, 'load': t2 - t1, 'checks and figures': t3 - t2, 'html': t4 - t3,"
+    " 'pdf': t5 - t4}))\n"
+)
+"""One process, one outcome after another: where an audit's time goes, in either tree's own API."""
+
+
+def stages(tree: Path, study: Path) -> dict:
+    env = {**os.environ, "PYTHONPATH": str(tree)}
+    env.pop("AUDITOR_STRICT", None)
+    res = subprocess.run([sys.executable, "-c", _STAGES, str(study)], cwd=tree, env=env, capture_output=True,
+                         text=True, check=True)
+    return json.loads(res.stdout.strip().splitlines()[-1])
 
 
 def sizes(folder: Path) -> str:
@@ -139,8 +166,13 @@ def main() -> None:
         same = [(r["verdict"], r["headline"]) for r in old_results] == [(r["verdict"], r["headline"]) for r in new_results]
         print(f"   verdicts and headlines identical before and after: {same}")
 
+        print("\n3. where the time goes (one process, outcomes in turn)")
+        st_old, st_new = stages(old, EXAMPLE), stages(new, EXAMPLE)
+        for k in st_old:
+            print(f"   {k:20s} before {st_old[k]:6.1f} s   after {st_new[k]:6.1f} s   ratio {st_new[k] / st_old[k]:4.2f}")
+
         if args.outcomes:
-            print(f"\n3. many outcomes x 30 participants, this tree, --formats json,csv and full")
+            print(f"\n4. many outcomes x 30 participants, this tree, --formats json,csv and full")
             for k in (args.outcomes, 2 * args.outcomes):
                 make_many_outcomes(tmp / f"many{k}", k)
                 for fmt in ("json,csv", "html,pdf,json,csv"):
