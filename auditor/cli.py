@@ -142,6 +142,17 @@ def _report_recovery(recovery, folder: Path) -> None:
         err.print(f"note: {message}.", markup=False)
 
 
+def _note_files_left(folder: Path, formats) -> None:
+    """Say which audit files of an earlier run stay in ``folder`` untouched, because ``--formats``
+    did not ask for them: they describe that earlier audit, not this one."""
+    from .render.output import FORMATS
+
+    left = [name for fmt, name in FORMATS.items() if fmt not in formats and (folder / name).is_file()]
+    if left:
+        err.print(f"note: {', '.join(left)} in {folder} are from an earlier audit and were left as they were "
+                  f"(not in --formats).", markup=False)
+
+
 def _summary_table(audit) -> Table:
     table = Table(title=Text(f"{audit.study_id}: findings"), show_lines=False)
     table.add_column("Outcome")
@@ -242,6 +253,7 @@ def run(
         paths, recovery = write_audit(a, output, force=force, paper=paper_size(paper), protected=[study_dir],
                                       formats=chosen, figure_data=figure_data)
         _report_recovery(recovery, output)
+        _note_files_left(output, chosen)
         if not quiet:
             out.print(_summary_table(a))
         for p in paths:

@@ -38,6 +38,16 @@ def test_formats_json_csv_writes_those_two_files_only(small_study, tmp_path):
     assert sorted(p.name for p in out.iterdir()) == ["findings.csv", "findings.json"]
 
 
+def test_files_of_an_earlier_audit_not_rewritten_are_named(small_study, tmp_path):
+    out = tmp_path / "audit"
+    assert runner.invoke(app, ["run", str(small_study), "-o", str(out), "--formats", "json,csv", *PRE_POST]).exit_code == 0
+    before = (out / "findings.csv").read_bytes()
+    res = runner.invoke(app, ["run", str(small_study), "-o", str(out), "--formats", "json", "--force", *PRE_POST])
+    assert res.exit_code == 0, _stderr(res)
+    assert "note: findings.csv in " in _stderr(res) and "left as they were (not in --formats)" in _stderr(res)
+    assert (out / "findings.csv").read_bytes() == before  # never touched
+
+
 def test_formats_pdf_alone_and_in_any_order_or_case(small_study, tmp_path):
     out = tmp_path / "audit"
     res = runner.invoke(app, ["run", str(small_study), "-o", str(out), "--formats", " CSV ,html", *PRE_POST])
