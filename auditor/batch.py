@@ -127,7 +127,7 @@ def audit_one(args: tuple) -> StudyOutcome:
     """Worker: audit one study folder into ``target`` (all four files or none)."""
     folder, name, target, options, paper, force = args
     from .pipeline import AuditOptions, audit_study
-    from .render.output import write_audit
+    from .render.output import FORMATS, write_audit
     from .study import load_study
     from .writeguard import OutputRefused
 
@@ -136,11 +136,15 @@ def audit_one(args: tuple) -> StudyOutcome:
     def failed(error: str) -> StudyOutcome:
         return StudyOutcome(str(folder), name, "failed", error=error, **declared_identity(Path(folder), options))
 
+    options = dict(options)
+    formats = tuple(options.pop("formats", ",".join(FORMATS)).split(","))
+    figure_data = bool(options.pop("figure_data", False))
+    memo = bool(options.pop("memo", False))
     try:
         study = load_study(folder)
-        audit = audit_study(study, AuditOptions(**{k: v for k, v in options.items() if k != "memo"}))
+        audit = audit_study(study, AuditOptions(**options, draw=bool({"html", "pdf"} & set(formats))))
         write_audit(audit, Path(target), force=force, paper=paper, protected=[Path(folder)],
-                    memo=bool(options.get("memo")))
+                    formats=formats, figure_data=figure_data, memo=memo)
     except StudyInputError as exc:
         first = exc.problems[0].one_line()
         more = f" (and {len(exc.problems) - 1} more)" if len(exc.problems) > 1 else ""
@@ -236,7 +240,9 @@ def summary_csv(results: list[StudyOutcome]) -> str:
 
 
 def index_view(results: list[StudyOutcome], options: dict) -> dict:
-    """Display strings for OUT/index.html: one row per study, verdict counts by check."""
+    """Display strings for OUT/index.html: one row per study, verdict counts by check (a study is
+    linked to its audit.html only when the batch wrote one, see ``--formats``)."""
+    with_html = "html" in str(options.get("formats", "html")).split(",")
     checks = sorted({r["check_id"] for s in results for r in s.rows})
     verdicts = [v.value for v in Verdict]
     studies = []
@@ -249,7 +255,7 @@ def index_view(results: list[StudyOutcome], options: dict) -> dict:
                     counts[r["verdict"]] += 1
             cells.append(", ".join(f"{n} {v}" for v, n in counts.items() if n) or "–")
         studies.append({"name": s.name, "study_id": s.study_id or "–", "status": s.status, "error": s.error,
-                        "link": f"{s.name}/audit.html" if s.status == "ok" else "", "cells": cells,
+                        "link": f"{s.name}/audit.html" if s.status == "ok" and with_html else "", "cells": cells,
                         "n_outcomes": s.n_outcomes})
     totals = {v: sum(1 for s in results for r in s.rows if r["verdict"] == v) for v in verdicts}
     return {"studies": studies, "checks": checks, "totals": list(totals.items()),

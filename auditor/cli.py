@@ -148,6 +148,17 @@ def _report_recovery(recovery, folder: Path) -> None:
         err.print(f"note: {message}.", markup=False)
 
 
+def _note_files_left(folder: Path, formats) -> None:
+    """Say which audit files of an earlier run stay in ``folder`` untouched, because ``--formats``
+    did not ask for them: they describe that earlier audit, not this one."""
+    from .render.output import FORMATS
+
+    left = [name for fmt, name in FORMATS.items() if fmt not in formats and (folder / name).is_file()]
+    if left:
+        err.print(f"note: {', '.join(left)} in {folder} are from an earlier audit and were left as they were "
+                  f"(not in --formats).", markup=False)
+
+
 def _summary_table(audit) -> Table:
     table = Table(title=Text(f"{audit.study_id}: findings"), show_lines=False)
     table.add_column("Outcome")
@@ -157,6 +168,42 @@ def _summary_table(audit) -> Table:
     for r in audit.results:
         table.add_row(*_cells(r.outcome, r.check_id, r.verdict.value, r.headline))
     return table
+
+
+PROGRESS_MIN_OUTCOMES = 20
+"""From this many outcomes a run reports its progress even when stderr is not a terminal (a log
+file, a CI job): a line per outcome. A convention of this tool."""
+
+
+@contextlib.contextmanager
+def _outcome_progress(total: int, quiet: bool):
+    """A ``progress(done, total, param)`` callback for :func:`~auditor.pipeline.audit_study`, shown
+    on stderr only (never in an output file): a progress bar on a terminal, one line per outcome in
+    a long run elsewhere, nothing for a short run that is not on a terminal or with --quiet."""
+    if quiet or total == 0 or not (err.is_terminal or total >= PROGRESS_MIN_OUTCOMES):
+        yield None
+        return
+    if not err.is_terminal:
+        def line(done, n, param):
+            err.print(f"outcome {done} of {n} audited ({one_line_text(param, 80)})", markup=False)
+
+        from .errors import one_line_text
+
+        yield line
+        return
+    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
+
+    with Progress(TextColumn("outcomes"), BarColumn(), MofNCompleteColumn(), TextColumn("{task.fields[last]}"),
+                  TimeElapsedColumn(), console=err, transient=True, auto_refresh=False) as progress:
+        # No refresh thread: outcomes may be audited in forked processes, and a fork should not copy
+        # a thread that holds the console's lock.
+        task = progress.add_task("outcomes", total=total, last="")
+
+        def tick(done, n, param):
+            progress.update(task, completed=done, last=Text(param))
+            progress.refresh()
+
+        yield tick
 
 
 @app.command()
@@ -185,10 +232,15 @@ def run(
         None, "--withhold-pooled/--show-pooled",
         help="In a blinded audit, withhold the pooled numbers as well (verdicts and questions only); "
              "default: as study.toml's withhold_pooled says."),
+    formats: str = typer.Option("html,pdf,json,csv", "--formats",
+                                help="Which files to write, comma-separated: html, pdf, json, csv."),
+    figure_data: bool = typer.Option(False, "--figure-data",
+                                     help="Keep in findings.json the data arrays every figure is drawn from."),
+    jobs: int = typer.Option(0, "--jobs", "-j", help="Processes across outcomes (default: the number of cores)."),
 ):
     """Audit a study folder: write audit.html, audit.pdf, findings.json and findings.csv (and the memo)."""
-    from .options import (check_id_problems, date_problems, paper_problems, paper_size, refuse_if_any,
-                          registered_check_ids, seed_problems)
+    from .options import (check_id_problems, date_problems, formats_problems, jobs_problems, output_formats,
+                          paper_problems, paper_size, refuse_if_any, registered_check_ids, seed_problems)
     from .pipeline import AuditOptions, audit_study
     from .render.output import check_target, write_audit
     from .study import load_study
@@ -200,18 +252,25 @@ def run(
                            for o, given in (("--blinded", blinded), ("--list-left-out", list_left_out)) if given])
             return _run_summaries(study_dir, output, force, analysis_date, today, seed, paper, check, strict, quiet)
         refuse_if_any(seed_problems(seed), date_problems(analysis_date, "--analysis-date"),
-                      check_id_problems(check, registered_check_ids()), paper_problems(paper))
+                      check_id_problems(check, registered_check_ids()), paper_problems(paper),
+                      formats_problems(formats), jobs_problems(jobs))
+        chosen = output_formats(formats)
         check_target(output, force, protected=[study_dir], memo=memo)
         study = load_study(study_dir)
         _print_study_warnings(study, blinded)
+        from .batch import default_jobs
+
         opts = AuditOptions(blinded=blinded, analysis_date=analysis_date, use_clock=today, seed=seed,
                             checks=tuple(check), list_left_out=list_left_out, withhold_pooled=withhold_pooled,
+                            draw=bool({"html", "pdf"} & set(chosen)), jobs=jobs or default_jobs(),
                             **({"strict": True} if strict else {}))
-        a = audit_study(study, opts)
+        with _outcome_progress(len(study.metadata.outcomes), quiet) as tick:
+            a = audit_study(study, opts, progress=tick)
         _warn_defects(a)
         paths, recovery = write_audit(a, output, force=force, paper=paper_size(paper), protected=[study_dir],
-                                      memo=memo)
+                                      formats=chosen, figure_data=figure_data, memo=memo)
         _report_recovery(recovery, output)
+        _note_files_left(output, chosen)
         if not quiet:
             out.print(_summary_table(a))
         for p in paths:
@@ -318,18 +377,23 @@ def batch(
     seed: Optional[int] = typer.Option(None, "--seed", help="Seed for every resampling (default: each study's)."),
     paper: str = typer.Option("A4", "--paper", help="PDF page size: A4 or letter."),
     memo: bool = typer.Option(False, "--memo", help="Also write each study's memo.html and memo.pdf."),
+    formats: str = typer.Option("html,pdf,json,csv", "--formats",
+                                help="Which files to write for each study, comma-separated: html, pdf, json, csv."),
+    figure_data: bool = typer.Option(False, "--figure-data",
+                                     help="Keep in each findings.json the data arrays every figure is drawn from."),
 ):
     """Audit many studies in parallel: OUT/<study>/, OUT/index.html and OUT/summary.csv."""
     from .batch import batch_exit_code, default_jobs, expand_inputs, index_view, refuse_unsafe_batch, summary_csv
-    from .options import (date_problems, fail_on_problems, jobs_problems, paper_problems, paper_size, refuse_if_any,
-                          seed_problems)
+    from .options import (date_problems, fail_on_problems, formats_problems, jobs_problems, output_formats,
+                          paper_problems, paper_size, refuse_if_any, seed_problems)
     from .pipeline import CAUTIONS
     from .render.html import render_view
     from .writeguard import write_file_set
 
     def body():
         refuse_if_any(jobs_problems(jobs), fail_on_problems(fail_on), seed_problems(seed),
-                      date_problems(analysis_date, "--analysis-date"), paper_problems(paper))
+                      date_problems(analysis_date, "--analysis-date"), paper_problems(paper),
+                      formats_problems(formats))
         folders = expand_inputs(inputs)
         missing = [f for f in folders if not f.is_dir()]
         if missing:
@@ -338,6 +402,8 @@ def batch(
             raise typer.Exit(EXIT_INPUT)
         refuse_unsafe_batch(folders, output, force)
         options = {"blinded": blinded, "analysis_date": analysis_date, "seed": seed, **({"memo": True} if memo else {})}
+        if formats != "html,pdf,json,csv" or figure_data:
+            options.update(formats=",".join(output_formats(formats)), figure_data=figure_data)
         n_jobs = jobs or default_jobs()
         results = _run_with_progress(folders, output, options, n_jobs, paper_size(paper), force)
         view = {**index_view(results, {**options, "paper": paper}), "cautions": CAUTIONS}

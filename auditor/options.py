@@ -134,3 +134,30 @@ def data_file_problems(paths: list[Path], option: str = "DATA_FILES") -> list[In
         elif not p.exists():
             problems.append(option_problem(str(p), "does not exist", "correct the path"))
     return problems
+
+
+OUTPUT_FORMATS = ("html", "pdf", "json", "csv")
+"""What ``--formats`` may name: audit.html, audit.pdf, findings.json, findings.csv."""
+
+
+def formats_problems(text: str, option: str = "--formats") -> list[InputProblem]:
+    """``--formats`` is a comma-separated list of html, pdf, json and csv, at least one of them."""
+    names = [n.strip().lower() for n in text.split(",")]
+    if not any(names):
+        return [option_problem(option, "names no output", f"give one or more of {','.join(OUTPUT_FORMATS)}")]
+    problems = []
+    for name in names:
+        if name in OUTPUT_FORMATS:
+            continue
+        shown = name or "(empty)"
+        hint = did_you_mean(name, OUTPUT_FORMATS) if name else ""
+        close = f" ({hint})" if hint.startswith("did you mean") else ""
+        problems.append(option_problem(option, f"'{shown}' is not an output format",
+                                       f"use a comma-separated list of {', '.join(OUTPUT_FORMATS)}{close}"))
+    return problems
+
+
+def output_formats(text: str) -> tuple[str, ...]:
+    """The accepted ``--formats`` value as format names, in the fixed order html, pdf, json, csv."""
+    names = {n.strip().lower() for n in text.split(",")}
+    return tuple(f for f in OUTPUT_FORMATS if f in names)

@@ -107,9 +107,19 @@ class AuditOptions:
     """Raise :class:`~auditor.failures.ToolDefect` at the first defect instead of reporting it as a
     "tool defect" finding (the test suite sets AUDITOR_STRICT=1). Not recorded: it changes no number."""
 
+    draw: bool = True
+    """Draw the figures (only the HTML and the PDF show them). Not recorded: it changes no number."""
+    jobs: int = 1
+    """Processes across which outcomes are audited (results in outcome order whatever the number).
+    Not recorded: it changes no number."""
+
     def as_record(self) -> dict:
         return {k: (list(v) if isinstance(v, tuple) else v) for k, v in dataclasses.asdict(self).items()
-                if k != "strict"}
+                if k not in UNRECORDED_OPTIONS}
+
+
+UNRECORDED_OPTIONS = ("strict", "draw", "jobs")
+"""Options that change how an audit is computed or shown, never a number of it."""
 
 
 def library_versions() -> dict[str, str]:
@@ -150,7 +160,7 @@ def assemble_outcome(study: Study, spec, ctx: CheckContext):
 
 
 def run_checks_for_outcome(study: Study, spec, ctx: CheckContext, only: tuple[str, ...] = (),
-                           assembled=None) -> list[CheckResult]:
+                           assembled=None, draw: bool = True) -> list[CheckResult]:
     """Every applicable check on one outcome, failures isolated.
 
     An outcome whose data cannot be assembled, or that fails :func:`outcome_screen`, gets a "not
@@ -170,7 +180,7 @@ def run_checks_for_outcome(study: Study, spec, ctx: CheckContext, only: tuple[st
         else:
             res = run_one_check(check, data, ctx)
         res = blind(res) if ctx.blinded else res
-        out.append(draw_figures(res, ctx.strict))
+        out.append(draw_figures(res, ctx.strict) if draw else res)
     return out
 
 
@@ -206,14 +216,15 @@ def tool_defect(check, spec, exc: BaseException) -> CheckResult:
 
 
 def draw_figures(res: CheckResult, strict: bool) -> CheckResult:
-    """Draw each of a result's figures once, keeping the SVG in the record; a figure that fails is
-    recorded in the figure (and as a caveat) rather than blamed silently on the data."""
-    from .figures import to_svg
+    """Draw each of a result's figures once, keeping the PNG in the record (the HTML and the PDF
+    embed the same bytes); a figure that fails is recorded in the figure (and as a caveat) rather
+    than blamed silently on the data."""
+    from .figures import to_png
 
     figures, caveats = [], list(res.caveats)
     for f in res.figures:
         try:
-            figures.append(replace(f, svg=to_svg(f)))
+            figures.append(replace(f, png=to_png(f)))
         except Exception as exc:
             if strict and is_defect(exc):
                 raise ToolDefect(f"figure {f.id} of {res.check_id} on {res.outcome}: "
@@ -283,8 +294,58 @@ def outcome_summary(study: Study, spec) -> dict:
     }
 
 
-def audit_study(study: Study, options: AuditOptions | None = None) -> Audit:
-    """Audit an already loaded study."""
+def audit_one_outcome(study: Study, spec, ctx: CheckContext, options: AuditOptions):
+    """One outcome's results and, when asked for, the participants its analysis leaves out."""
+    assembled = assemble_outcome(study, spec, ctx)
+    results = run_checks_for_outcome(study, spec, ctx, options.checks, assembled, options.draw)
+    gone = []
+    if options.list_left_out and assembled[0] is not None:
+        gone = left_out(assembled[0], study.participants["subject"])
+    return results, gone
+
+
+_WORKER: dict = {}
+"""A pool worker's study, context and options, set once per process by :func:`_start_worker`."""
+
+
+def _start_worker(study: Study, ctx: CheckContext, options: AuditOptions, filters: list) -> None:
+    import warnings
+
+    warnings.resetwarnings()
+    warnings.filters.extend(filters)
+    _WORKER.update(study=study, ctx=ctx, options=options)
+
+
+def _worker_outcome(index: int):
+    w = _WORKER
+    return audit_one_outcome(w["study"], w["study"].metadata.outcomes[index], w["ctx"], w["options"])
+
+
+def outcome_results(study: Study, ctx: CheckContext, options: AuditOptions):
+    """Each outcome's (results, left-out participants), in outcome order.
+
+    With ``options.jobs`` above 1 and more than one outcome, outcomes are audited in a pool of
+    processes (the study is sent to each worker once); results are taken in outcome order, so the
+    audit is the same whatever the number of processes. Each outcome's figures are drawn in the
+    process that computed it, so drawing is parallel too. Results are yielded as they come, and only
+    one outcome's inputs are in flight per worker, so memory grows with the results alone.
+    """
+    outcomes = study.metadata.outcomes
+    jobs = min(options.jobs, len(outcomes))
+    if jobs <= 1:
+        for spec in outcomes:
+            yield audit_one_outcome(study, spec, ctx, options)
+        return
+    import warnings
+    from concurrent.futures import ProcessPoolExecutor
+
+    with ProcessPoolExecutor(max_workers=jobs, initializer=_start_worker,
+                             initargs=(study, ctx, options, list(warnings.filters))) as pool:
+        yield from pool.map(_worker_outcome, range(len(outcomes)))
+
+
+def audit_study(study: Study, options: AuditOptions | None = None, progress=None) -> Audit:
+    """Audit an already loaded study; ``progress(done, total, param)`` is called after each outcome."""
     options = options or AuditOptions()
     meta = study.metadata
     blinded = meta.study.blinded if options.blinded is None else options.blinded
@@ -295,12 +356,12 @@ def audit_study(study: Study, options: AuditOptions | None = None) -> Audit:
     withhold = blinded and (meta.study.withhold_pooled if options.withhold_pooled is None else options.withhold_pooled)
     results: list[CheckResult] = []
     listing: list[LeftOut] | None = [] if options.list_left_out else None
-    for spec in meta.outcomes:
-        assembled = assemble_outcome(study, spec, ctx)
-        found = run_checks_for_outcome(study, spec, ctx, options.checks, assembled)
-        results.extend([withhold_pooled_numbers(r) for r in found] if withhold else found)
-        if listing is not None and assembled[0] is not None:
-            listing.extend(left_out(assembled[0], study.participants["subject"]))
+    for i, (res, gone) in enumerate(outcome_results(study, ctx, options)):
+        results.extend([withhold_pooled_numbers(r) for r in res] if withhold else res)
+        if listing is not None:
+            listing.extend(gone)
+        if progress is not None:
+            progress(i + 1, len(meta.outcomes), meta.outcomes[i].param)
     prov = Provenance(
         tool_version=__version__,
         library_versions=library_versions(),

@@ -18,7 +18,8 @@ SCHEMA_VERSION = "1.2"
 each result's ``recommendation`` and the audit's ``report`` block (data cut, version, author,
 interim, what a blinded audit withholds); the verdict "for information" (descriptive checks); the
 materiality thresholds used (``provenance.thresholds``); each outcome's ``record_selection``. All are
-additions, so a reader of 1.1 files can ignore them."""
+additions, so a reader of 1.1 files can ignore them; and a figure's ``data`` arrays only with
+``--figure-data`` (docs/findings-json.md)."""
 
 
 class Verdict(str, Enum):
@@ -148,7 +149,10 @@ class Figure:
     caption: str = ""
     by_arm: bool = False
     svg: str = ""
-    """The drawing, made once by the pipeline (not written to findings.json)."""
+    """A vector drawing, when one was made (not written to findings.json)."""
+    png: bytes = b""
+    """The drawing as a PNG raster, made once by the pipeline and shared by the HTML and the PDF (not
+    written to findings.json)."""
     problem: str = ""
     """Why the figure could not be drawn, when it could not."""
 
@@ -194,6 +198,20 @@ def _without_drawings(d: dict[str, Any]) -> dict[str, Any]:
     """A result's dictionary without the figures' SVG markup (findings.json carries their data)."""
     for f in d.get("figures", []):
         f.pop("svg", None)
+        f.pop("png", None)
+    return d
+
+
+def without_figure_data(d: dict[str, Any]) -> dict[str, Any]:
+    """An audit's dictionary with each figure's ``data`` (the point arrays it is drawn from) removed.
+
+    findings.json is compact by default: every number a reader or ``compare`` needs is in the
+    estimates and tables, while the arrays behind the scatter panels are most of the file and grow
+    with the participants. ``--figure-data`` keeps them.
+    """
+    for r in d.get("results", []):
+        for f in r.get("figures", []):
+            f.pop("data", None)
     return d
 
 

@@ -68,8 +68,20 @@ def dots(ax, x, y, color, label=None, radius_pt: float = 2.0, alpha: float = 0.5
     verts[:, :4, 1] = y[:, None] + ry * np.sin(_DIAMOND)
     verts[:, 4] = verts[:, 0]
     codes = np.tile([Path.MOVETO] + [Path.LINETO] * 3 + [Path.CLOSEPOLY], n)
-    ax.add_patch(PathPatch(Path(verts.reshape(-1, 2), codes), facecolor=color, edgecolor="none",
-                           alpha=alpha, label=label))
+    _add_fixed_patch(ax, PathPatch(Path(verts.reshape(-1, 2), codes), facecolor=color, edgecolor="none",
+                                   alpha=alpha, label=label))
+
+
+def _add_fixed_patch(ax, patch) -> None:
+    """Add a patch in data coordinates without updating the data limits.
+
+    ``Axes.add_patch`` walks every Bezier segment of the path to widen the limits, which for a
+    compound path of thousands of diamonds cost more than drawing it; the limits are already final
+    here, so the patch is attached as an artist clipped to the axes, which draws the same.
+    """
+    patch.set_transform(ax.transData)
+    patch.set_clip_path(ax.patch)
+    ax.add_artist(patch)
 
 
 def _limits(values):

@@ -5,7 +5,6 @@ from __future__ import annotations
 import base64
 import math
 
-from ..figures import to_svg
 from ..references import REFERENCES
 from ..results import Audit, CheckResult, SummaryAudit, Verdict
 from .bidi import UserText, audit_user_strings
@@ -93,6 +92,10 @@ def _svg_data_uri(svg: str) -> str:
     return "data:image/svg+xml;base64," + base64.b64encode(svg.encode("utf-8")).decode("ascii")
 
 
+def _png_data_uri(png: bytes) -> str:
+    return "data:image/png;base64," + base64.b64encode(png).decode("ascii")
+
+
 def _is_p_column(name: str) -> bool:
     return name.strip().lower() in ("p", "p value", "p-value") or name.strip().lower().startswith("p (")
 
@@ -120,24 +123,43 @@ def _figure_src(f) -> str | None:
     """The figure as an inline data URI: the pipeline's drawing when it made one, else drawn here
     (for records built outside the pipeline); None when it could not be drawn (the pipeline has then
     recorded why in the figure and the result's caveats)."""
+    return _figure_drawing(f)[0]
+
+
+def _figure_drawing(f) -> tuple[str | None, str]:
+    """The figure's data URI and its printed width (CSS, "" for the drawing's own size).
+
+    A PNG is printed at its drawing size (pixels at :data:`~auditor.figures.PNG_DPI` per inch, the
+    width a vector drawing of the same figure had), never scaled by the screen's pixel density."""
     if f.problem:
-        return None
+        return None, ""
+    if f.png:
+        return _png_data_uri(f.png), _png_width(f.png)
     if f.svg:
-        return _svg_data_uri(f.svg)
+        return _svg_data_uri(f.svg), ""
     try:
-        return _svg_data_uri(to_svg(f))
+        from ..figures import to_png
+
+        png = to_png(f)
+        return _png_data_uri(png), _png_width(png)
     except Exception:  # confined to this figure; the pipeline path records the reason
-        return None
+        return None, ""
+
+
+def _png_width(png: bytes) -> str:
+    from ..figures import PNG_DPI, png_size
+
+    return f"{png_size(png)[0] / PNG_DPI:.3f}in"
 
 
 def result_view(r: CheckResult, figure_no: list[int]) -> dict:
     figs = []
     for f in r.figures:
         figure_no[0] += 1
-        src = _figure_src(f)
+        src, width = _figure_drawing(f)
         caption = f.caption if src else f"This figure could not be drawn: {f.problem or 'drawing failed'}."
         figs.append({"number": figure_no[0], "title": f.title, "caption": caption,
-                     "src": src or _svg_data_uri(UNDRAWN_SVG)})
+                     "src": src or _svg_data_uri(UNDRAWN_SVG), "width": width})
     return {
         "check_id": r.check_id,
         "check_title": r.check_title,

@@ -736,14 +736,15 @@ def test_a_figure_that_fails_to_draw_is_recorded_in_the_result(tmp_path, monkeyp
     import auditor.figures as figures
 
     monkeypatch.setenv("AUDITOR_STRICT", "0")
-    real = figures.to_svg
-    monkeypatch.setattr(figures, "to_svg", lambda f: (_ for _ in ()).throw(KeyError("x")) if f.kind else real(f))
+    real = figures.to_png
+    monkeypatch.setattr(figures, "to_png", lambda f: (_ for _ in ()).throw(KeyError("x")) if f.kind else real(f))
     audit = audit_study(load_study(Synthetic().write(tmp_path / "study")), AuditOptions(checks=("pre-post",), quick=True))
     drawn = [f for r in audit.results for f in r.figures]
     assert drawn and all("defect in auditor" in f.problem for f in drawn)
     assert all(any("could not be drawn" in c for c in r.caveats) for r in audit.results if r.figures)
     assert "could not be drawn: a defect in auditor" in report_html(audit)
-    assert all("svg" not in f for r in json.loads(findings_json(audit))["results"] for f in r["figures"])
+    assert all("svg" not in f and "png" not in f for r in json.loads(findings_json(audit))["results"]
+               for f in r["figures"])
 
 
 def test_run_completes_with_damaged_outcomes_end_to_end(tmp_path):
