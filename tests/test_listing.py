@@ -36,7 +36,8 @@ def _expected_from_csv(folder) -> dict[str, set[str]]:
 
 def test_listing_matches_an_independent_count_and_stays_in_its_appendix(example_copy, tmp_path):
     out = tmp_path / "out"
-    res = runner.invoke(app, ["run", str(example_copy), "-o", str(out), "--list-left-out", "--quiet"])
+    res = runner.invoke(app, ["run", str(example_copy), "-o", str(out), "--list-left-out", "--quiet",
+                              "--formats", "html,json,csv"])
     assert res.exit_code == 0, res.output
     findings = json.loads((out / "findings.json").read_text())
     got: dict[str, set[str]] = {}
@@ -64,7 +65,8 @@ def test_listing_matches_an_independent_count_and_stays_in_its_appendix(example_
 
 def test_without_the_option_no_identifier_and_no_listing_key(example_copy, tmp_path):
     out = tmp_path / "out"
-    assert runner.invoke(app, ["run", str(example_copy), "-o", str(out), "--quiet"]).exit_code == 0
+    assert runner.invoke(app, ["run", str(example_copy), "-o", str(out), "--quiet",
+                                     "--formats", "html,json,csv"]).exit_code == 0
     findings = json.loads((out / "findings.json").read_text())
     assert "left_out" not in findings
     ids = set(pd.read_csv(example_copy / "data" / "adsl.csv")["USUBJID"])
