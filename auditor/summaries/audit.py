@@ -117,7 +117,7 @@ def audit_summaries(study: SummaryStudy, options: AuditOptions | None = None) ->
     s = study.summaries
     prov = Provenance(tool_version=__version__, library_versions=library_versions(),
                       metadata_sha256=study.metadata_sha256,
-                      files=[InputFile("published summaries", s.file, s.sha256, s.rows)],
+                      files=[InputFile("summaries", s.file, s.sha256, s.rows)],
                       options={**options.as_record(), "source": "summaries"}, analysis_date=date, seed=seed,
                       platform=f"Python {platform.python_version()} on {platform.system()} {platform.machine()}")
     return SummaryAudit(study_id=meta.study.id, title=meta.study.title, design=meta.study.design,
