@@ -46,6 +46,20 @@ def load_summary_study(folder: str | Path) -> SummaryStudy:
     return SummaryStudy(folder, meta, digest, summaries)
 
 
+SUMMARY_BLINDING = (
+    "Blinded data must stay blinded: published summaries are by arm, so audit only summaries already made "
+    "public; never enter the unpublished by-arm results of a trial that is still blinded, and do not "
+    "circulate this audit beyond those entitled to see them.")
+"""Takes the place of the data audit's blinding caution, which points to a blinded mode this one has not."""
+
+
+def summary_cautions() -> list[str]:
+    """The cautions of an audit from published summaries: its own, then the data audit's with the
+    blinding caution worded for summaries."""
+    return SUMMARY_CAUTIONS + [SUMMARY_BLINDING if c.startswith("Blinded data must stay blinded") else c
+                               for c in CAUTIONS]
+
+
 def _run(check_id: str, fn, spec, arms, ctx: Context, strict: bool) -> Draft:
     try:
         return fn(spec, arms, ctx)
@@ -123,7 +137,7 @@ def audit_summaries(study: SummaryStudy, options: AuditOptions | None = None) ->
     return SummaryAudit(study_id=meta.study.id, title=meta.study.title, design=meta.study.design,
                         arms=list(meta.study.arms), control_arm=meta.study.control_arm, blinded=False,
                         outcomes=[_outcome_record(o, study) for o in meta.outcomes], results=results,
-                        provenance=prov, cautions=SUMMARY_CAUTIONS + list(CAUTIONS), checks=checks,
+                        provenance=prov, cautions=summary_cautions(), checks=checks,
                         comments=comments)
 
 

@@ -551,6 +551,23 @@ def _sentence(text: str) -> str:
 # ---------------------------------------------------------------------------------- regression to the mean
 
 
+def observed_change_interval(arm: ArmSummary, level: float = 0.95) -> tuple[float | None, float | None, str]:
+    """t interval for an arm's mean change, mean +/- t(n - 1) SDc / sqrt(n), with SDc as reported or
+    derived, else from the two SDs and the arm's correlation (sqrt(SDb^2 + SDf^2 - 2 r SDb SDf));
+    (None, None, why) when neither is available."""
+    from scipy import stats
+
+    sd_c = arm.sd_change
+    how = "interval from the SD of change"
+    if sd_c is None and arm.r is not None:
+        sd_c, how = sf.change_sd(arm.sd["baseline"], arm.sd["followup"], arm.r), "interval from the SDs and r"
+    if sd_c is None or arm.n < 2:
+        return None, None, "no interval: neither an SD of change nor a correlation is reported"
+    mean = arm.mean["followup"] - arm.mean["baseline"]
+    half = float(stats.t.ppf(0.5 + level / 2, arm.n - 1)) * sd_c / math.sqrt(arm.n)
+    return mean - half, mean + half, f"{how} (t, {arm.n - 1} df)"
+
+
 def rtm(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
     cid = "summary-rtm"
     e = spec.entry_criterion
@@ -558,6 +575,8 @@ def rtm(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
     shifts = [g[2] / e.assumed_sd for g in grid]
     largest = max(abs(s) for s in shifts)
     smallest = min(abs(s) for s in shifts)
+    # signed, like the change in units beside it, so the two ranges read in the same direction
+    sd_span = f"{fmt(min(shifts))} to {fmt(max(shifts))} population SDs"
     material = largest > MATERIAL_SD
     within = ctx.design == "single-arm" or spec.within_arm_claims
     rows = [[m, rel, v, v / e.assumed_sd] for m, rel, v in grid]
@@ -568,13 +587,14 @@ def rtm(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
     control = next((a for a in arms if a.arm == ctx.control_arm), arms[0])
     observed = control.mean["followup"] - control.mean["baseline"]
     lo_v, hi_v = min(g[2] for g in grid), max(g[2] for g in grid)
-    ests = [Estimate(f"Observed mean change, {control.arm}", observed, unit=spec.unit, by_arm=True,
+    lo_o, hi_o, how = observed_change_interval(control)
+    ests = [Estimate(f"Observed mean change, {control.arm}", observed, lo_o, hi_o, unit=spec.unit, by_arm=True,
                      key=f"{cid}.observed-change.control", arm=control.arm,
-                     note=f"regression to the mean alone predicts {fmt(lo_v)} to {fmt(hi_v)}")]
+                     note=f"regression to the mean alone predicts {fmt(lo_v)} to {fmt(hi_v)}; {how}")]
     subs = [SubFinding("size", f"Is the expected shift material (beyond {MATERIAL_SD:g} population SD)?",
                        Verdict.CAUTION if material else Verdict.SOUND,
-                       f"{fmt(smallest)} to {fmt(largest)} population SDs over the grid ({fmt(lo_v)} to {fmt(hi_v)} "
-                       f"{spec.unit})".rstrip()),
+                       f"{sd_span} over the grid ({fmt(lo_v)} to {fmt(hi_v)} {spec.unit}); at most "
+                       f"{fmt(largest)} SD in size".rstrip()),
             SubFinding("design", "What does it bias in this design?",
                        Verdict.CAUTION if material and within else Verdict.SOUND,
                        ("a single-arm before-after claim carries it in full" if ctx.design == "single-arm" else
@@ -585,7 +605,7 @@ def rtm(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
     span = f"{fmt(lo_v)} to {fmt(hi_v)}{' ' + spec.unit if spec.unit else ''}"
     if material:
         headline = (f"Entry on {e.text} would by itself shift the baseline-to-follow-up mean by {span} "
-                    f"({fmt(smallest)} to {fmt(largest)} population SDs) over the assumed grid; "
+                    f"({sd_span}) over the assumed grid; "
                     + ("this is a before-after design, which it biases in full" if ctx.design == "single-arm" else
                        "the randomised contrast is not biased, within-arm changes are")
                     + ". A grid, not an interval: graded at most caution.")
