@@ -107,6 +107,11 @@ def _worst(verdicts) -> Verdict:
     return max(vs, key=order.index) if vs else Verdict.NOT_ASSESSABLE
 
 
+def _sd_gap(gap: float) -> str:
+    """A gap in SDs at two fixed decimals: agreement to rounding reads 0.00, never as 7.28e-17."""
+    return f"{gap:.2f}"
+
+
 def _pct(ratio: float) -> str:
     return f"{100 * (ratio - 1):.0f}%"
 
@@ -164,11 +169,11 @@ def consistency(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> D
             verdict = Verdict.CAUTION if gap > AGREE_SD else Verdict.SOUND
             subs.append(SubFinding(f"change-{a.arm}", f"Is the mean change the difference of the means ({a.arm})?",
                                    verdict, f"mean change {fmt(v['mean_change'])} against follow-up minus baseline "
-                                   f"{fmt(diff)}: {fmt(gap)} SD apart (agreement within {AGREE_SD:g} SD, a "
+                                   f"{fmt(diff)}: {_sd_gap(gap)} SD apart (agreement within {AGREE_SD:g} SD, a "
                                    "convention)", by_arm=True))
             if verdict is Verdict.CAUTION:
                 problems.append(f"in arm {a.arm} the mean change {fmt(v['mean_change'])} differs from follow-up "
-                                f"minus baseline ({fmt(diff)}) by {fmt(gap)} SD, so the two visits may describe "
+                                f"minus baseline ({fmt(diff)}) by {_sd_gap(gap)} SD, so the two visits may describe "
                                 "different participants (completers only at follow-up?)")
         if v["sd_change"] is not None and v["change_lower"] is not None and v["change_upper"] is not None:
             from_ci = sf.se_from_ci(v["change_lower"], v["change_upper"]) * math.sqrt(a.n)
@@ -240,7 +245,7 @@ def _effect_check(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context):
     if lo is None or hi is None:
         gap = abs(implied - v["effect"]) / (treated.sd_change or treated.sd["followup"])
         ok = gap <= AGREE_SD
-        evidence = (f"reported effect {fmt(v['effect'])}; {what} {fmt(implied)} ({fmt(gap)} SD apart, no interval "
+        evidence = (f"reported effect {fmt(v['effect'])}; {what} {fmt(implied)} ({_sd_gap(gap)} SD apart, no interval "
                     "reported)")
     else:
         ok = lo <= implied <= hi
@@ -282,8 +287,8 @@ def efficiency(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Dr
     else:
         fn = lambda r, b, f: float(sf.ratio_to_ancova(analysis, r, b, f))
         approx = False
-    grid = Table("r-grid", f"Participants {ANALYSIS_TEXT[analysis]} needs per participant of ANCOVA, by pre-post "
-                 "correlation", ["pre-post correlation", "sample-size ratio", "extra participants (%)"],
+    grid = Table("r-grid", f"Sample-size ratio of {ANALYSIS_TEXT[analysis]} to ANCOVA (participants needed per "
+                 "participant of ANCOVA), by pre-post correlation", ["pre-post correlation", "sample-size ratio", "extra participants (%)"],
                  [[r, fn(r, p.sd_b, p.sd_f), 100 * (fn(r, p.sd_b, p.sd_f) - 1)] for r in R_GRID],
                  note=f"Pooled within-arm SDs: baseline {fmt(p.sd_b)}, follow-up {fmt(p.sd_f)}.")
     ests, subs = [], []
@@ -459,8 +464,8 @@ def shape(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
                                Verdict.CAUTION if ab_low else Verdict.SOUND if any_reported else
                                Verdict.NOT_ASSESSABLE, ev))
     if any(r[6] is not None for r in rows):
-        ev = (f"quartile skewness beyond {QUARTILE_SKEW:g} in {len(bowley_high)} arm-visits (largest "
-              f"{fmt(max(bowley_high, key=lambda t: abs(t[0]))[0])})" if bowley_high else
+        ev = (f"quartile skewness beyond {QUARTILE_SKEW:g} in {len(bowley_high)} arm-visits, largest "
+              f"{fmt(max(bowley_high, key=lambda t: abs(t[0]))[0])}" if bowley_high else
               f"no evidence of skew: quartile skewness within {QUARTILE_SKEW:g} everywhere")
         subs.append(SubFinding("quartiles", "Do the medians and quartiles imply skew?",
                                Verdict.CAUTION if bowley_high else Verdict.SOUND, ev))
@@ -625,13 +630,18 @@ def rtm(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
                "Please discuss regression to the mean explicitly: a before-after change after entry on this reading "
                "is expected without any effect; a concurrent control or a second baseline reading would separate them.")
     share = ""
-    if observed != 0 and all(g[2] / observed > 0 for g in grid):
+    if lo_o is not None and lo_o <= 0 <= hi_o:
+        share = (", an interval that includes no change, so the share of it regression to the mean could explain "
+                 "cannot be bounded")
+    elif observed != 0 and all(g[2] / observed > 0 for g in grid):
         ends = sorted(abs(g[2] / observed) for g in grid)
         share = (f", so regression to the mean alone could account for {100 * ends[0]:.0f}% to {100 * ends[-1]:.0f}% "
                  "of it" if ends[-1] <= 1 else f": regression to the mean alone predicts {fmt(ends[0])} to "
                  f"{fmt(ends[-1])} times that change")
     return Draft(res, f"Regression to the mean alone predicts a change of {span} after entry on {e.text}; the "
-                      f"{control.arm} arm changed by {fmt(observed)}{share}.", request)
+                      f"{control.arm} arm changed by {fmt(observed)}"
+                      + ("" if lo_o is None else f" (95% interval {fmt(lo_o)} to {fmt(hi_o)})")
+                      + f"{share}.", request)
 
 
 def applicable(spec: SummaryOutcome, design: str) -> list[tuple[str, object]]:
