@@ -60,6 +60,17 @@ def summary_cautions() -> list[str]:
                                for c in CAUTIONS]
 
 
+def summary_thresholds() -> dict[str, float]:
+    """The materiality conventions the summaries checks grade by, under the names study.toml's
+    ``[thresholds]`` gives them in a data audit (here fixed: a summaries folder declares none)."""
+    from ..checks.change_score import MATERIAL_RATIO
+    from ..checks.percent_change import RECODE_CHANGE
+    from ..checks.regression_to_mean import MATERIAL_SD
+
+    return {"recoding_change": float(RECODE_CHANGE), "rtm_shift_sd": float(MATERIAL_SD),
+            "sample_size_ratio": float(MATERIAL_RATIO)}
+
+
 def _run(check_id: str, fn, spec, arms, ctx: Context, strict: bool) -> Draft:
     try:
         return fn(spec, arms, ctx)
@@ -133,7 +144,8 @@ def audit_summaries(study: SummaryStudy, options: AuditOptions | None = None) ->
                       metadata_sha256=study.metadata_sha256,
                       files=[InputFile("summaries", s.file, s.sha256, s.rows)],
                       options={**options.as_record(), "source": "summaries"}, analysis_date=date, seed=seed,
-                      platform=f"Python {platform.python_version()} on {platform.system()} {platform.machine()}")
+                      platform=f"Python {platform.python_version()} on {platform.system()} {platform.machine()}",
+                      thresholds=summary_thresholds())
     return SummaryAudit(study_id=meta.study.id, title=meta.study.title, design=meta.study.design,
                         arms=list(meta.study.arms), control_arm=meta.study.control_arm, blinded=False,
                         outcomes=[_outcome_record(o, study) for o in meta.outcomes], results=results,
