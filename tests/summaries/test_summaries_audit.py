@@ -143,3 +143,12 @@ def test_blinding_caution_fits_an_audit_without_participant_data():
     blinding = [c for c in a.cautions if c.startswith("Blinded data must stay blinded")]
     assert len(blinding) == 1 and "--blinded" not in blinding[0] and "published" in blinding[0]
     assert any("screening aid for a qualified statistician" in c for c in a.cautions)
+
+
+def test_run_writes_only_the_formats_asked_for_and_always_comments(tmp_path):
+    out = tmp_path / "o"
+    res = CliRunner().invoke(app, ["run", str(EXAMPLE), "-o", str(out), "--quiet", "--formats", "json"])
+    assert res.exit_code == 0, res.output
+    assert sorted(p.name for p in out.iterdir()) == ["comments.md", "findings.json"]
+    bad = CliRunner().invoke(app, ["run", str(EXAMPLE), "-o", str(tmp_path / "p"), "--formats", "docx"])
+    assert bad.exit_code == 2 and not (tmp_path / "p").exists()
