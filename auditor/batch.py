@@ -42,6 +42,8 @@ class StudyOutcome:
     metadata_sha256: str = ""
     data_sha256: str = ""
     """``role=sha256`` of each data file, space-separated (see :func:`auditor.render.csvout.data_hashes`)."""
+    source: str = "participant data"
+    """What the study's numbers come from: ``participant data`` or ``published summaries``."""
 
 
 def read_manifest(path: Path) -> list[Path]:
@@ -112,11 +114,11 @@ def refuse_unsafe_batch(folders: list[Path], out_dir: Path, force: bool) -> None
         refuse_existing(resolved, BATCH_FILES, force, "a batch")
     except OutputRefused as exc:
         problems.append(str(exc))
-    for name in output_names(folders):
+    for folder, name in zip(folders, output_names(folders)):
         try:
             target = refuse_unsafe_folder(resolved / name, folders)
             if target.is_dir():
-                refuse_existing(target, OUTPUT_FILES, force)
+                refuse_existing(target, study_output_files(folder, OUTPUT_FILES), force)
         except OutputRefused as exc:
             problems.append(str(exc))
     if problems:
@@ -134,17 +136,21 @@ def audit_one(args: tuple) -> StudyOutcome:
     from .render.csvout import audit_identity, subfinding_verdicts
 
     def failed(error: str) -> StudyOutcome:
-        return StudyOutcome(str(folder), name, "failed", error=error, **declared_identity(Path(folder), options))
+        return StudyOutcome(str(folder), name, "failed", error=error, source=declared_kind(Path(folder)),
+                            **declared_identity(Path(folder), options))
 
     options = dict(options)
     formats = tuple(options.pop("formats", ",".join(FORMATS)).split(","))
     figure_data = bool(options.pop("figure_data", False))
     memo = bool(options.pop("memo", False))
     try:
-        study = load_study(folder)
-        audit = audit_study(study, AuditOptions(**options, draw=bool({"html", "pdf"} & set(formats))))
-        write_audit(audit, Path(target), force=force, paper=paper, protected=[Path(folder)],
-                    formats=formats, figure_data=figure_data, memo=memo)
+        if is_summaries_folder(Path(folder)):
+            audit = audit_summaries_into(Path(folder), Path(target), options, paper, force, formats, figure_data)
+        else:
+            study = load_study(folder)
+            audit = audit_study(study, AuditOptions(**options, draw=bool({"html", "pdf"} & set(formats))))
+            write_audit(audit, Path(target), force=force, paper=paper, protected=[Path(folder)],
+                        formats=formats, figure_data=figure_data, memo=memo)
     except StudyInputError as exc:
         first = exc.problems[0].one_line()
         more = f" (and {len(exc.problems) - 1} more)" if len(exc.problems) > 1 else ""
@@ -157,7 +163,49 @@ def audit_one(args: tuple) -> StudyOutcome:
              "subfinding_verdicts": subfinding_verdicts(r)}
             for r in audit.results]
     return StudyOutcome(str(folder), name, "ok", audit.study_id, n_outcomes=len(audit.outcomes), rows=rows,
-                        **audit_identity(audit))
+                        source=audit.source, **audit_identity(audit))
+
+
+def is_summaries_folder(folder: Path) -> bool:
+    """True when the folder's study.toml declares ``source = "summaries"`` (published summaries)."""
+    from .metadata import declared_source
+
+    return declared_source(folder) == "summaries"
+
+
+def declared_kind(folder: Path) -> str:
+    """``published summaries`` or ``participant data``, as the folder's study.toml declares."""
+    return "published summaries" if is_summaries_folder(folder) else "participant data"
+
+
+def study_output_files(folder: Path, data_files: tuple[str, ...]) -> tuple[str, ...]:
+    """The files a study's sub-folder may hold: a summaries folder's also include comments.md."""
+    if is_summaries_folder(Path(folder)):
+        from .summaries.output import SUMMARY_OUTPUT_FILES
+
+        return tuple(dict.fromkeys(data_files + SUMMARY_OUTPUT_FILES))
+    return data_files
+
+
+def audit_summaries_into(folder: Path, target: Path, options: dict, paper: str, force: bool,
+                         formats: tuple[str, ...], figure_data: bool):
+    """Audit a folder of published summaries and write its files (comments.md included) into
+    ``target``, as ``auditor run`` does. ``--blinded``/``--unblinded`` have no meaning without
+    participant data: asking for either fails this study, naming the option, as ``run`` refuses it."""
+    from .pipeline import AuditOptions
+    from .summaries.audit import audit_summaries, load_summary_study
+    from .summaries.output import write_summary_audit
+
+    if options.get("blinded") is not None:
+        raise StudyInputError([InputProblem(str(folder / "study.toml"), "-", "source",
+                                            "--blinded/--unblinded do not apply to published summaries",
+                                            "leave the option out, or list this folder in a separate batch")],
+                              "in the batch options")
+    opts = {k: options.get(k) for k in ("analysis_date", "seed", "quick") if options.get(k) is not None}
+    audit = audit_summaries(load_summary_study(folder), AuditOptions(**opts))
+    write_summary_audit(audit, target, force=force, paper=paper, protected=[folder], formats=formats,
+                        figure_data=figure_data)
+    return audit
 
 
 def declared_identity(folder: Path, options: dict) -> dict:
@@ -216,7 +264,7 @@ def _use_warning_filters(filters: list) -> None:
     warnings.filters.extend(filters)
 
 
-SUMMARY_COLUMNS = ["study", "folder_name", "status", "outcome", "check_id", "verdict", "headline", "error",
+SUMMARY_COLUMNS = ["study", "folder_name", "status", "source", "outcome", "check_id", "verdict", "headline", "error",
                    "analysis_date", "blinded", "tool_version", "metadata_sha256", "data_sha256",
                    "subfinding_verdicts"]
 """summary.csv's columns; those after ``error`` identify the audit (see docs/pipelines.md)."""
@@ -231,9 +279,9 @@ def summary_csv(results: list[StudyOutcome]) -> str:
     for s in results:
         ident = [s.analysis_date, s.blinded, s.tool_version, s.metadata_sha256, s.data_sha256]
         if s.status != "ok":
-            w.writerow([neutralise(c) for c in [s.study_id, s.name, s.status, "", "", "", "", s.error, *ident, ""]])
+            w.writerow([neutralise(c) for c in [s.study_id, s.name, s.status, s.source, "", "", "", "", s.error, *ident, ""]])
         for r in s.rows:
-            w.writerow([neutralise(c) for c in [s.study_id, s.name, s.status, r["outcome"], r["check_id"],
+            w.writerow([neutralise(c) for c in [s.study_id, s.name, s.status, s.source, r["outcome"], r["check_id"],
                                                 r["verdict"], r["headline"], "", *ident,
                                                 r.get("subfinding_verdicts", "")]])
     return buf.getvalue()
@@ -255,6 +303,7 @@ def index_view(results: list[StudyOutcome], options: dict) -> dict:
                     counts[r["verdict"]] += 1
             cells.append(", ".join(f"{n} {v}" for v, n in counts.items() if n) or "–")
         studies.append({"name": s.name, "study_id": s.study_id or "–", "status": s.status, "error": s.error,
+                        "from_summaries": s.source == "published summaries",
                         "link": f"{s.name}/audit.html" if s.status == "ok" and with_html else "", "cells": cells,
                         "n_outcomes": s.n_outcomes})
     totals = {v: sum(1 for s in results for r in s.rows if r["verdict"] == v) for v in verdicts}

@@ -250,7 +250,8 @@ def run(
             refuse_if_any([option_problem(o, "an audit from published summaries has no participant data to pool "
                                              "or list", "leave the option out for a summaries folder")
                            for o, given in (("--blinded", blinded), ("--list-left-out", list_left_out)) if given])
-            return _run_summaries(study_dir, output, force, analysis_date, today, seed, paper, check, strict, quiet)
+            return _run_summaries(study_dir, output, force, analysis_date, today, seed, paper, check, strict, quiet,
+                                  formats)
         refuse_if_any(seed_problems(seed), date_problems(analysis_date, "--analysis-date"),
                       check_id_problems(check, registered_check_ids()), paper_problems(paper),
                       formats_problems(formats), jobs_problems(jobs))
@@ -294,9 +295,11 @@ def _validate_summaries(study_dir: Path) -> None:
               f"{study.summaries.rows} summary rows).", markup=False)
 
 
-def _run_summaries(study_dir, output, force, analysis_date, today, seed, paper, check, strict, quiet) -> None:
+def _run_summaries(study_dir, output, force, analysis_date, today, seed, paper, check, strict, quiet,
+                   formats="html,pdf,json,csv") -> None:
     """`run` on a folder of published summaries: the same options, checks and write guard, plus comments.md."""
-    from .options import date_problems, paper_problems, paper_size, refuse_if_any, seed_problems
+    from .options import (date_problems, formats_problems, output_formats, paper_problems, paper_size,
+                          refuse_if_any, seed_problems)
     from .pipeline import AuditOptions
     from .summaries.audit import load_summary_study, audit_summaries
     from .summaries.checks import CHECKS
@@ -304,6 +307,7 @@ def _run_summaries(study_dir, output, force, analysis_date, today, seed, paper, 
 
     unknown = [c for c in check if c not in CHECKS]
     refuse_if_any(seed_problems(seed), date_problems(analysis_date, "--analysis-date"), paper_problems(paper),
+                  formats_problems(formats),
                   [option_problem("--check", f"'{c}' is not a check of an audit from published summaries",
                                   f"use one of {', '.join(CHECKS)}") for c in unknown])
     check_summary_target(output, force, protected=[study_dir])
@@ -312,7 +316,8 @@ def _run_summaries(study_dir, output, force, analysis_date, today, seed, paper, 
                         **({"strict": True} if strict else {}))
     a = audit_summaries(study, opts)
     _warn_defects(a)
-    paths, recovery = write_summary_audit(a, output, force=force, paper=paper_size(paper), protected=[study_dir])
+    paths, recovery = write_summary_audit(a, output, force=force, paper=paper_size(paper), protected=[study_dir],
+                                          formats=output_formats(formats))
     _report_recovery(recovery, output)
     if not quiet:
         out.print(f"{a.study_id}: {a.source_label} (no participant data); {len(a.comments)} draft comment(s) "

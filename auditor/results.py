@@ -293,6 +293,8 @@ class Audit:
     schema_version: str = SCHEMA_VERSION
     report: ReportInfo = field(default_factory=ReportInfo)
     """The cover fields and, in a blinded audit, what it withholds."""
+    source: str = "participant data"
+    """What the numbers were computed from: ``participant data`` or ``published summaries``."""
 
     def to_dict(self) -> dict[str, Any]:
         d = _clean(asdict(self))
@@ -347,5 +349,6 @@ class SummaryAudit(Audit):
     """An audit computed from a paper's published summaries instead of participant data: the same
     record, labelled as such, with the draft comments to the authors."""
 
+    source: str = "published summaries"
     source_label: str = "an audit from published summaries"
     comments: list[ReviewComment] = field(default_factory=list)

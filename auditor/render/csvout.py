@@ -8,7 +8,7 @@ import io
 from ..results import Audit
 
 FORMULA_PREFIXES = ("=", "+", "-", "@", "\t", "\r")
-COLUMNS = ["study_id", "outcome", "outcome_label", "check_id", "check_title", "verdict", "headline",
+COLUMNS = ["study_id", "source", "outcome", "outcome_label", "check_id", "check_title", "verdict", "headline",
            "reason", "n_estimates", "caveats", "analysis_date", "blinded", "tool_version", "metadata_sha256",
            "data_sha256", "subfinding_verdicts"]
 """findings.csv's columns; those after ``caveats`` identify the audit (see docs/pipelines.md)."""
@@ -45,7 +45,7 @@ def rows(audit: Audit) -> list[list]:
     out = []
     ident = audit_identity(audit)
     for r in audit.results:
-        out.append([audit.study_id, r.outcome, r.outcome_label, r.check_id, r.check_title,
+        out.append([audit.study_id, audit.source, r.outcome, r.outcome_label, r.check_id, r.check_title,
                     r.verdict.value, r.headline, r.reason, len(r.estimates), " | ".join(r.caveats),
                     *(ident[c] for c in IDENTITY_COLUMNS), subfinding_verdicts(r)])
     return out

@@ -46,6 +46,31 @@ def load_summary_study(folder: str | Path) -> SummaryStudy:
     return SummaryStudy(folder, meta, digest, summaries)
 
 
+SUMMARY_BLINDING = (
+    "Blinded data must stay blinded: published summaries are by arm, so audit only summaries already made "
+    "public; never enter the unpublished by-arm results of a trial that is still blinded, and do not "
+    "circulate this audit beyond those entitled to see them.")
+"""Takes the place of the data audit's blinding caution, which points to a blinded mode this one has not."""
+
+
+def summary_cautions() -> list[str]:
+    """The cautions of an audit from published summaries: its own, then the data audit's with the
+    blinding caution worded for summaries."""
+    return SUMMARY_CAUTIONS + [SUMMARY_BLINDING if c.startswith("Blinded data must stay blinded") else c
+                               for c in CAUTIONS]
+
+
+def summary_thresholds() -> dict[str, float]:
+    """The materiality conventions the summaries checks grade by, under the names study.toml's
+    ``[thresholds]`` gives them in a data audit (here fixed: a summaries folder declares none)."""
+    from ..checks.change_score import MATERIAL_RATIO
+    from ..checks.percent_change import RECODE_CHANGE
+    from ..checks.regression_to_mean import MATERIAL_SD
+
+    return {"recoding_change": float(RECODE_CHANGE), "rtm_shift_sd": float(MATERIAL_SD),
+            "sample_size_ratio": float(MATERIAL_RATIO)}
+
+
 def _run(check_id: str, fn, spec, arms, ctx: Context, strict: bool) -> Draft:
     try:
         return fn(spec, arms, ctx)
@@ -117,13 +142,14 @@ def audit_summaries(study: SummaryStudy, options: AuditOptions | None = None) ->
     s = study.summaries
     prov = Provenance(tool_version=__version__, library_versions=library_versions(),
                       metadata_sha256=study.metadata_sha256,
-                      files=[InputFile("published summaries", s.file, s.sha256, s.rows)],
+                      files=[InputFile("summaries", s.file, s.sha256, s.rows)],
                       options={**options.as_record(), "source": "summaries"}, analysis_date=date, seed=seed,
-                      platform=f"Python {platform.python_version()} on {platform.system()} {platform.machine()}")
+                      platform=f"Python {platform.python_version()} on {platform.system()} {platform.machine()}",
+                      thresholds=summary_thresholds())
     return SummaryAudit(study_id=meta.study.id, title=meta.study.title, design=meta.study.design,
                         arms=list(meta.study.arms), control_arm=meta.study.control_arm, blinded=False,
                         outcomes=[_outcome_record(o, study) for o in meta.outcomes], results=results,
-                        provenance=prov, cautions=SUMMARY_CAUTIONS + list(CAUTIONS), checks=checks,
+                        provenance=prov, cautions=summary_cautions(), checks=checks,
                         comments=comments)
 
 

@@ -107,6 +107,11 @@ def _worst(verdicts) -> Verdict:
     return max(vs, key=order.index) if vs else Verdict.NOT_ASSESSABLE
 
 
+def _sd_gap(gap: float) -> str:
+    """A gap in SDs at two fixed decimals: agreement to rounding reads 0.00, never as 7.28e-17."""
+    return f"{gap:.2f}"
+
+
 def _pct(ratio: float) -> str:
     return f"{100 * (ratio - 1):.0f}%"
 
@@ -164,11 +169,11 @@ def consistency(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> D
             verdict = Verdict.CAUTION if gap > AGREE_SD else Verdict.SOUND
             subs.append(SubFinding(f"change-{a.arm}", f"Is the mean change the difference of the means ({a.arm})?",
                                    verdict, f"mean change {fmt(v['mean_change'])} against follow-up minus baseline "
-                                   f"{fmt(diff)}: {fmt(gap)} SD apart (agreement within {AGREE_SD:g} SD, a "
+                                   f"{fmt(diff)}: {_sd_gap(gap)} SD apart (agreement within {AGREE_SD:g} SD, a "
                                    "convention)", by_arm=True))
             if verdict is Verdict.CAUTION:
                 problems.append(f"in arm {a.arm} the mean change {fmt(v['mean_change'])} differs from follow-up "
-                                f"minus baseline ({fmt(diff)}) by {fmt(gap)} SD, so the two visits may describe "
+                                f"minus baseline ({fmt(diff)}) by {_sd_gap(gap)} SD, so the two visits may describe "
                                 "different participants (completers only at follow-up?)")
         if v["sd_change"] is not None and v["change_lower"] is not None and v["change_upper"] is not None:
             from_ci = sf.se_from_ci(v["change_lower"], v["change_upper"]) * math.sqrt(a.n)
@@ -240,7 +245,7 @@ def _effect_check(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context):
     if lo is None or hi is None:
         gap = abs(implied - v["effect"]) / (treated.sd_change or treated.sd["followup"])
         ok = gap <= AGREE_SD
-        evidence = (f"reported effect {fmt(v['effect'])}; {what} {fmt(implied)} ({fmt(gap)} SD apart, no interval "
+        evidence = (f"reported effect {fmt(v['effect'])}; {what} {fmt(implied)} ({_sd_gap(gap)} SD apart, no interval "
                     "reported)")
     else:
         ok = lo <= implied <= hi
@@ -282,8 +287,8 @@ def efficiency(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Dr
     else:
         fn = lambda r, b, f: float(sf.ratio_to_ancova(analysis, r, b, f))
         approx = False
-    grid = Table("r-grid", f"Participants {ANALYSIS_TEXT[analysis]} needs per participant of ANCOVA, by pre-post "
-                 "correlation", ["pre-post correlation", "sample-size ratio", "extra participants (%)"],
+    grid = Table("r-grid", f"Sample-size ratio of {ANALYSIS_TEXT[analysis]} to ANCOVA (participants needed per "
+                 "participant of ANCOVA), by pre-post correlation", ["pre-post correlation", "sample-size ratio", "extra participants (%)"],
                  [[r, fn(r, p.sd_b, p.sd_f), 100 * (fn(r, p.sd_b, p.sd_f) - 1)] for r in R_GRID],
                  note=f"Pooled within-arm SDs: baseline {fmt(p.sd_b)}, follow-up {fmt(p.sd_f)}.")
     ests, subs = [], []
@@ -376,8 +381,11 @@ def responder(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Dra
         ests.append(Estimate("Sample-size ratio, responders against ANCOVA", iv.value, iv.lower, iv.upper, key=f"{cid}.ratio",
                              note=f"cut {fmt(cut)} on change, z = {fmt(z)}; Wishart simulation ({iv.draws} draws, "
                                   f"seed {iv.seed})"))
-        ests.append(Estimate("Efficiency of dichotomising change at the cut", sf.dichotomisation_efficiency(z),
-                             note="normal change; 2/pi = 0.637 at the median", key=f"{cid}.dichotomisation-efficiency"))
+        eff = sf.simulated_interval(lambda r, b, f: sf.dichotomisation_efficiency((cut - mean_c) / sf.change_sd(b, f, r)),
+                                    p.sd_b, p.sd_f, p.r, p.df, ctx.seed, QUICK_DRAWS if ctx.quick else DRAWS)
+        ests.append(Estimate("Efficiency of dichotomising change at the cut", eff.value, eff.lower, eff.upper,
+                             note="normal change; 2/pi = 0.637 at the median; interval from the same Wishart draws "
+                                  "(mean change held at its reported value)", key=f"{cid}.dichotomisation-efficiency"))
         evidence = (f"counting responders ({rule_text}) needs {_pct(iv.value)} more participants than ANCOVA "
                     f"(95% interval {_pct(iv.lower)} to {_pct(iv.upper)}); the cut lies {fmt(abs(z))} SD from the "
                     f"mean change")
@@ -459,8 +467,8 @@ def shape(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
                                Verdict.CAUTION if ab_low else Verdict.SOUND if any_reported else
                                Verdict.NOT_ASSESSABLE, ev))
     if any(r[6] is not None for r in rows):
-        ev = (f"quartile skewness beyond {QUARTILE_SKEW:g} in {len(bowley_high)} arm-visits (largest "
-              f"{fmt(max(bowley_high, key=lambda t: abs(t[0]))[0])})" if bowley_high else
+        ev = (f"quartile skewness beyond {QUARTILE_SKEW:g} in {len(bowley_high)} arm-visits, largest "
+              f"{fmt(max(bowley_high, key=lambda t: abs(t[0]))[0])}" if bowley_high else
               f"no evidence of skew: quartile skewness within {QUARTILE_SKEW:g} everywhere")
         subs.append(SubFinding("quartiles", "Do the medians and quartiles imply skew?",
                                Verdict.CAUTION if bowley_high else Verdict.SOUND, ev))
@@ -551,6 +559,23 @@ def _sentence(text: str) -> str:
 # ---------------------------------------------------------------------------------- regression to the mean
 
 
+def observed_change_interval(arm: ArmSummary, level: float = 0.95) -> tuple[float | None, float | None, str]:
+    """t interval for an arm's mean change, mean +/- t(n - 1) SDc / sqrt(n), with SDc as reported or
+    derived, else from the two SDs and the arm's correlation (sqrt(SDb^2 + SDf^2 - 2 r SDb SDf));
+    (None, None, why) when neither is available."""
+    from scipy import stats
+
+    sd_c = arm.sd_change
+    how = "interval from the SD of change"
+    if sd_c is None and arm.r is not None:
+        sd_c, how = sf.change_sd(arm.sd["baseline"], arm.sd["followup"], arm.r), "interval from the SDs and r"
+    if sd_c is None or arm.n < 2:
+        return None, None, "no interval: neither an SD of change nor a correlation is reported"
+    mean = arm.mean["followup"] - arm.mean["baseline"]
+    half = float(stats.t.ppf(0.5 + level / 2, arm.n - 1)) * sd_c / math.sqrt(arm.n)
+    return mean - half, mean + half, f"{how} (t, {arm.n - 1} df)"
+
+
 def rtm(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
     cid = "summary-rtm"
     e = spec.entry_criterion
@@ -558,6 +583,8 @@ def rtm(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
     shifts = [g[2] / e.assumed_sd for g in grid]
     largest = max(abs(s) for s in shifts)
     smallest = min(abs(s) for s in shifts)
+    # signed, like the change in units beside it, so the two ranges read in the same direction
+    sd_span = f"{fmt(min(shifts))} to {fmt(max(shifts))} population SDs"
     material = largest > MATERIAL_SD
     within = ctx.design == "single-arm" or spec.within_arm_claims
     rows = [[m, rel, v, v / e.assumed_sd] for m, rel, v in grid]
@@ -568,13 +595,14 @@ def rtm(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
     control = next((a for a in arms if a.arm == ctx.control_arm), arms[0])
     observed = control.mean["followup"] - control.mean["baseline"]
     lo_v, hi_v = min(g[2] for g in grid), max(g[2] for g in grid)
-    ests = [Estimate(f"Observed mean change, {control.arm}", observed, unit=spec.unit, by_arm=True,
+    lo_o, hi_o, how = observed_change_interval(control)
+    ests = [Estimate(f"Observed mean change, {control.arm}", observed, lo_o, hi_o, unit=spec.unit, by_arm=True,
                      key=f"{cid}.observed-change.control", arm=control.arm,
-                     note=f"regression to the mean alone predicts {fmt(lo_v)} to {fmt(hi_v)}")]
+                     note=f"regression to the mean alone predicts {fmt(lo_v)} to {fmt(hi_v)}; {how}")]
     subs = [SubFinding("size", f"Is the expected shift material (beyond {MATERIAL_SD:g} population SD)?",
                        Verdict.CAUTION if material else Verdict.SOUND,
-                       f"{fmt(smallest)} to {fmt(largest)} population SDs over the grid ({fmt(lo_v)} to {fmt(hi_v)} "
-                       f"{spec.unit})".rstrip()),
+                       f"{sd_span} over the grid ({fmt(lo_v)} to {fmt(hi_v)} {spec.unit}); at most "
+                       f"{fmt(largest)} SD in size".rstrip()),
             SubFinding("design", "What does it bias in this design?",
                        Verdict.CAUTION if material and within else Verdict.SOUND,
                        ("a single-arm before-after claim carries it in full" if ctx.design == "single-arm" else
@@ -585,7 +613,7 @@ def rtm(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
     span = f"{fmt(lo_v)} to {fmt(hi_v)}{' ' + spec.unit if spec.unit else ''}"
     if material:
         headline = (f"Entry on {e.text} would by itself shift the baseline-to-follow-up mean by {span} "
-                    f"({fmt(smallest)} to {fmt(largest)} population SDs) over the assumed grid; "
+                    f"({sd_span}) over the assumed grid; "
                     + ("this is a before-after design, which it biases in full" if ctx.design == "single-arm" else
                        "the randomised contrast is not biased, within-arm changes are")
                     + ". A grid, not an interval: graded at most caution.")
@@ -605,13 +633,18 @@ def rtm(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
                "Please discuss regression to the mean explicitly: a before-after change after entry on this reading "
                "is expected without any effect; a concurrent control or a second baseline reading would separate them.")
     share = ""
-    if observed != 0 and all(g[2] / observed > 0 for g in grid):
+    if lo_o is not None and lo_o <= 0 <= hi_o:
+        share = (", an interval that includes no change, so the share of it regression to the mean could explain "
+                 "cannot be bounded")
+    elif observed != 0 and all(g[2] / observed > 0 for g in grid):
         ends = sorted(abs(g[2] / observed) for g in grid)
         share = (f", so regression to the mean alone could account for {100 * ends[0]:.0f}% to {100 * ends[-1]:.0f}% "
                  "of it" if ends[-1] <= 1 else f": regression to the mean alone predicts {fmt(ends[0])} to "
                  f"{fmt(ends[-1])} times that change")
     return Draft(res, f"Regression to the mean alone predicts a change of {span} after entry on {e.text}; the "
-                      f"{control.arm} arm changed by {fmt(observed)}{share}.", request)
+                      f"{control.arm} arm changed by {fmt(observed)}"
+                      + ("" if lo_o is None else f" (95% interval {fmt(lo_o)} to {fmt(hi_o)})")
+                      + f"{share}.", request)
 
 
 def applicable(spec: SummaryOutcome, design: str) -> list[tuple[str, object]]:

@@ -64,7 +64,8 @@ class CaseOutcome:
 
 _REFERENCE: dict[str, ReferenceCase] = {}
 _SIMULATION: dict[str, SimulationCase] = {}
-CASE_MODULES = ("auditor.validation.reference_cases", "auditor.validation.simulation_cases")
+CASE_MODULES = ("auditor.validation.reference_cases", "auditor.validation.simulation_cases",
+                "auditor.validation.summary_cases")
 
 
 def reference(case: ReferenceCase) -> ReferenceCase:

@@ -57,7 +57,8 @@ def test_findings_json_carries_schema_and_provenance(audit_dir):
 
 def test_findings_csv_one_row_per_outcome_and_check(audit_dir):
     lines = (audit_dir / "findings.csv").read_text().splitlines()
-    assert lines[0].startswith("study_id,outcome,outcome_label,check_id")
+    assert lines[0].startswith("study_id,source,outcome,outcome_label,check_id")
+    assert all(",participant data," in line for line in lines[1:])
     assert len(lines) == 1 + 7  # seven outcomes, pre-post only
 
 

@@ -13,19 +13,24 @@ from auditor.stats.efficiency import own_cost
 
 
 def test_implied_correlation_hand_example():
-    # Cochrane Handbook ch. 6 (section 6.5.2.8) imputation identity; the figures are illustrative and
-    # the expected value is worked by hand, not copied from the Handbook (its own example, from memory,
-    # uses baseline SDs near 4.5): (4.5^2 + 4.2^2 - 3.9^2) / (2 x 4.5 x 4.2) = 22.68 / 37.8 = 0.6.
+    # The identity behind the Cochrane Handbook's imputation of a change-from-baseline SD (Handbook 5.1,
+    # section 16.1.3.2, "Imputing standard deviations for changes from baseline"; section 6.5.2.8 in
+    # version 6, from memory). The figures are illustrative and the expected value is a hand-worked
+    # derivation, not a number printed in the Handbook:
+    # (4.5^2 + 4.2^2 - 3.9^2) / (2 x 4.5 x 4.2) = (20.25 + 17.64 - 15.21) / 37.8 = 22.68 / 37.8 = 0.6.
     assert sf.implied_correlation(4.5, 4.2, 3.9) == pytest.approx(0.6, abs=1e-12)
-    # and the Handbook's imputation formula inverts it: SDc = sqrt(SDb^2 + SDf^2 - 2 r SDb SDf) = 3.9
+    # The imputation formula it inverts, SDc = sqrt(SDb^2 + SDf^2 - 2 r SDb SDf), hand-worked:
+    # sqrt(20.25 + 17.64 - 2 x 0.6 x 4.5 x 4.2) = sqrt(37.89 - 22.68) = sqrt(15.21) = 3.9.
     assert sf.change_sd(4.5, 4.2, 0.6) == pytest.approx(3.9, abs=1e-12)
 
 
 def test_cochrane_imputation_published_worked_example():
-    # Worked example of the Cochrane imputation formula published at uniqcret.com ("Calculating mean
-    # and SD of change from baseline using correlation"): baseline SD 10, follow-up SD 12, r = 0.6
-    # -> SD of change 10; the implied correlation recovers r = 0.6 from the three SDs.
+    # Worked example of the Handbook's imputation formula published at uniqcret.com, "Calculating
+    # Mean and SD of Change from Baseline Using Correlation": baseline SD 10, follow-up SD 12,
+    # r = 0.6 -> SD of change 10 (the value printed there; by hand sqrt(100 + 144 - 144) = 10).
     assert sf.change_sd(10, 12, 0.6) == pytest.approx(10.0)
+    # The reverse direction is a hand-worked derivation, not printed there:
+    # (100 + 144 - 100) / (2 x 10 x 12) = 144 / 240 = 0.6.
     assert sf.implied_correlation(10, 12, 10) == pytest.approx(0.6)
 
 
@@ -39,15 +44,17 @@ def test_implied_correlation_equals_sample_correlation():
 
 
 def test_fisher_interval_matches_direct_formula():
-    # Fisher z: tanh(atanh(0.5) -/+ 1.959964 / sqrt(100 - 3)); 0.3366 and 0.6341 (Fisher 1921, by hand).
+    # Fisher z (Fisher, Metron 1921; the formula from memory): tanh(atanh(0.5) -/+ 1.959964 / sqrt(100 - 3));
+    # the limits 0.3366 and 0.6341 are hand-worked (atanh 0.5 = 0.5493, 1.96 / sqrt 97 = 0.1990).
     lo, hi = sf.fisher_interval(0.5, 100)
     assert lo == pytest.approx(math.tanh(math.atanh(0.5) - 1.959964 / math.sqrt(97)), abs=1e-6)
     assert (lo, hi) == pytest.approx((0.3366, 0.6341), abs=1e-3)
 
 
 def test_frison_pocock_equal_variance_ratios():
-    # Frison and Pocock 1992: with equal variances change needs 2/(1 + r) and follow-up alone
-    # 1/(1 - r^2) times the participants of ANCOVA; the two cross at r = 0.5 (both 4/3).
+    # Frison and Pocock, Stat Med 1992 (the two ratios from memory): with equal variances change needs
+    # 2/(1 + r) and follow-up alone 1/(1 - r^2) times the participants of ANCOVA; that they cross at
+    # r = 0.5 (both 4/3) is hand-worked: 2/1.5 = 1/0.75.
     for r in (0.2, 0.5, 0.8):
         assert float(sf.ratio_to_ancova("change", r, 2.0, 2.0)) == pytest.approx(2 / (1 + r))
         assert float(sf.ratio_to_ancova("follow-up-only", r, 2.0, 2.0)) == pytest.approx(1 / (1 - r**2))
@@ -56,7 +63,8 @@ def test_frison_pocock_equal_variance_ratios():
 
 
 def test_frison_pocock_unequal_variances_by_hand():
-    # var(change) = 1 + 4 - 2 x 0.6 x 1 x 2 = 2.6; var(ANCOVA) = 4 x (1 - 0.36) = 2.56 -> 1.015625.
+    # Hand-worked derivation: var(change) = 1 + 4 - 2 x 0.6 x 1 x 2 = 2.6; var(ANCOVA residual) =
+    # 4 x (1 - 0.36) = 2.56 -> 2.6 / 2.56 = 1.015625.
     assert float(sf.ratio_to_ancova("change", 0.6, 1.0, 2.0)) == pytest.approx(2.6 / 2.56)
 
 
@@ -131,9 +139,10 @@ def test_simulated_interval_coverage_against_resampled_trials():
 
 
 def test_altman_bland_rule():
-    # Altman and Bland, BMJ 1996;313:1200: a non-negative variable whose mean is under twice its SD
-    # is skewed. A log-normal with sigma = 1 has mean / SD = 1 / sqrt(e - 1) = 0.763 (by hand); a
-    # normal N(10, 2^2) has 5.
+    # Altman and Bland, BMJ 1996;313:1200 (citation and rule from memory): a non-negative variable
+    # whose mean is under twice its SD is skewed. The values are from scipy.stats.lognorm and a
+    # hand-worked derivation: a log-normal with sigma = 1 has mean / SD = 1 / sqrt(e - 1) = 0.763;
+    # a normal N(10, 2^2) has 10 / 2 = 5.
     x = stats.lognorm(s=1.0)
     assert sf.mean_to_sd_above_bound(x.mean(), x.std(), 0.0) == pytest.approx(1 / math.sqrt(math.e - 1))
     assert sf.mean_to_sd_above_bound(x.mean(), x.std(), 0.0) < sf.SKEW_RATIO
@@ -141,8 +150,10 @@ def test_altman_bland_rule():
 
 
 def test_barnett_worked_example_through_the_window_formula():
-    # Barnett, van der Pols and Dobson 2005, worked example: mean 60, SD 15, correlation 0.5,
-    # selected below 40 -> expected regression to the mean 13.49 (the published value).
+    # Barnett, van der Pols and Dobson, Int J Epidemiol 2005: mean 60, SD 15, correlation 0.5,
+    # selected below 40 -> expected regression to the mean 13.49. That this is their worked example
+    # is from memory; the value is reproduced by hand: z = -20/15 = -1.333, phi(z) / Phi(z) =
+    # 0.1640 / 0.0912 = 1.798, (1 - 0.5) x 15 x 1.798 = 13.49.
     assert sf.window_rtm(60, 15, 0.5, None, 40) == pytest.approx(13.49, abs=0.005)
     assert sf.window_rtm(60, 15, 0.5, 80, None) == pytest.approx(-13.49, abs=0.005)
 
@@ -155,15 +166,17 @@ def test_window_rtm_against_scipy_truncnorm():
 
 
 def test_dichotomisation_at_the_median():
-    # Altman and Royston, BMJ 2006;332:1080: dichotomising a normal at its median keeps 2/pi of the
-    # information; with SDb = SDf the change is fully efficient against ANCOVA only when the slope is 1,
-    # here r = 0.6 gives (1 + r)/2 = 0.8, so the ratio is 1 / (2/pi x 0.8) = 1.9635.
+    # Altman and Royston, BMJ 2006;332:1080 (citation from memory): dichotomising a normal at its median
+    # keeps 2/pi of the information (phi(0)^2 / (1/4) = (1/(2 pi)) x 4, hand-worked). With SDb = SDf,
+    # change against ANCOVA has efficiency (1 + r)/2 = 0.8 at r = 0.6, so the ratio is
+    # 1 / (2/pi x 0.8) = 1.9635 (hand-worked).
     assert sf.responder_ratio(0.6, 1.0, 1.0, cut=0.3, mean_change=0.3) == pytest.approx(1 / (2 / math.pi * 0.8))
 
 
 def test_wan_quartile_estimates_for_normal_quartiles():
-    # Wan et al. 2014 (scenario 3): for normal quartiles (mu -/+ 0.6745 sigma) and a large n the
-    # estimates return mu and sigma (eta(n) -> 2 x 0.6745 = 1.349).
+    # Wan, Wang, Liu and Tong, BMC Med Res Methodol 2014, scenario 3 (from memory): for normal
+    # quartiles (mu -/+ 0.6745 sigma, scipy.stats.norm.ppf(0.75) = 0.67449) and a large n the estimates
+    # return mu and sigma (hand-worked: eta(n) -> 2 x 0.6745 = 1.349, IQR / 1.349 = sigma).
     mean, sd = sf.mean_sd_from_quartiles(10 - 0.67449 * 2, 10, 10 + 0.67449 * 2, 10**6)
     assert mean == pytest.approx(10)
     assert sd == pytest.approx(2, rel=1e-3)

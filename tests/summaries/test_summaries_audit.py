@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
+import pytest
 from typer.testing import CliRunner
 
 from auditor.cli import app
@@ -119,3 +120,35 @@ def test_notebook_call():
     assert a.comments and a.comments[0].number == 1
     assert set(a.findings_frame()["check_id"]) <= {"summary-consistency", "summary-efficiency", "summary-responder",
                                                   "summary-shape", "summary-rtm"}
+
+
+def test_observed_change_carries_its_t_interval():
+    # Control bar TG in example_manuscript/summaries.csv: n 84, means 2.46 -> 2.38, SD of change 0.69.
+    # Expected: -0.08 -/+ t(0.975, 83) x 0.69 / sqrt(84), with t from scipy.stats.t (reference library).
+    import math
+
+    from scipy import stats
+
+    a = audit_summaries(load_summary_study(EXAMPLE), AuditOptions(quick=True, checks=("summary-rtm",)))
+    est = {e.key: e for e in a.results[0].estimates}["summary-rtm.observed-change.control"]
+    half = stats.t.ppf(0.975, 83) * 0.69 / math.sqrt(84)
+    assert est.value == pytest.approx(-0.08)
+    assert (est.lower, est.upper) == pytest.approx((-0.08 - half, -0.08 + half), rel=1e-9)
+    # the headline's two ranges read in the same direction: signed population SDs beside signed units
+    assert "(-0.42 to -0.07 population SDs)" in a.results[0].headline
+
+
+def test_blinding_caution_fits_an_audit_without_participant_data():
+    a = _audit()
+    blinding = [c for c in a.cautions if c.startswith("Blinded data must stay blinded")]
+    assert len(blinding) == 1 and "--blinded" not in blinding[0] and "published" in blinding[0]
+    assert any("screening aid for a qualified statistician" in c for c in a.cautions)
+
+
+def test_run_writes_only_the_formats_asked_for_and_always_comments(tmp_path):
+    out = tmp_path / "o"
+    res = CliRunner().invoke(app, ["run", str(EXAMPLE), "-o", str(out), "--quiet", "--formats", "json"])
+    assert res.exit_code == 0, res.output
+    assert sorted(p.name for p in out.iterdir()) == ["comments.md", "findings.json"]
+    bad = CliRunner().invoke(app, ["run", str(EXAMPLE), "-o", str(tmp_path / "p"), "--formats", "docx"])
+    assert bad.exit_code == 2 and not (tmp_path / "p").exists()
