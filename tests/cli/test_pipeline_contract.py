@@ -193,6 +193,19 @@ def test_findings_csv_carries_identity_and_subfinding_verdicts(example_audit):
     assert r0["subfinding_verdicts"] == "; ".join(f"{s.id}={s.verdict.value}" for s in first.subfindings)
 
 
+def test_findings_csv_carries_each_findings_recommendation(example_audit):
+    rows = list(csv.DictReader(io.StringIO(findings_csv(example_audit))))
+    assert COLUMNS[-1] == "recommendation"  # added at the end: earlier columns keep their positions
+    by_finding = {(r["outcome"], r["check_id"]): r["recommendation"] for r in rows}
+    assert len(by_finding) == len(example_audit.results)
+    for r in example_audit.results:
+        assert by_finding[(r.outcome, r.check_id)] == r.recommendation
+    # The count-time check recommends a rate model for RESC (docs/memo.md's table), and the
+    # descriptive pre-post check recommends nothing.
+    assert by_finding[("RESC", "count-time")].startswith("a rate model")
+    assert by_finding[("FEV1", "pre-post")] == ""
+
+
 # ----------------------------------------------------------------------------- compare, on findings dicts
 
 
