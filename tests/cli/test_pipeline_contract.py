@@ -206,6 +206,24 @@ def test_findings_csv_carries_each_findings_recommendation(example_audit):
     assert by_finding[("FEV1", "pre-post")] == ""
 
 
+def test_findings_json_reference_names_every_key_the_file_has(example_audit):
+    """docs/findings-json.md is the reference for the file: every key written is named there."""
+    from tests.conftest import ROOT
+
+    doc = (ROOT / "docs" / "findings-json.md").read_text(encoding="utf-8")
+    named = set(re.findall(r"`([a-z_0-9]+)`", doc))
+    d = json.loads(findings_json(example_audit))
+    r = d["results"][0]
+    groups = {"top level": d, "provenance": d["provenance"], "report": d["report"], "outcome": d["outcomes"][0],
+              "result": r, "estimate": r["estimates"][0], "sub-finding": r["subfindings"][0],
+              "file": d["provenance"]["files"][0], "check": d["checks"][0]}
+    groups |= {"table": next(x for x in d["results"] if x["tables"])["tables"][0],
+               "figure": next(x for x in d["results"] if x["figures"])["figures"][0]}
+    missing = {g: sorted(set(obj) - named) for g, obj in groups.items() if set(obj) - named}
+    assert not missing, missing
+    assert f"**{d['schema_version']}**" in doc
+
+
 # ----------------------------------------------------------------------------- compare, on findings dicts
 
 
