@@ -542,11 +542,11 @@ def _print_comparison(cmp) -> None:
 def _write_comparison(cmp, a, b, forced, html, json_path, force, inputs) -> None:
     """Write the HTML page and the JSON file asked for, each through the write guard."""
     from .compare import comparison_json, comparison_view
-    from .render.html import render_view
+    from .render.html import render_marked
     from .writeguard import write_one_file
 
     if html is not None:
-        write_one_file(html, render_view("compare.html.j2", comparison_view(cmp)).encode("utf-8"),
+        write_one_file(html, render_marked("compare.html.j2", comparison_view(cmp, a, b, forced)).encode("utf-8"),
                        force=force, inputs=inputs)
         out.print(str(html), markup=False)
     if json_path is not None:
