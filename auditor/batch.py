@@ -301,7 +301,7 @@ def index_view(results: list[StudyOutcome], options: dict) -> dict:
     return {"studies": studies, "checks": checks, "totals": list(totals.items()),
             "marking": mark, "marking_class": mark_class, "hash_digits": SHORT_HASH_DIGITS,
             "n_ok": sum(s.status == "ok" for s in results), "n_failed": sum(s.status != "ok" for s in results),
-            "options": sorted((k, str(v)) for k, v in options.items())}
+            "options": sorted((k, "as each study declares" if v is None else str(v)) for k, v in options.items())}
 
 
 def gate_reached(results: list[StudyOutcome], level: str) -> bool:

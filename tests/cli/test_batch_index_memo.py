@@ -51,6 +51,7 @@ def test_index_page_shows_what_identifies_each_audit(folders, tmp_path):
     declared = tomllib.loads((folders["closed"] / "study.toml").read_text())["study"]
     assert str(declared["analysis_date"]) in page  # 2026-11-20, as study.toml declares it
     assert "unblinded (by arm)" in page and f"<td>{__version__}</td>" in page
+    assert index_view(results, {"blinded": None})["options"] == [("blinded", "as each study declares")]
     # The short hashes are the first digits of the files' SHA-256 (computed here with hashlib).
     for label, path in (("study.toml", "study.toml"), ("visits", "data/adeff.csv"),
                         ("participants", "data/adsl.csv")):
