@@ -101,11 +101,12 @@ def output_names(folders: list[Path]) -> list[str]:
 BATCH_FILES = ("index.html", "summary.csv")
 
 
-def refuse_unsafe_batch(folders: list[Path], out_dir: Path, force: bool) -> None:
+def refuse_unsafe_batch(folders: list[Path], out_dir: Path, force: bool, memo: bool = False) -> None:
     """Before any work: the batch folder and every study's sub-folder must be safe to write to
     (never a study folder or one holding one) and, without ``force``, hold no earlier batch or
-    audit. Raises :class:`auditor.writeguard.OutputRefused` naming every occupied place at once."""
-    from .render.output import OUTPUT_FILES
+    audit (nor, with ``memo``, an earlier memo). Raises :class:`auditor.writeguard.OutputRefused`
+    naming every occupied place at once."""
+    from .render.output import MEMO_FILES, OUTPUT_FILES
     from .writeguard import OutputRefused, refuse_existing, refuse_unsafe_folder
 
     resolved = refuse_unsafe_folder(out_dir, folders, what="batch folder")
@@ -118,7 +119,7 @@ def refuse_unsafe_batch(folders: list[Path], out_dir: Path, force: bool) -> None
         try:
             target = refuse_unsafe_folder(resolved / name, folders)
             if target.is_dir():
-                refuse_existing(target, study_output_files(folder, OUTPUT_FILES), force)
+                refuse_existing(target, study_output_files(folder, OUTPUT_FILES + (MEMO_FILES if memo else ())), force)
         except OutputRefused as exc:
             problems.append(str(exc))
     if problems:
@@ -287,10 +288,45 @@ def summary_csv(results: list[StudyOutcome]) -> str:
     return buf.getvalue()
 
 
+SHORT_HASH_DIGITS = 8
+"""Hex digits of each SHA-256 shown on the index page: the start of the full hash in summary.csv."""
+
+
+def short_hashes(s: StudyOutcome) -> list[str]:
+    """The study's inputs as ``file hash`` pairs with each SHA-256 cut to its first
+    :data:`SHORT_HASH_DIGITS` digits (study.toml first, then each data file by role), so a reader can
+    match the page against summary.csv; empty when nothing was read."""
+    out = [f"study.toml {s.metadata_sha256[:SHORT_HASH_DIGITS]}"] if s.metadata_sha256 else []
+    for pair in s.data_sha256.split():
+        role, _, digest = pair.partition("=")
+        out.append(f"{role} {digest[:SHORT_HASH_DIGITS]}")
+    return out
+
+
+def blinding_text(blinded: str) -> str:
+    """``true``/``false`` of summary.csv as the page says it; unknown for a failed study whose
+    study.toml could not say."""
+    return {"true": "blinded (pooled)", "false": "unblinded (by arm)"}.get(blinded, "not known")
+
+
+def batch_marking(results: list[StudyOutcome]) -> tuple[str, str]:
+    """The index page's marking and its class: open only when every study is known to be blinded;
+    closed as soon as one is unblinded, or its blinding is not known (a failed study whose study.toml
+    could not be read), since the page links to and summarises every study's audit."""
+    from .render.view import marking
+
+    blinded = bool(results) and all(s.blinded == "true" for s in results)
+    return marking(blinded), "open" if blinded else "closed"
+
+
 def index_view(results: list[StudyOutcome], options: dict) -> dict:
     """Display strings for OUT/index.html: one row per study, verdict counts by check (a study is
-    linked to its audit.html only when the batch wrote one, see ``--formats``)."""
+    linked to its audit.html only when the batch wrote one, see ``--formats``, and to its memo.html
+    with ``--memo``), what identifies each
+    audit (the columns of summary.csv: analysis date, blinding, tool version, input hashes cut short)
+    and the closed or open marking of the batch (:func:`batch_marking`)."""
     with_html = "html" in str(options.get("formats", "html")).split(",")
+    with_memo = bool(options.get("memo"))
     checks = sorted({r["check_id"] for s in results for r in s.rows})
     verdicts = [v.value for v in Verdict]
     studies = []
@@ -305,11 +341,17 @@ def index_view(results: list[StudyOutcome], options: dict) -> dict:
         studies.append({"name": s.name, "study_id": s.study_id or "–", "status": s.status, "error": s.error,
                         "from_summaries": s.source == "published summaries",
                         "link": f"{s.name}/audit.html" if s.status == "ok" and with_html else "", "cells": cells,
-                        "n_outcomes": s.n_outcomes})
+                        "memo_link": f"{s.name}/memo.html" if s.status == "ok" and with_memo
+                        and s.source != "published summaries" else "",
+                        "n_outcomes": s.n_outcomes, "analysis_date": s.analysis_date or "not known",
+                        "blinded": blinding_text(s.blinded), "tool_version": s.tool_version or "not known",
+                        "hashes": short_hashes(s)})
     totals = {v: sum(1 for s in results for r in s.rows if r["verdict"] == v) for v in verdicts}
+    mark, mark_class = batch_marking(results)
     return {"studies": studies, "checks": checks, "totals": list(totals.items()),
+            "marking": mark, "marking_class": mark_class, "hash_digits": SHORT_HASH_DIGITS,
             "n_ok": sum(s.status == "ok" for s in results), "n_failed": sum(s.status != "ok" for s in results),
-            "options": sorted((k, str(v)) for k, v in options.items())}
+            "options": sorted((k, "as each study declares" if v is None else str(v)) for k, v in options.items())}
 
 
 def gate_reached(results: list[StudyOutcome], level: str) -> bool:

@@ -392,7 +392,7 @@ def batch(
     from .options import (date_problems, fail_on_problems, formats_problems, jobs_problems, output_formats,
                           paper_problems, paper_size, refuse_if_any, seed_problems)
     from .pipeline import CAUTIONS
-    from .render.html import render_view
+    from .render.html import render_marked
     from .writeguard import write_file_set
 
     def body():
@@ -405,14 +405,14 @@ def batch(
             for f in missing:
                 err.print(f"{f}: is not a folder. Fix: give study folders or a manifest listing them.", markup=False)
             raise typer.Exit(EXIT_INPUT)
-        refuse_unsafe_batch(folders, output, force)
+        refuse_unsafe_batch(folders, output, force, memo)
         options = {"blinded": blinded, "analysis_date": analysis_date, "seed": seed, **({"memo": True} if memo else {})}
         if formats != "html,pdf,json,csv" or figure_data:
             options.update(formats=",".join(output_formats(formats)), figure_data=figure_data)
         n_jobs = jobs or default_jobs()
         results = _run_with_progress(folders, output, options, n_jobs, paper_size(paper), force)
         view = {**index_view(results, {**options, "paper": paper}), "cautions": CAUTIONS}
-        _, recovery = write_file_set({"index.html": render_view("batch_index.html.j2", view).encode("utf-8"),
+        _, recovery = write_file_set({"index.html": render_marked("batch_index.html.j2", view).encode("utf-8"),
                                       "summary.csv": summary_csv(results).encode("utf-8")},
                                      output, force=force, protected=folders, what="a batch")
         _report_recovery(recovery, output)
@@ -547,11 +547,11 @@ def _print_comparison(cmp) -> None:
 def _write_comparison(cmp, a, b, forced, html, json_path, force, inputs) -> None:
     """Write the HTML page and the JSON file asked for, each through the write guard."""
     from .compare import comparison_json, comparison_view
-    from .render.html import render_view
+    from .render.html import render_marked
     from .writeguard import write_one_file
 
     if html is not None:
-        write_one_file(html, render_view("compare.html.j2", comparison_view(cmp)).encode("utf-8"),
+        write_one_file(html, render_marked("compare.html.j2", comparison_view(cmp, a, b, forced)).encode("utf-8"),
                        force=force, inputs=inputs)
         out.print(str(html), markup=False)
     if json_path is not None:

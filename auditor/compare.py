@@ -344,19 +344,166 @@ def subfinding_text(moves: list[SubfindingMove]) -> str:
     return "; ".join(f"{m.id}: {m.old} -> {m.new}" for m in moves) or "no sub-finding verdict moved"
 
 
-def comparison_view(cmp: Comparison) -> dict:
+def _titles(d: dict | None) -> tuple[dict[str, str], dict[str, str]]:
+    """Outcome labels by parameter code and check titles by check id, from a findings dict (empty for
+    what it does not carry)."""
+    d = d if isinstance(d, dict) else {}
+    labels = {o["param"]: o.get("label") for o in d.get("outcomes", []) if isinstance(o.get("label"), str)}
+    titles = {c.get("id"): c.get("title") for c in d.get("checks", []) if isinstance(c, dict)
+              and isinstance(c.get("id"), str) and isinstance(c.get("title"), str)}
+    return {k: v for k, v in labels.items() if v}, {k: v for k, v in titles.items() if v}
+
+
+def _estimates_by_id(d: dict | None, on: str) -> dict[tuple[str, str, str], dict]:
+    """Every estimate of a findings dict by (outcome, check id, key or name)."""
+    if not isinstance(d, dict):
+        return {}
+    return {(r["outcome"], r["check_id"], e.get(on, "")): e for r in d.get("results", []) for e in r.get("estimates", [])}
+
+
+def estimate_text(values: dict, number) -> str:
+    """One side of an estimate for display: ``value (lower to upper)``, the interval only when known."""
+    v, lo, hi = (values.get(f) for f in ESTIMATE_NUMBERS)
+    interval = f" ({number(lo)} to {number(hi)})" if lo is not None or hi is not None else ""
+    return number(v) + interval
+
+
+def estimate_rows(cmp: Comparison, old: dict | None = None, new: dict | None = None) -> list[dict]:
+    """The numbers that moved, one row per estimate rather than per number: its value and interval
+    before and after (ends that did not move are filled in from the findings when given), and which
+    of value, lower and upper moved. In the comparison's order (outcome, check, the later audit's
+    estimate order)."""
     from .render.view import number
 
+    on = cmp.matched_on
+    before_all, after_all = _estimates_by_id(old, on), _estimates_by_id(new, on)
+    rows: dict[tuple[str, str, str], dict] = {}
+    for m in cmp.numbers_moved:
+        ident = (m.outcome, m.check_id, m.key if on == "key" else m.name)
+        row = rows.setdefault(ident, {"outcome": m.outcome, "check_id": m.check_id, "name": m.name, "key": m.key,
+                                      "before": dict(before_all.get(ident, {})), "after": dict(after_all.get(ident, {})),
+                                      "moved": []})
+        row["before"][m.field], row["after"][m.field] = m.old, m.new
+        row["moved"].append(m.field)
+    return [{**r, "before": estimate_text(r["before"], number), "after": estimate_text(r["after"], number),
+             "change": value_change(r["before"].get("value"), r["after"].get("value"), number),
+             "moved": moved_text(r["moved"])} for r in rows.values()]
+
+
+def value_change(old, new, number) -> str:
+    """The value's change (later minus earlier) with its sign; a dash when either side has none."""
+    if not (_is_number(old) and _is_number(new)) or not (math.isfinite(old) and math.isfinite(new)):
+        return "–"
+    d = new - old
+    return "0" if d == 0 else ("+" if d > 0 else "-") + number(abs(d))
+
+
+def moved_text(fields: list[str]) -> str:
+    """Which parts of an estimate moved, in words: ``value``, ``interval`` (both ends), ``lower end``..."""
+    parts = ["value"] if "value" in fields else []
+    ends = [f for f in ("lower", "upper") if f in fields]
+    parts += ["interval"] if len(ends) == 2 else [f"{e} end" for e in ends]
+    return " and ".join(parts)
+
+
+def report_order(old: dict | None, new: dict | None):
+    """A sort key putting findings in the order the reports show them: outcomes as the later audit
+    (then the earlier) declares them, checks in report order; what neither file orders goes last,
+    in the comparison's own (alphabetical) order, since sorting is stable."""
+    outcomes: list[str] = []
+    checks: dict[str, float] = {}
+    for d in (new, old):
+        d = d if isinstance(d, dict) else {}
+        outcomes += [o["param"] for o in d.get("outcomes", []) if o["param"] not in outcomes]
+        for c in d.get("checks", []):
+            if isinstance(c, dict) and isinstance(c.get("id"), str) and _is_number(c.get("order")):
+                checks.setdefault(c["id"], c["order"])
+    at = {o: i for i, o in enumerate(outcomes)}
+    return lambda outcome, check_id: (at.get(outcome, len(at)), checks.get(check_id, math.inf))
+
+
+def tolerance_text(tol: float) -> str:
+    """What the relative tolerance means, as :func:`_moved` applies it."""
+    return (f"a number counts as moved when it changed by more than {tol:g} of its earlier size "
+            f"(or by more than {tol:g} when that size is below 1)")
+
+
+def _side_text(d: dict | None) -> dict:
+    side = _side(d) if isinstance(d, dict) else {}
+    blinded = side.get("blinded")
+    return {"analysis_date": side.get("analysis_date") or "not stated",
+            "blinded": {True: "blinded (pooled)", False: "unblinded (by arm)"}.get(blinded, "not stated"),
+            "tool_version": side.get("tool_version") or "not stated",
+            "schema_version": side.get("schema_version") or "not stated"}
+
+
+def comparison_marking(old: dict | None, new: dict | None) -> tuple[str, str]:
+    """The page's marking and its class: open only when both audits are blinded, since a comparison
+    of unblinded audits shows their by-arm numbers; closed otherwise (also when not known)."""
+    from .render.view import marking
+
+    blinded = all(isinstance(d, dict) and d.get("blinded") is True for d in (old, new))
+    return marking(blinded), "open" if blinded else "closed"
+
+
+def comparison_view(cmp: Comparison, old: dict | None = None, new: dict | None = None,
+                    forced: list[str] = ()) -> dict:
+    """Display strings for the comparison page: the two audits side by side, a count of what moved,
+    then each kind of change, with outcome labels and check titles from the findings when given."""
+    from .pipeline import CAUTIONS
+
+    labels, titles = _titles(new)
+    old_labels, old_titles = _titles(old)
+    labels, titles = {**old_labels, **labels}, {**old_titles, **titles}
+
+    def outcome(o: str) -> str:
+        from .render.view import outcome_heading
+
+        return outcome_heading(labels.get(o, o), o)
+
+    def check(c: str) -> str:
+        return titles.get(c, c)
+
+    place = report_order(old, new)
+    numbers = sorted(estimate_rows(cmp, old, new), key=lambda r: place(r["outcome"], r["check_id"]))
+    verdicts = [[outcome(o), check(c), a, b, subfinding_text(cmp.subfindings_of(o, c))]
+                for o, c, a, b in sorted(cmp.verdicts_moved, key=lambda v: place(v[0], v[1]))]
+    with_verdict = {(o, c) for o, c, _, _ in cmp.verdicts_moved}
+    quiet = [[outcome(m.outcome), check(m.check_id), m.id, m.old, m.new]
+             for m in sorted(cmp.subfindings_moved, key=lambda m: place(m.outcome, m.check_id))
+             if (m.outcome, m.check_id) not in with_verdict]
+    counts = [(len(cmp.verdicts_moved), "verdict moved", "verdicts moved"),
+              (len(quiet), "sub-finding moved under an unchanged verdict", "sub-findings moved under an unchanged verdict"),
+              (len(numbers), "estimate moved", "estimates moved"),
+              (len(cmp.estimates_added) + len(cmp.estimates_removed), "estimate added or removed",
+               "estimates added or removed"),
+              (len(cmp.outcomes_added) + len(cmp.outcomes_removed), "outcome added or removed",
+               "outcomes added or removed"),
+              (len(cmp.checks_added) + len(cmp.checks_removed), "finding added or removed",
+               "findings added or removed")]
+    mark, mark_class = comparison_marking(old, new)
+    groups: list[dict] = []
+    for r in numbers:
+        if not groups or groups[-1]["ident"] != (r["outcome"], r["check_id"]):
+            groups.append({"ident": (r["outcome"], r["check_id"]), "outcome": outcome(r["outcome"]),
+                           "check": check(r["check_id"]), "rows": []})
+        groups[-1]["rows"].append([r["name"], r["before"], r["after"], r["change"], r["moved"]])
     return {
         "old_study": cmp.old_study, "new_study": cmp.new_study, "tolerance": f"{cmp.tolerance:g}",
+        "tolerance_text": tolerance_text(cmp.tolerance),
         "unchanged": cmp.unchanged, "unchanged_sentence": unchanged_sentence(cmp),
         "matched_on": "stable estimate keys" if cmp.matched_on == "key" else
                       "estimate names (a findings file of an earlier schema has no keys)",
-        "outcomes_added": cmp.outcomes_added, "outcomes_removed": cmp.outcomes_removed,
-        "checks_added": [f"{o} / {c}" for o, c in cmp.checks_added],
-        "checks_removed": [f"{o} / {c}" for o, c in cmp.checks_removed],
-        "estimates_added": [f"{c.outcome} / {c.check_id} / {c.key or c.name}" for c in cmp.estimates_added],
-        "estimates_removed": [f"{c.outcome} / {c.check_id} / {c.key or c.name}" for c in cmp.estimates_removed],
-        "verdicts": [[o, c, a, b, subfinding_text(cmp.subfindings_of(o, c))] for o, c, a, b in cmp.verdicts_moved],
-        "numbers": [[m.outcome, m.check_id, m.name, m.field, number(m.old), number(m.new)] for m in cmp.numbers_moved],
+        "sides": [("Earlier", _side_text(old)), ("Later", _side_text(new))],
+        "summary": "; ".join(f"{n} {one if n == 1 else many}" for n, one, many in counts if n),
+        "forced": list(forced), "marking": mark, "marking_class": mark_class, "cautions": list(CAUTIONS),
+        "outcomes_added": [outcome(o) for o in cmp.outcomes_added],
+        "outcomes_removed": [outcome(o) for o in cmp.outcomes_removed],
+        "checks_added": [f"{outcome(o)}: {check(c)}" for o, c in cmp.checks_added],
+        "checks_removed": [f"{outcome(o)}: {check(c)}" for o, c in cmp.checks_removed],
+        "estimates_added": [(f"{outcome(c.outcome)}: {check(c.check_id)}: {c.name}", c.key) for c in cmp.estimates_added],
+        "estimates_removed": [(f"{outcome(c.outcome)}: {check(c.check_id)}: {c.name}", c.key)
+                              for c in cmp.estimates_removed],
+        "verdicts": verdicts, "subfindings": quiet, "number_groups": groups,
+        "n_numbers": len(cmp.numbers_moved),
     }

@@ -340,6 +340,9 @@ class OutcomeSpec(_Strict):
     entry_criterion: Optional[EntryCriterion] = None
     reliability: Optional[Finite] = Field(default=None, gt=0, lt=1)
     risk_endpoint: Optional[Name] = None
+    risk_endpoint_label: Optional[StrictStr] = Field(default=None, min_length=1, max_length=200)
+    """How the report names the risk endpoint's event in sentences ("the odds of <label>"), for
+    example "a cardiac rhythm event"; default: the endpoint's column name. Needs ``risk_endpoint``."""
     risk_definition: Optional[Literal["change", "ratio", "latest"]] = None
     """How the risk endpoint, or an entry rule tied to it, uses the two measurements of the value as
     the protocol or SAP defines it: by the change (latest minus earlier), by the ratio (latest /
@@ -394,6 +397,12 @@ class OutcomeSpec(_Strict):
         if self.risk_definition is not None and self.risk_endpoint is None:
             raise ValueError("'risk_definition' describes how the risk endpoint uses the value; give "
                              "'risk_endpoint' too, or remove 'risk_definition'")
+        if self.risk_endpoint_label is not None and self.risk_endpoint is None:
+            raise ValueError("'risk_endpoint_label' names the risk endpoint's event; give 'risk_endpoint' too, "
+                             "or remove 'risk_endpoint_label'")
+        if self.risk_endpoint_label is not None and not self.risk_endpoint_label.strip():
+            raise ValueError("'risk_endpoint_label' is blank; write how the report should name the event, "
+                             "or remove the key")
         if self.exposure is not None and self.scale != "count":
             raise ValueError("'exposure' (observation time) applies only to an outcome with scale 'count'")
         return self

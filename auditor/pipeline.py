@@ -288,6 +288,7 @@ def outcome_summary(study: Study, spec) -> dict:
         "planned_analysis": spec.planned_analysis,
         "entry_criterion": None if spec.entry_criterion is None else spec.entry_criterion.text,
         "risk_endpoint": spec.risk_endpoint,
+        "risk_endpoint_label": spec.risk_endpoint_label,
         "derived_columns": list(study.derived_columns),
         "file": study.outcome_files.get(spec.param),
         "record_selection": [c.to_dict() for c in study.record_selection.get(spec.param, [])],

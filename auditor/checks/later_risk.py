@@ -664,7 +664,11 @@ class _View:
         sd = float(np.std(np.concatenate([an.latest, an.earlier])))
         self.digits = max(0, min(4, 1 - math.floor(math.log10(sd)))) if sd > 0 else 2
         self.unit = spec.unit
-        self.endpoint = spec.risk_endpoint
+        self.endpoint = spec.risk_endpoint_label or spec.risk_endpoint
+        """The event as sentences name it: the declared label, else the endpoint's code."""
+        self.endpoint_named = (f"{spec.risk_endpoint_label} ({spec.risk_endpoint})" if spec.risk_endpoint_label
+                               else spec.risk_endpoint)
+        """The event with its code, where the code identifies the column modelled (method, counts)."""
 
     # -- formatting
 
@@ -877,7 +881,7 @@ class _View:
         an, arm, unit = self.an, self.arm, self.unit
         low = an.lowest
         out = [estimate("Participants analysed", float(len(an.y)), key="later-risk.n-participants"),
-               estimate(f"Participants with the event ({self.endpoint})", float(an.events), key="later-risk.n-events")]
+               estimate(f"Participants with the event ({self.endpoint_named})", float(an.events), key="later-risk.n-events")]
         out.append(estimate("Latest value at which the modelled risk is lowest", low.at, low.lower, low.upper,
                             unit=unit, note=(f"percentile bootstrap, {low.resamples} resamples ({low.failed} "
                                              f"not fitted); searched between the 5th and 95th percentiles"
@@ -1080,7 +1084,7 @@ class _View:
         lt, et = an.latest_term, an.earlier_term
         knots = lambda t: (f"restricted cubic spline with {len(t.plan.knots)} knots" if t.plan.kind == "spline"
                            else "quadratic")
-        return (f"Logistic regression (Newton-Raphson, exact likelihood) of {self.endpoint} on the latest value "
+        return (f"Logistic regression (Newton-Raphson, exact likelihood) of {self.endpoint_named} on the latest value "
                 f"({knots(lt)}) and the earlier value ({knots(et)}) on the "
                 f"{'log' if an.log_scale else 'original'} scale"
                 + (", adjusted for " + ", ".join(self._adjust_labels()) if an.adjust else "")

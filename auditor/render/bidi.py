@@ -118,7 +118,8 @@ def audit_user_strings(audit) -> list[str]:
     out = [audit.study_id, audit.title, audit.control_arm, *audit.arms]
     for o in audit.outcomes:
         out += [o.get("param"), o.get("label"), o.get("unit"), o.get("baseline_visit"), o.get("main_followup"),
-                o.get("screening_visit"), o.get("risk_endpoint"), *(o.get("followup_visits") or [])]
+                o.get("screening_visit"), o.get("risk_endpoint"), o.get("risk_endpoint_label"),
+                *(o.get("followup_visits") or [])]
     out += [r.outcome_label for r in audit.results]
     report = getattr(audit, "report", None)
     if report is not None:

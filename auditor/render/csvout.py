@@ -10,8 +10,10 @@ from ..results import Audit
 FORMULA_PREFIXES = ("=", "+", "-", "@", "\t", "\r")
 COLUMNS = ["study_id", "source", "outcome", "outcome_label", "check_id", "check_title", "verdict", "headline",
            "reason", "n_estimates", "caveats", "analysis_date", "blinded", "tool_version", "metadata_sha256",
-           "data_sha256", "subfinding_verdicts"]
-"""findings.csv's columns; those after ``caveats`` identify the audit (see docs/pipelines.md)."""
+           "data_sha256", "subfinding_verdicts", "recommendation"]
+"""findings.csv's columns; ``analysis_date`` to ``data_sha256`` identify the audit, and the last two
+describe the finding again: its sub-findings' verdicts and the analysis it recommends (see
+docs/pipelines.md). New columns are added at the end, so a column keeps its position."""
 IDENTITY_COLUMNS = ("analysis_date", "blinded", "tool_version", "metadata_sha256", "data_sha256")
 
 
@@ -47,7 +49,7 @@ def rows(audit: Audit) -> list[list]:
     for r in audit.results:
         out.append([audit.study_id, audit.source, r.outcome, r.outcome_label, r.check_id, r.check_title,
                     r.verdict.value, r.headline, r.reason, len(r.estimates), " | ".join(r.caveats),
-                    *(ident[c] for c in IDENTITY_COLUMNS), subfinding_verdicts(r)])
+                    *(ident[c] for c in IDENTITY_COLUMNS), subfinding_verdicts(r), r.recommendation])
     return out
 
 

@@ -217,7 +217,8 @@ def _audit_strings(audit: Audit) -> dict:
                            + (f"; screening {o['screening_visit']}" if o["screening_visit"] else "")),
                 ("Planned analysis", PLANNED_TEXT.get(o["planned_analysis"], o["planned_analysis"])),
                 ("Entry criterion", o["entry_criterion"] or "none declared"),
-                ("Risk endpoint", o["risk_endpoint"] or "none declared"),
+                ("Risk endpoint", (outcome_heading(o.get("risk_endpoint_label") or o["risk_endpoint"],
+                                                   o["risk_endpoint"]) if o["risk_endpoint"] else "none declared")),
             ],
             "records": [{"rule": c["rule"], "records": f"{c['records_removed']:,}",
                          "participants": f"{c['participants_removed']:,}", "left": f"{c['records_after']:,}"}

@@ -194,6 +194,34 @@ def test_risk_definition_key_is_strict():
         OutcomeSpec.model_validate({**base, "risk_definition": 1})
 
 
+def test_risk_endpoint_label_key_is_validated():
+    base = dict(param="K", scale="continuous", baseline_visit="B", followup_visits=["W"],
+                planned_analysis="follow-up-adjusted", risk_endpoint="EVT")
+    assert OutcomeSpec.model_validate(base).risk_endpoint_label is None
+    assert OutcomeSpec.model_validate({**base, "risk_endpoint_label": "an event"}).risk_endpoint_label == "an event"
+    with pytest.raises(ValueError, match="risk_endpoint"):
+        OutcomeSpec.model_validate({k: v for k, v in base.items() if k != "risk_endpoint"}
+                                   | {"risk_endpoint_label": "an event"})
+    for bad in ("", "   ", 3, "x" * 201):
+        with pytest.raises(ValueError, match="risk_endpoint_label"):
+            OutcomeSpec.model_validate({**base, "risk_endpoint_label": bad})
+
+
+def test_a_bad_risk_endpoint_label_is_an_input_problem_naming_the_key(tmp_path):
+    import shutil
+
+    from auditor.errors import StudyInputError
+
+    folder = tmp_path / "study"
+    shutil.copytree(ROOT / "example_study", folder, ignore=shutil.ignore_patterns("__pycache__"))
+    toml = folder / "study.toml"
+    toml.write_text(toml.read_text().replace('risk_endpoint_label = "a cardiac rhythm event"',
+                                             "risk_endpoint_label = 7"))
+    with pytest.raises(StudyInputError) as err:
+        load_study(folder)
+    assert any("risk_endpoint_label" in p.one_line() for p in err.value.problems)
+
+
 def test_declared_ratio_with_non_positive_values_is_not_assessable():
     y, latest, earlier = _trial("monotone-linear", 300, 3)
     with pytest.raises(NotAssessable, match="ratio"):
@@ -311,6 +339,22 @@ def test_example_potassium_is_u_shaped_and_caution(k_results):
     change = next(s for s in res.subfindings if s.id == "change-information")
     assert change.verdict.value == "sound" and "reported for information" in change.evidence
     assert change.evidence.startswith("It loses information")  # the loss is still reported
+
+
+def test_example_names_the_event_by_its_label_and_falls_back_to_its_code(k_results):
+    # example_study/study.toml: risk_endpoint = "CRHYTHFL", risk_endpoint_label = "a cardiac rhythm event".
+    res, _ = k_results
+    assert "the odds of a cardiac rhythm event" in res.headline and "CRHYTHFL" not in res.headline
+    assert "a cardiac rhythm event (CRHYTHFL)" in res.method
+    assert any(e.name == "Participants with the event (a cardiac rhythm event (CRHYTHFL))" for e in res.estimates)
+    assert all("a cardiac rhythm event" in f.data["ylabel"] for f in res.figures if "ylabel" in f.data)
+    # Without the label, sentences name the event by the endpoint's code.
+    study = load_study(ROOT / "example_study")
+    spec = next(o for o in study.metadata.outcomes if o.param == "K").model_copy(update={"risk_endpoint_label": None})
+    bare = get_check("later-risk").run(outcome_data(study, spec),
+                                       CheckContext(seed=study.metadata.study.seed, blinded=True, quick=True))
+    assert "the odds of CRHYTHFL" in bare.headline and "cardiac rhythm event" not in bare.headline
+    assert bare.verdict == res.verdict  # the label changes words, never numbers
 
 
 def test_example_potassium_with_a_declared_change_definition_is_judged():

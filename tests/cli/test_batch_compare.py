@@ -91,7 +91,7 @@ def test_compare_reports_moves(example_copy, tmp_path):
     res = runner.invoke(app, ["compare", str(old), str(new), "--html", str(tmp_path / "c.html")])
     assert res.exit_code == 0, res.output
     assert "numbers that moved" in res.output and "pre-post.n-participants" in res.output
-    assert "Numbers that moved" in (tmp_path / "c.html").read_text()
+    assert "Estimates that moved" in (tmp_path / "c.html").read_text()
     res = runner.invoke(app, ["compare", str(old), str(tmp_path / "missing.json")])
     assert res.exit_code == 2
 

@@ -1006,7 +1006,7 @@ META_KEYS = {
     "columns": ["subject", "arm", "param", "visit", "visit_number", "value", "baseline"],
     "outcomes": ["param", "label", "scale", "levels", "bounds", "unit", "baseline_visit", "screening_visit",
                  "followup_visits", "primary_followup", "planned_analysis", "responder", "entry_criterion",
-                 "reliability", "risk_endpoint", "covariates", "log_scale", "extra"],
+                 "reliability", "risk_endpoint", "risk_endpoint_label", "covariates", "log_scale", "extra"],
 }
 
 

@@ -4,6 +4,7 @@ comparable."""
 
 from __future__ import annotations
 
+import copy
 import csv
 import io
 import json
@@ -86,6 +87,53 @@ def test_two_cuts_through_batch_and_compare_give_a_keyed_json_diff(two_cuts):
     assert _with_pairs(root / "cut1", "FEV1") < _with_pairs(root / "cut2", "FEV1")
     assert ("FEV1", "pre-post.pearson", "value") in moved
     assert "Estimates matched on stable estimate keys" in (root / "diff.html").read_text()
+
+
+def test_comparison_page_reads_one_row_per_estimate_with_both_audits_named(two_cuts, tmp_path):
+    from auditor.compare import comparison_view
+    from auditor.render.html import render_marked
+    from auditor.render.view import CLOSED_MARK, OPEN_MARK
+
+    root, _ = two_cuts
+    old, new = (json.loads((root / "out" / c / "findings.json").read_text()) for c in ("cut1", "cut2"))
+    res = runner.invoke(app, ["compare", str(root / "out" / "cut1" / "findings.json"),
+                              str(root / "out" / "cut2" / "findings.json"), "--html", str(tmp_path / "c.html")])
+    assert res.exit_code == 0, res.output
+    page = (tmp_path / "c.html").read_text(encoding="utf-8")
+    assert CLOSED_MARK in page and "screening aid for a qualified statistician" in page
+    assert "2026-08-14" in page and "2026-11-20" in page  # the two data cuts (study.toml and _earlier_cut)
+    assert "Forced expiratory volume in 1 second (FEV1): Pre-post relationship" in page
+    # The Pearson correlation is one row, value and interval read from the two files (formatted to 3
+    # significant digits, as the report does), not three rows for value, lower and upper.
+    est = {c: next(e for r in d["results"] if (r["outcome"], r["check_id"]) == ("FEV1", "pre-post")
+                   for e in r["estimates"] if e["key"] == "pre-post.pearson") for c, d in (("old", old), ("new", new))}
+    for side in est.values():
+        assert f"{side['value']:.3g} ({side['lower']:.3g} to {side['upper']:.3g})" in page
+    view = comparison_view(compare_findings(old, new), old, new)
+    fev1 = next(g for g in view["number_groups"] if g["ident"] == ("FEV1", "pre-post"))
+    assert len([r for r in fev1["rows"] if r[0].startswith("Pearson")]) == 1
+    # FEV1 comes first, as study.toml declares it, though ACS sorts first by name.
+    assert view["number_groups"][0]["ident"][0] == "FEV1"
+    n_before = _with_pairs(root / "cut1", "FEV1")
+    n_after = _with_pairs(root / "cut2", "FEV1")
+    assert [str(n_before), str(n_after), f"+{n_after - n_before}", "value"] == fev1["rows"][0][1:]
+    # Two blinded audits give an open page; one unblinded audit makes it closed.
+    both = comparison_view(compare_findings(old, new), {**old, "blinded": True}, {**new, "blinded": True})
+    page = render_marked("compare.html.j2", both)
+    assert OPEN_MARK in page and CLOSED_MARK not in page
+    assert comparison_view(compare_findings(old, new), {**old, "blinded": True}, new)["marking"] == CLOSED_MARK
+
+
+def test_an_estimate_whose_interval_alone_moved_shows_its_unchanged_value():
+    from auditor.compare import comparison_view
+
+    old = _findings(_finding("sound", {}, [("change-score.slope.slope", "Slope", 1.0)]))
+    old["results"][0]["estimates"][0].update(lower=0.9, upper=1.1)
+    new = copy.deepcopy(old)
+    new["results"][0]["estimates"][0]["upper"] = 1.5
+    view = comparison_view(compare_findings(old, new), old, new)
+    (group,) = view["number_groups"]
+    assert group["rows"] == [["Slope", "1 (0.9 to 1.1)", "1 (0.9 to 1.5)", "0", "upper end"]]
 
 
 def test_compare_of_a_cut_with_itself_says_nothing_changed(two_cuts, tmp_path):
@@ -191,6 +239,37 @@ def test_findings_csv_carries_identity_and_subfinding_verdicts(example_audit):
     assert r0["metadata_sha256"] == example_audit.provenance.metadata_sha256
     first = example_audit.results[0]
     assert r0["subfinding_verdicts"] == "; ".join(f"{s.id}={s.verdict.value}" for s in first.subfindings)
+
+
+def test_findings_csv_carries_each_findings_recommendation(example_audit):
+    rows = list(csv.DictReader(io.StringIO(findings_csv(example_audit))))
+    assert COLUMNS[-1] == "recommendation"  # added at the end: earlier columns keep their positions
+    by_finding = {(r["outcome"], r["check_id"]): r["recommendation"] for r in rows}
+    assert len(by_finding) == len(example_audit.results)
+    for r in example_audit.results:
+        assert by_finding[(r.outcome, r.check_id)] == r.recommendation
+    # The count-time check recommends a rate model for RESC (docs/memo.md's table), and the
+    # descriptive pre-post check recommends nothing.
+    assert by_finding[("RESC", "count-time")].startswith("a rate model")
+    assert by_finding[("FEV1", "pre-post")] == ""
+
+
+def test_findings_json_reference_names_every_key_the_file_has(example_audit):
+    """docs/findings-json.md is the reference for the file: every key written is named there."""
+    from tests.conftest import ROOT
+
+    doc = (ROOT / "docs" / "findings-json.md").read_text(encoding="utf-8")
+    named = set(re.findall(r"`([a-z_0-9]+)`", doc))
+    d = json.loads(findings_json(example_audit))
+    r = d["results"][0]
+    groups = {"top level": d, "provenance": d["provenance"], "report": d["report"], "outcome": d["outcomes"][0],
+              "result": r, "estimate": r["estimates"][0], "sub-finding": r["subfindings"][0],
+              "file": d["provenance"]["files"][0], "check": d["checks"][0]}
+    groups |= {"table": next(x for x in d["results"] if x["tables"])["tables"][0],
+               "figure": next(x for x in d["results"] if x["figures"])["figures"][0]}
+    missing = {g: sorted(set(obj) - named) for g, obj in groups.items() if set(obj) - named}
+    assert not missing, missing
+    assert f"**{d['schema_version']}**" in doc
 
 
 # ----------------------------------------------------------------------------- compare, on findings dicts
