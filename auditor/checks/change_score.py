@@ -16,7 +16,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from ..references import add_reference, cite
-from ..results import Figure, SubFinding, Table, Verdict
+from ..results import Figure, SubFinding, Table, Verdict, level_label
 from ..stats.ancova import Effect, fit_analyses, interaction_test, linearity_test, spline_columns
 from ..stats.correlation import pearson
 from ..stats.diagnostics import (at_bound_tolerance, bound_shares, boxcox_lr_pvalue, boxcox_profile, category_columns,
@@ -295,7 +295,7 @@ def linearity_part(test, model: BaselineModel, p_adj) -> Part:
                 "" if ok else f"follow-up is nonlinear in baseline ({ps})")
 
 
-def scale_part(trend, prof, p_adj_trend, p_adj_boxcox, p_boxcox) -> Part:
+def scale_part(trend, prof, p_adj_trend, p_adj_boxcox, p_boxcox, level: float = 0.95) -> Part:
     q = "Is the scale right (constant spread, additive relation)?"
     grows = "grows" if trend.slope > 0 else "shrinks"
     parts = [f"trend of the residual spread with baseline: {fmt_p(trend.p_value)}, Holm-adjusted "
@@ -305,11 +305,11 @@ def scale_part(trend, prof, p_adj_trend, p_adj_boxcox, p_boxcox) -> Part:
     bad = p_adj_trend < ALPHA
     phrase = f"the spread of change {grows} with baseline" if bad else ""
     if prof is not None:
-        parts.append(f"Box-Cox power {fmt(prof.lam)} ({fmt(prof.lower)} to {fmt(prof.upper)}, 95% CI); test of "
+        parts.append(f"Box-Cox power {fmt(prof.lam)} ({fmt(prof.lower)} to {fmt(prof.upper)}, {level_label(level)} CI); test of "
                      f"the raw scale (power 1): {fmt_p(p_boxcox)}, Holm-adjusted {fmt_p(p_adj_boxcox)}")
         est.append(estimate("Box-Cox power for baseline and follow-up (1 = raw scale, 0 = log)", prof.lam,
                             prof.lower, prof.upper, p=p_boxcox,
-                            note=f"95% profile-likelihood interval; Holm-adjusted p of power 1: {p_adj_boxcox:.3g}",
+                            note=f"{level_label(level)} profile-likelihood interval; Holm-adjusted p of power 1: {p_adj_boxcox:.3g}",
                             key="change-score.scale.box-cox-power"))
         if p_adj_boxcox < ALPHA:
             bad = True
@@ -709,7 +709,7 @@ def run(data, ctx: CheckContext):
     edge, edge_scale, edge_note = edge_test(data, df, ctx)
     lin_test, flex_fit = flexible_linearity(b, f, arm_cols, model)
     trend = spread_trend_test(flex_fit.resid, b)
-    prof = boxcox_profile(f, b, arm_cols) if np.all(b > 0) and np.all(f > 0) else None
+    prof = boxcox_profile(f, b, arm_cols, level=ctx.level) if np.all(b > 0) and np.all(f > 0) else None
     p_boxcox = boxcox_lr_pvalue(prof, 1.0) if prof is not None else None
     slope = slope_test(b, f, arm_cols, 1.0, ctx.level)
     raw = [edge.p_value if edge is not None else None, lin_test.p_value if lin_test is not None else None, trend.p_value, p_boxcox, slope.p_value]
@@ -719,7 +719,7 @@ def run(data, ctx: CheckContext):
     parts = {
         "selection": selection_part(data, df, ctx, edge, edge_scale, edge_note, p_edge),
         "linearity": linearity_part(lin_test, model, p_lin),
-        "scale": scale_part(trend, prof, p_trend, p_bc, p_boxcox),
+        "scale": scale_part(trend, prof, p_trend, p_bc, p_boxcox, ctx.level),
         "bounds": bounds_part(df, data.spec),
         "interval": interval_part(df, data.spec),
         "slope": slope_part(slope, adj, p_slope),

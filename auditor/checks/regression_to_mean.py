@@ -20,7 +20,7 @@ import numpy as np
 from scipy import stats
 
 from ..references import REFERENCES, add_reference, cite
-from ..results import Estimate, Figure, SubFinding, Verdict
+from ..results import Estimate, Figure, SubFinding, Verdict, level_label
 from ..stats.linear import fit_ols
 from ..stats.rtm import (bias_after_second_baseline, expected_rtm, fit_truncated_normal, icc_oneway,
                          edge_test_scale, rtm_with_ci, shrunk_values, truncation_edge_test)
@@ -446,8 +446,8 @@ def declared_criterion_reach(data, ctx) -> float:
 # ----------------------------------------------------------------------------- reliability
 
 
-def slope(y, x) -> tuple[float, float, float, float, int]:
-    """Least-squares slope of ``y`` on ``x``: (estimate, SE, lower, upper, n), t-based 95% CI.
+def slope(y, x, level: float = 0.95) -> tuple[float, float, float, float, int]:
+    """Least-squares slope of ``y`` on ``x``: (estimate, SE, lower, upper, n), t-based interval at ``level``.
 
     Under a bivariate normal with equal SDs the slope of one reading on another is their correlation,
     and selection on the regressor leaves the regression of the other reading on it unchanged
@@ -455,7 +455,7 @@ def slope(y, x) -> tuple[float, float, float, float, int]:
     correlation itself is attenuated.
     """
     fit = fit_ols(np.asarray(y, float), {"x": np.asarray(x, float)})
-    est, lo, hi = fit.ci("x")
+    est, lo, hi = fit.ci("x", level)
     return est, float(fit.se[fit.index("x")]), lo, hi, fit.n
 
 
@@ -481,7 +481,7 @@ def comparison_group(data, ctx, rd: Readings) -> Group:
 
 def _pair_reliability(rd, scale, sel, other, spec, level) -> Reliability:
     s, o = (scale.to(v) for v in rd.complete(sel.column, other))
-    est, se, lo, hi, n = slope(o, s)
+    est, se, lo, hi, n = slope(o, s, level)
     icc = icc_oneway(s, o, level=level)
     evidence = (f"slope of {_visit_of(spec, other)} on {sel.visit} in {n} selected participants "
                 f"{fmt(est)} ({fmt(lo)} to {fmt(hi)}), unbiased under selection on {sel.visit}; "
@@ -496,7 +496,7 @@ def _followup_reliability(data, ctx, rd, scale, sel) -> Reliability:
     if len(s) < MIN_PAIRS:
         raise NotAssessable(f"no second pre-treatment reading, no declared reliability, and only {len(s)} "
                             f"participants {group.where} with a follow-up value to estimate it from")
-    est, se, lo, hi, n = slope(scale.to(f), scale.to(s))
+    est, se, lo, hi, n = slope(scale.to(f), scale.to(s), ctx.level)
     extra = "" if group.by_arm else " and any variation between participants in the response to treatment"
     evidence = (f"slope of follow-up on {sel.visit} {group.where} ({n} participants) {fmt(est)} ({fmt(lo)} to "
                 f"{fmt(hi)}): a lower bound for the reliability, since it also includes true change over "
@@ -759,9 +759,9 @@ def selection_section(sel, finds, n_kept, n_excluded, out: Out, share_out: float
                 f"out of this check")
 
 
-def population_section(spec, scale, sel, out: Out) -> None:
+def population_section(spec, scale, sel, out: Out, level: float = 0.95) -> None:
     fit = scale.fit
-    q = stats.norm.ppf(0.975)
+    q = stats.norm.ppf(0.5 + level / 2)
     lo, hi = fit.mu - q * fit.se_mu, fit.mu + q * fit.se_mu
     s_lo, s_hi = fit.sigma - q * fit.se_sigma, fit.sigma + q * fit.se_sigma
     if scale.log:
@@ -887,7 +887,7 @@ def truncation_figure(spec, rd, scale, sel) -> Figure:
                           f"{' (log scale, labelled in original units)' if scale.log else ''}.")
 
 
-def comparison_figure(spec, scale, rows: list[dict], by_arm: bool) -> Figure:
+def comparison_figure(spec, scale, rows: list[dict], by_arm: bool, level: float = 0.95) -> Figure:
     conv = _pct if scale.log else float
     data_rows = [{"label": r["label"], "value": conv(r["value"]), "lower": conv(r["lower"]),
                   "upper": conv(r["upper"])} for r in rows]
@@ -895,7 +895,7 @@ def comparison_figure(spec, scale, rows: list[dict], by_arm: bool) -> Figure:
     return Figure("rtm-expected-observed", "interval_rows",
                   f"{spec.display_name}: change expected from regression to the mean and change observed",
                   {"rows": data_rows, "reference": 0.0, "xlabel": xlabel},
-                  caption="Points and 95% intervals. An observed change inside the expected interval could be "
+                  caption=f"Points and {level_label(level)} intervals. An observed change inside the expected interval could be "
                           "produced by regression to the mean alone.", by_arm=by_arm)
 
 
@@ -1202,7 +1202,7 @@ def run(data, ctx: CheckContext):
     share_out = excluded_share(scale, sel)
     no_one_out = selects_no_one(sel, share_out)
     selection_section(sel, finds, len(rd.present(sel.column)), n_excluded, out, share_out)
-    population_section(spec, scale, sel, out)
+    population_section(spec, scale, sel, out, ctx.level)
     rel = choose_reliability(data, ctx, rd, scale, sel)
     reliability_section(spec, rel, out)
     rho = _capped(rel, out)
@@ -1230,7 +1230,7 @@ def run(data, ctx: CheckContext):
     bias_sub(spec, design, sel, target, sigma, scale, material, verdict, target_by_arm, out, material_sd)
     figures = [f for f in (pairs_figure(spec, rd, scale, sel, rel), truncation_figure(spec, rd, scale, sel)) if f]
     out.figures = figures + out.figures + [
-        comparison_figure(spec, scale, figure_rows(sel, rtm, target, obs, pre), by_arm)]
+        comparison_figure(spec, scale, figure_rows(sel, rtm, target, obs, pre), by_arm, ctx.level)]
     caveats(ctx, rel, out)
     further_conditions_caveat(spec, out)
     text = (no_one_out_headline(spec, sel, finds, scale, rtm, target, share_out) if no_one_out and not material

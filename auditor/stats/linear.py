@@ -78,6 +78,19 @@ def f_test(reduced: LinearFit, full: LinearFit) -> NestedTest:
     return NestedTest(float(f), q, full.df_resid, float(stats.f.sf(f, q, full.df_resid)))
 
 
+def adjusted_slope(y, x, covariates: dict[str, np.ndarray] | None = None,
+                   level: float = 0.95) -> tuple[float, float, float, float, int]:
+    """Least-squares slope of ``y`` on ``x`` adjusted for other columns: (estimate, lower, upper, p, df).
+
+    y = a + b x + sum_k c_k z_k + e; b-hat with the t interval b-hat -/+ t_{(1+level)/2, n-p} SE(b-hat)
+    and the two-sided t-test of b = 0 (any regression text, e.g. Draper and Smith, Applied Regression
+    Analysis, 3rd ed., 1998, ch. 3). With ``covariates`` empty it is the simple regression slope.
+    """
+    fit = fit_ols(y, {"x": np.asarray(x, dtype=float), **(covariates or {})})
+    est, lo, hi = fit.ci("x", level)
+    return est, lo, hi, fit.p_value("x"), int(fit.df_resid)
+
+
 def arm_indicators(arm: np.ndarray, arms: list[str], control: str | None) -> dict[str, np.ndarray]:
     """0/1 columns for each non-control arm (treatment coding against the control)."""
     arm = np.asarray(arm, dtype=object)
