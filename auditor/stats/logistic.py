@@ -25,6 +25,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import linalg, special, stats
 
+from .lrtest import LRTest, likelihood_ratio  # noqa: F401  (LRTest is part of this module's interface)
+
 INTERCEPT = "(intercept)"
 SEPARATION_LOGIT = 25.0
 """Under separation the maximum likelihood estimate does not exist: Newton steps stay large while the
@@ -173,28 +175,15 @@ def fit_logistic(y, columns: dict[str, np.ndarray] | None = None, intercept: boo
 # --------------------------------------------------------------------------------------- LR tests
 
 
-@dataclass(frozen=True)
-class LRTest:
-    """A likelihood-ratio chi-square: 2 (l_full - l_reduced) on ``df`` degrees of freedom."""
-
-    statistic: float
-    df: int
-    p_value: float
-
-
 def lr_test(reduced: LogisticFit, full: LogisticFit) -> LRTest:
-    """The LR chi-square of a reduced model nested in a full one (Wilks 1938).
+    """The LR chi-square of a reduced model nested in a full one (:func:`auditor.stats.lrtest.likelihood_ratio`).
 
     Nesting (the reduced model's column space inside the full one's) is the caller's duty; only the
     sample and the parameter counts are checked here.
     """
     if reduced.n != full.n:
         raise ValueError("nested models must be fitted to the same observations")
-    df = full.n_params - reduced.n_params
-    if df <= 0:
-        raise ValueError("the full model must have more parameters than the reduced one")
-    stat = max(2.0 * (full.loglik - reduced.loglik), 0.0)
-    return LRTest(float(stat), int(df), float(stats.chi2.sf(stat, df)))
+    return likelihood_ratio(reduced.loglik, full.loglik, full.n_params - reduced.n_params)
 
 
 @dataclass(frozen=True)
