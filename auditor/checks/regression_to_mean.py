@@ -21,10 +21,11 @@ from scipy import stats
 
 from ..references import REFERENCES, add_reference, cite
 from ..results import Estimate, Figure, SubFinding, Verdict, level_label
-from ..stats.linear import fit_ols
+from ..stats.linear import mean_t_interval, slope_with_se
 from ..stats.rtm import (bias_after_second_baseline, expected_rtm, fit_truncated_normal, icc_oneway,
                          edge_test_scale, rtm_with_ci, shrunk_values, truncation_edge_test)
-from ..stats.rtm import fit_window_normal, rtm_window_with_ci, window_mean_shift
+from ..stats.rtm import (fit_window_normal, product_interval, rtm_window_with_ci, selection_shift_with_se,
+                         window_mean_shift)
 from .common import estimate, fmt, fmt_p, result
 from .registry import CheckContext, NotAssessable, register
 
@@ -454,9 +455,7 @@ def slope(y, x, level: float = 0.95) -> tuple[float, float, float, float, int]:
     (Pearson 1903), so the slope is an unbiased reliability even in a selected sample, where the
     correlation itself is attenuated.
     """
-    fit = fit_ols(np.asarray(y, float), {"x": np.asarray(x, float)})
-    est, lo, hi = fit.ci("x", level)
-    return est, float(fit.se[fit.index("x")]), lo, hi, fit.n
+    return slope_with_se(y, x, level)
 
 
 def other_reading(rd: Readings, sel: Selection) -> str | None:
@@ -565,13 +564,9 @@ def further_conditions_caveat(spec, out: Out) -> None:
 
 
 def mean_change(d, where: str, by_arm: bool, level: float) -> Change:
-    """Mean of the differences ``d`` with its t interval."""
-    d = np.asarray(d, dtype=float)
-    n = len(d)
-    se = float(np.std(d, ddof=1) / np.sqrt(n))
-    q = stats.t.ppf(0.5 + level / 2, n - 1)
-    m = float(np.mean(d))
-    return Change(m, m - q * se, m + q * se, se, n, where, by_arm)
+    """Mean of the differences ``d`` with its t interval (:func:`auditor.stats.linear.mean_t_interval`)."""
+    m, lo, hi, se, n = mean_t_interval(d, level)
+    return Change(m, lo, hi, se, n, where, by_arm)
 
 
 def observed_change(data, ctx, rd, scale) -> Change:
@@ -596,18 +591,8 @@ def pre_treatment_change(rd, scale, sel, rel, spec, level) -> Change | None:
 
 
 def selection_shift_se(fit, cutoff_t: float, direction: str) -> tuple[float, float]:
-    """``e = E[S - mu | selected]`` at the fit (signed) and its delta-method SE from the fit's
-    covariance; ``e`` is minus the expected RTM at reliability 0."""
-    def e(mu, sigma):
-        if direction == "window":
-            return float(window_mean_shift(mu, sigma, fit.lower, fit.upper))
-        return -expected_rtm(mu, sigma, 0.0, cutoff_t, direction)
-
-    h = 1e-5 * fit.sigma
-    grad = np.array([(e(fit.mu + h, fit.sigma) - e(fit.mu - h, fit.sigma)) / (2 * h),
-                     (e(fit.mu, fit.sigma + h) - e(fit.mu, fit.sigma - h)) / (2 * h)])
-    cov = np.array([[fit.se_mu ** 2, fit.cov_mu_sigma], [fit.cov_mu_sigma, fit.se_sigma ** 2]])
-    return e(fit.mu, fit.sigma), float(np.sqrt(max(grad @ cov @ grad, 0.0)))
+    """``e = E[S - mu | selected]`` and its delta-method SE (:func:`auditor.stats.rtm.selection_shift_with_se`)."""
+    return selection_shift_with_se(fit, cutoff_t, direction)
 
 
 def residual_bias(data, ctx, rd, scale, sel) -> tuple[Interval, Group]:
@@ -633,9 +618,8 @@ def residual_bias(data, ctx, rd, scale, sel) -> tuple[Interval, Group]:
         bias = bias_after_second_baseline(fit.mu, fit.sigma, cut, rho_screen_second=float(np.clip(rho_sb, -1, 1)),
                                           rho_screen_followup=float(np.clip(rho_sf, -1, 1)),
                                           direction=sel.direction).second_baseline_bias
-    se = math.sqrt(e ** 2 * diff_se ** 2 + diff ** 2 * e_se ** 2 + diff_se ** 2 * e_se ** 2)
-    q = stats.norm.ppf(0.5 + ctx.level / 2)
-    return Interval(bias, bias - q * se, bias + q * se), group
+    lower, upper = product_interval(bias, diff, diff_se, e, e_se, ctx.level)
+    return Interval(bias, lower, upper), group
 
 
 def second_baseline_share(data, ctx, rd, scale, sel, rel, rho, out: Out) -> float | None:
