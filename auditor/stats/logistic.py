@@ -20,6 +20,7 @@ Everything here is pure: arrays in, frozen dataclasses out; no verdicts, no plot
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -317,6 +318,54 @@ def contrast(fit: LogisticFit, weights: dict[str, float] | np.ndarray) -> tuple[
     else:
         c = np.asarray(weights, dtype=float)
     return float(c @ fit.coef), float(np.sqrt(max(c @ fit.cov @ c, 0.0)))
+
+
+def coefficient_ratio(fit: LogisticFit, numerator: str, denominator: str,
+                      level: float = 0.95) -> tuple[float, float, float]:
+    """Ratio r = b_num / b_den of two coefficients with its delta-method interval: (r, lower, upper).
+
+    var(r) = [V_nn - 2 r V_nd + r^2 V_dd] / b_den^2 (first-order Taylor expansion of the ratio; e.g.
+    Casella and Berger, Statistical Inference, 2nd ed., 2002, section 5.5.4); interval
+    r -/+ z_{(1+level)/2} sqrt(var(r)).
+    """
+    i, j = fit.index(denominator), fit.index(numerator)
+    bl, be = fit.coef[i], fit.coef[j]
+    r = be / bl
+    var = (fit.cov[j, j] - 2 * r * fit.cov[i, j] + r * r * fit.cov[i, i]) / (bl * bl)
+    half = stats.norm.ppf(0.5 + level / 2) * math.sqrt(max(var, 0.0))
+    return float(r), float(r - half), float(r + half)
+
+
+def bootstrap_lowest_point(y, columns: dict[str, np.ndarray], term_names: list[str], basis_grid: np.ndarray,
+                           grid, resamples: int, seed: int, level: float = 0.95,
+                           min_success: float = 0.0) -> tuple[float | None, float | None, int]:
+    """Percentile bootstrap of the grid point where a term's fitted logit is lowest: (lower, upper, failed).
+
+    Rows are resampled with replacement (``numpy.random.default_rng(seed)``), the logistic model of
+    ``y`` on ``columns`` refitted, and the grid point minimising basis_grid @ b_term recorded; the
+    interval is the (1 -/+ level)/2 quantiles of the points found (Efron and Tibshirani, An
+    Introduction to the Bootstrap, 1993, ch. 13). Fits that fail count in ``failed``; with fewer than
+    ``min_success * resamples`` successes the interval is (None, None). The basis (knots) stays at its
+    full-sample positions.
+    """
+    y = np.asarray(y)
+    names = list(columns)
+    X = np.column_stack([columns[k] for k in names])
+    li = [names.index(k) + 1 for k in term_names]
+    rng = np.random.default_rng(seed)
+    found, failed = [], 0
+    for _ in range(resamples):
+        idx = rng.integers(0, len(y), len(y))
+        try:
+            fit = fit_logistic(y[idx], {k: X[idx, j] for j, k in enumerate(names)})
+        except (ValueError, RuntimeError):
+            failed += 1
+            continue
+        found.append(grid[int(np.argmin(basis_grid @ fit.coef[li]))])
+    if len(found) < min_success * resamples:
+        return None, None, failed
+    lo, hi = np.quantile(found, [0.5 - level / 2, 0.5 + level / 2])
+    return float(lo), float(hi), failed
 
 
 # ------------------------------------------------------------------------------ interior extremum
