@@ -121,3 +121,20 @@ def test_report_at_090_says_90_and_never_95_percent(audit_90):
     leftover = [m.group(0) for m in re.finditer(r".{40}95 ?%.{20}", text)
                 if not re.search(r"95 ?% tied|\d95 ?%", m.group(0))]
     assert not leftover, leftover
+
+
+def test_compare_refuses_audits_at_different_levels_unless_forced(example_audit, audit_90, tmp_path):
+    from auditor.compare import comparability_problems
+    from auditor.render.jsonout import findings_dict
+
+    a95, a90 = findings_dict(example_audit), findings_dict(audit_90)
+    assert comparability_problems(a95, a95) == []
+    problems = comparability_problems(a95, a90)
+    assert [what for what, _ in problems] == ["confidence_level"]
+    old = {k: v for k, v in a95.items()}
+    old["provenance"] = {k: v for k, v in a95["provenance"].items() if k != "confidence_level"}
+    assert comparability_problems(old, a95) == []  # findings without the field were at 0.95
+    (tmp_path / "old.json").write_text(json.dumps(a95))
+    (tmp_path / "new.json").write_text(json.dumps(a90))
+    res = runner.invoke(app, ["compare", str(tmp_path / "old.json"), str(tmp_path / "new.json")])
+    assert res.exit_code == 2 and "confidence level" in _stderr(res)
