@@ -138,3 +138,24 @@ def test_compare_refuses_audits_at_different_levels_unless_forced(example_audit,
     (tmp_path / "new.json").write_text(json.dumps(a90))
     res = runner.invoke(app, ["compare", str(tmp_path / "old.json"), str(tmp_path / "new.json")])
     assert res.exit_code == 2 and "confidence level" in _stderr(res)
+
+
+def test_summaries_audit_carries_the_level():
+    """The audit from published summaries: the simulated cost intervals narrow at 0.90, the implied
+    ANCOVA effect's half-width scales by z_0.95 / z_0.975 (scipy.stats.norm), the comments say 90%."""
+    from auditor.summaries.audit import audit_from_summaries
+    from tests.conftest import ROOT
+
+    a95 = audit_from_summaries(ROOT / "example_manuscript", quick=True)
+    a90 = audit_from_summaries(ROOT / "example_manuscript", quick=True, level=0.90)
+    assert (a95.provenance.confidence_level, a90.provenance.confidence_level) == (0.95, 0.90)
+    e95, e90 = _estimates(a95), _estimates(a90)
+    ancova = [k for k in e95 if k[1].endswith(".ancova-effect.contrast-1")]
+    assert ancova
+    for k in ancova:
+        ratio = (e90[k].upper - e90[k].lower) / (e95[k].upper - e95[k].lower)
+        assert ratio == pytest.approx(stats.norm.ppf(0.95) / stats.norm.ppf(0.975), rel=1e-12)
+    ratios = [k for k in e95 if k[1].endswith(".ratio") and e95[k].lower is not None]
+    assert ratios and all(e90[k].upper - e90[k].lower < e95[k].upper - e95[k].lower for k in ratios)
+    said = " ".join(c.evidence for c in a90.comments)
+    assert "90% interval" in said and "95% interval" not in said
