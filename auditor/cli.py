@@ -217,6 +217,8 @@ def run(
                                                 help="Date printed on the report (YYYY-MM-DD); default: study.toml's."),
     today: bool = typer.Option(False, "--today", help="Use today's date when no analysis date is given."),
     seed: Optional[int] = typer.Option(None, "--seed", help="Seed for every resampling; default: study.toml's."),
+    level: Optional[float] = typer.Option(None, "--level", help="Two-sided confidence level of every interval, "
+                                                                 "e.g. 0.9; default: study.toml's confidence_level, else 0.95."),
     paper: str = typer.Option("A4", "--paper", help="PDF page size: A4 or letter."),
     check: List[str] = typer.Option([], "--check", help="Run only this check id (repeatable)."),
     strict: bool = typer.Option(False, "--strict", help="Stop with exit 1 at the first defect of the tool "
@@ -240,7 +242,8 @@ def run(
 ):
     """Audit a study folder: write audit.html, audit.pdf, findings.json and findings.csv (and the memo)."""
     from .options import (check_id_problems, date_problems, formats_problems, jobs_problems, output_formats,
-                          paper_problems, paper_size, refuse_if_any, registered_check_ids, seed_problems)
+                          level_problems, paper_problems, paper_size, refuse_if_any, registered_check_ids,
+                          seed_problems)
     from .pipeline import AuditOptions, audit_study
     from .render.output import check_target, write_audit
     from .study import load_study
@@ -251,8 +254,8 @@ def run(
                                              "or list", "leave the option out for a summaries folder")
                            for o, given in (("--blinded", blinded), ("--list-left-out", list_left_out)) if given])
             return _run_summaries(study_dir, output, force, analysis_date, today, seed, paper, check, strict, quiet,
-                                  formats)
-        refuse_if_any(seed_problems(seed), date_problems(analysis_date, "--analysis-date"),
+                                  formats, level)
+        refuse_if_any(seed_problems(seed), level_problems(level), date_problems(analysis_date, "--analysis-date"),
                       check_id_problems(check, registered_check_ids()), paper_problems(paper),
                       formats_problems(formats), jobs_problems(jobs))
         chosen = output_formats(formats)
@@ -261,7 +264,7 @@ def run(
         _print_study_warnings(study, blinded)
         from .batch import default_jobs
 
-        opts = AuditOptions(blinded=blinded, analysis_date=analysis_date, use_clock=today, seed=seed,
+        opts = AuditOptions(blinded=blinded, analysis_date=analysis_date, use_clock=today, seed=seed, level=level,
                             checks=tuple(check), list_left_out=list_left_out, withhold_pooled=withhold_pooled,
                             draw=bool({"html", "pdf"} & set(chosen)), jobs=jobs or default_jobs(),
                             **({"strict": True} if strict else {}))
@@ -296,23 +299,23 @@ def _validate_summaries(study_dir: Path) -> None:
 
 
 def _run_summaries(study_dir, output, force, analysis_date, today, seed, paper, check, strict, quiet,
-                   formats="html,pdf,json,csv") -> None:
+                   formats="html,pdf,json,csv", level=None) -> None:
     """`run` on a folder of published summaries: the same options, checks and write guard, plus comments.md."""
-    from .options import (date_problems, formats_problems, output_formats, paper_problems, paper_size,
-                          refuse_if_any, seed_problems)
+    from .options import (date_problems, formats_problems, level_problems, output_formats, paper_problems,
+                          paper_size, refuse_if_any, seed_problems)
     from .pipeline import AuditOptions
     from .summaries.audit import load_summary_study, audit_summaries
     from .summaries.checks import CHECKS
     from .summaries.output import check_summary_target, write_summary_audit
 
     unknown = [c for c in check if c not in CHECKS]
-    refuse_if_any(seed_problems(seed), date_problems(analysis_date, "--analysis-date"), paper_problems(paper),
-                  formats_problems(formats),
+    refuse_if_any(seed_problems(seed), level_problems(level), date_problems(analysis_date, "--analysis-date"),
+                  paper_problems(paper), formats_problems(formats),
                   [option_problem("--check", f"'{c}' is not a check of an audit from published summaries",
                                   f"use one of {', '.join(CHECKS)}") for c in unknown])
     check_summary_target(output, force, protected=[study_dir])
     study = load_summary_study(study_dir)
-    opts = AuditOptions(analysis_date=analysis_date, use_clock=today, seed=seed, checks=tuple(check),
+    opts = AuditOptions(analysis_date=analysis_date, use_clock=today, seed=seed, level=level, checks=tuple(check),
                         **({"strict": True} if strict else {}))
     a = audit_summaries(study, opts)
     _warn_defects(a)
@@ -380,6 +383,8 @@ def batch(
                                            help="Force pooled (blinded) or by-arm audits for every study."),
     analysis_date: Optional[str] = typer.Option(None, "--analysis-date", help="Date printed on every report."),
     seed: Optional[int] = typer.Option(None, "--seed", help="Seed for every resampling (default: each study's)."),
+    level: Optional[float] = typer.Option(None, "--level", help="Two-sided confidence level of every interval "
+                                                                 "(default: each study's confidence_level, else 0.95)."),
     paper: str = typer.Option("A4", "--paper", help="PDF page size: A4 or letter."),
     memo: bool = typer.Option(False, "--memo", help="Also write each study's memo.html and memo.pdf."),
     formats: str = typer.Option("html,pdf,json,csv", "--formats",
@@ -390,13 +395,13 @@ def batch(
     """Audit many studies in parallel: OUT/<study>/, OUT/index.html and OUT/summary.csv."""
     from .batch import batch_exit_code, default_jobs, expand_inputs, index_view, refuse_unsafe_batch, summary_csv
     from .options import (date_problems, fail_on_problems, formats_problems, jobs_problems, output_formats,
-                          paper_problems, paper_size, refuse_if_any, seed_problems)
+                          level_problems, paper_problems, paper_size, refuse_if_any, seed_problems)
     from .pipeline import CAUTIONS
     from .render.html import render_marked
     from .writeguard import write_file_set
 
     def body():
-        refuse_if_any(jobs_problems(jobs), fail_on_problems(fail_on), seed_problems(seed),
+        refuse_if_any(jobs_problems(jobs), fail_on_problems(fail_on), seed_problems(seed), level_problems(level),
                       date_problems(analysis_date, "--analysis-date"), paper_problems(paper),
                       formats_problems(formats))
         folders = expand_inputs(inputs)
@@ -406,7 +411,8 @@ def batch(
                 err.print(f"{f}: is not a folder. Fix: give study folders or a manifest listing them.", markup=False)
             raise typer.Exit(EXIT_INPUT)
         refuse_unsafe_batch(folders, output, force, memo)
-        options = {"blinded": blinded, "analysis_date": analysis_date, "seed": seed, **({"memo": True} if memo else {})}
+        options = {"blinded": blinded, "analysis_date": analysis_date, "seed": seed, **({"memo": True} if memo else {}),
+                   **({"level": level} if level is not None else {})}
         if formats != "html,pdf,json,csv" or figure_data:
             options.update(formats=",".join(output_formats(formats)), figure_data=figure_data)
         n_jobs = jobs or default_jobs()

@@ -210,8 +210,9 @@ def _moved(old, new, tol: float) -> bool:
 
 
 def comparability_problems(old: dict, new: dict) -> list[tuple[str, str]]:
-    """(what, why) for each reason the two audits should not be compared: different study ids, or one
-    blinded and the other not (a difference would then reveal by-arm results, or be meaningless)."""
+    """(what, why) for each reason the two audits should not be compared: different study ids, one
+    blinded and the other not (a difference would then reveal by-arm results, or be meaningless), or
+    intervals at different confidence levels."""
     out = []
     a, b = old.get("study_id", ""), new.get("study_id", "")
     if a != b:
@@ -220,7 +221,18 @@ def comparability_problems(old: dict, new: dict) -> list[tuple[str, str]]:
     if isinstance(ba, bool) and isinstance(bb, bool) and ba != bb:
         which = "the first" if ba else "the second"
         out.append(("blinded", f"{which} audit is blinded and the other is not"))
+    la, lb = _level(old), _level(new)
+    if la != lb:
+        out.append(("confidence_level", f"the audits' intervals are at different confidence levels "
+                                        f"({la:g} and {lb:g}), so every interval would move for that alone"))
     return out
+
+
+def _level(d: dict) -> float:
+    """The audit's confidence level (findings written before it was recorded used 0.95)."""
+    prov = d.get("provenance") if isinstance(d.get("provenance"), dict) else {}
+    level = prov.get("confidence_level", 0.95)
+    return float(level) if isinstance(level, (int, float)) and not isinstance(level, bool) else 0.95
 
 
 def _has_keys(d: dict) -> bool:

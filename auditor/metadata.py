@@ -78,6 +78,13 @@ MAX_SEED = 2**32 - 1
 ``numpy.random.default_rng``, which accepts any non-negative integer; the upper limit keeps a seed
 recordable as an unsigned 32-bit number in every output."""
 
+DEFAULT_LEVEL = 0.95
+"""Two-sided confidence level of every interval of an audit unless study.toml's ``[study]
+confidence_level`` or ``--level`` says otherwise (the customary 95%; a convention, no source)."""
+MIN_LEVEL, MAX_LEVEL = 0.5, 0.999
+"""Levels accepted, in study.toml and on the command line alike: below 0.5 an interval covers less
+often than it misses, and at 1 it is unbounded (a convention of this tool, no source)."""
+
 _ISO_DATE = re.compile(r"\d{4}-\d{2}-\d{2}")
 
 
@@ -136,6 +143,8 @@ class StudyInfo(_Strict):
     blinded: StrictBool = False
     analysis_date: AnalysisDate = None
     seed: StrictInt = Field(default=20240101, ge=0, le=MAX_SEED)
+    confidence_level: StrictFloat = Field(default=DEFAULT_LEVEL, ge=MIN_LEVEL, le=MAX_LEVEL)
+    """Two-sided confidence level of every interval, caption and interval-based verdict of the audit."""
     source: Literal["data", "summaries"] = "data"
     """What the folder holds: participant data (``data``) or a paper's published summaries
     (``summaries``, audited by :mod:`auditor.summaries`; see docs/summaries.md)."""

@@ -13,7 +13,7 @@ from pathlib import Path
 from typing import Iterable
 
 from .errors import CommandLineError, InputProblem, did_you_mean, option_problem
-from .metadata import MAX_SEED, iso_date
+from .metadata import MAX_LEVEL, MAX_SEED, MIN_LEVEL, iso_date
 
 PAPER_SIZES = ("A4", "letter")
 FAIL_ON_LEVELS = ("failed", "not assessable", "caution", "unsupported")
@@ -31,6 +31,14 @@ def seed_problems(seed: int | None, option: str = "--seed") -> list[InputProblem
     if seed is None or 0 <= seed <= MAX_SEED:
         return []
     return [option_problem(option, f"{seed} is not a seed", f"give a whole number from 0 to {MAX_SEED}")]
+
+
+def level_problems(level: float | None, option: str = "--level") -> list[InputProblem]:
+    """A confidence level is a number from MIN_LEVEL to MAX_LEVEL, as study.toml's confidence_level."""
+    if level is None or (math.isfinite(level) and MIN_LEVEL <= level <= MAX_LEVEL):
+        return []
+    return [option_problem(option, f"{level:g} is not a confidence level",
+                           f"give a proportion from {MIN_LEVEL:g} to {MAX_LEVEL:g}, such as 0.9 or 0.95")]
 
 
 def date_problems(text: str | None, option: str) -> list[InputProblem]:

@@ -96,6 +96,9 @@ class AuditOptions:
     """Take today's date when neither the option nor the metadata give one."""
     seed: int | None = None
     """Seed for every resampling (default: the metadata's)."""
+    level: float | None = None
+    """Two-sided confidence level of every interval (default: the metadata's ``confidence_level``).
+    Recorded resolved, as the provenance's ``confidence_level``."""
     quick: bool = False
     checks: tuple[str, ...] = field(default_factory=tuple)
     """Run only these check ids (default: all)."""
@@ -118,8 +121,9 @@ class AuditOptions:
                 if k not in UNRECORDED_OPTIONS}
 
 
-UNRECORDED_OPTIONS = ("strict", "draw", "jobs")
-"""Options that change how an audit is computed or shown, never a number of it."""
+UNRECORDED_OPTIONS = ("strict", "draw", "jobs", "level")
+"""Options that change how an audit is computed or shown, never a number of it; and ``level``, which
+is recorded once, resolved, as the provenance's ``confidence_level``."""
 
 
 def library_versions() -> dict[str, str]:
@@ -352,7 +356,8 @@ def audit_study(study: Study, options: AuditOptions | None = None, progress=None
     blinded = meta.study.blinded if options.blinded is None else options.blinded
     _refuse_unblinding_a_pooled_study(study, blinded)
     seed = meta.study.seed if options.seed is None else options.seed
-    ctx = CheckContext(seed=seed, blinded=blinded, quick=options.quick, strict=options.strict,
+    level = meta.study.confidence_level if options.level is None else options.level
+    ctx = CheckContext(seed=seed, blinded=blinded, level=level, quick=options.quick, strict=options.strict,
                        thresholds=meta.thresholds)
     withhold = blinded and (meta.study.withhold_pooled if options.withhold_pooled is None else options.withhold_pooled)
     results: list[CheckResult] = []
@@ -373,6 +378,7 @@ def audit_study(study: Study, options: AuditOptions | None = None, progress=None
         seed=seed,
         platform=f"Python {platform.python_version()} on {platform.system()} {platform.machine()}",
         thresholds=meta.thresholds.as_record(),
+        confidence_level=level,
     )
     return Audit(
         study_id=meta.study.id,

@@ -80,6 +80,11 @@ def _clean(value: Any) -> Any:
     return str(value)
 
 
+def level_label(level: float) -> str:
+    """A confidence level as printed everywhere: 0.95 -> "95%", 0.9 -> "90%", 0.975 -> "97.5%"."""
+    return f"{round(100 * level, 6):g}%"
+
+
 @dataclass(frozen=True)
 class Estimate:
     """One estimated quantity with its uncertainty: a tidy row of a result."""
@@ -270,6 +275,8 @@ class Provenance:
     platform: str
     thresholds: dict[str, float] = field(default_factory=dict)
     """The materiality conventions every verdict was graded by (study.toml ``[thresholds]`` or defaults)."""
+    confidence_level: float = 0.95
+    """Two-sided level of every interval, caption and interval-based verdict (``--level`` or study.toml)."""
 
 
 @dataclass(frozen=True)

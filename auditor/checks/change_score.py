@@ -16,8 +16,9 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from ..references import add_reference, cite
-from ..results import Figure, SubFinding, Table, Verdict
-from ..stats.ancova import Effect, fit_analyses, interaction_test, linearity_test, spline_columns
+from ..results import Figure, SubFinding, Table, Verdict, level_label
+from ..stats.ancova import (fit_analyses, fit_analyses_categorical, interaction_test, linearity_test,
+                           spline_columns)
 from ..stats.correlation import pearson
 from ..stats.diagnostics import (at_bound_tolerance, bound_shares, boxcox_lr_pvalue, boxcox_profile, category_columns,
                                  granularity,
@@ -295,7 +296,7 @@ def linearity_part(test, model: BaselineModel, p_adj) -> Part:
                 "" if ok else f"follow-up is nonlinear in baseline ({ps})")
 
 
-def scale_part(trend, prof, p_adj_trend, p_adj_boxcox, p_boxcox) -> Part:
+def scale_part(trend, prof, p_adj_trend, p_adj_boxcox, p_boxcox, level: float = 0.95) -> Part:
     q = "Is the scale right (constant spread, additive relation)?"
     grows = "grows" if trend.slope > 0 else "shrinks"
     parts = [f"trend of the residual spread with baseline: {fmt_p(trend.p_value)}, Holm-adjusted "
@@ -305,11 +306,11 @@ def scale_part(trend, prof, p_adj_trend, p_adj_boxcox, p_boxcox) -> Part:
     bad = p_adj_trend < ALPHA
     phrase = f"the spread of change {grows} with baseline" if bad else ""
     if prof is not None:
-        parts.append(f"Box-Cox power {fmt(prof.lam)} ({fmt(prof.lower)} to {fmt(prof.upper)}, 95% CI); test of "
+        parts.append(f"Box-Cox power {fmt(prof.lam)} ({fmt(prof.lower)} to {fmt(prof.upper)}, {level_label(level)} CI); test of "
                      f"the raw scale (power 1): {fmt_p(p_boxcox)}, Holm-adjusted {fmt_p(p_adj_boxcox)}")
         est.append(estimate("Box-Cox power for baseline and follow-up (1 = raw scale, 0 = log)", prof.lam,
                             prof.lower, prof.upper, p=p_boxcox,
-                            note=f"95% profile-likelihood interval; Holm-adjusted p of power 1: {p_adj_boxcox:.3g}",
+                            note=f"{level_label(level)} profile-likelihood interval; Holm-adjusted p of power 1: {p_adj_boxcox:.3g}",
                             key="change-score.scale.box-cox-power"))
         if p_adj_boxcox < ALPHA:
             bad = True
@@ -424,28 +425,20 @@ def _cost_ci(cost) -> str:
 # ----------------------------------------------------------------------------- consequences
 
 
-def _analyses(df, arms, control, model: BaselineModel):
+def _analyses(df, arms, control, model: BaselineModel, level: float = 0.95):
     """The four analyses side by side; with a categorical baseline the flexible ANCOVA uses categories."""
     if model.levels is None:
-        return fit_analyses(df["baseline"], df["followup"], df["arm"].to_numpy(), arms, control, model.plan).effects
-    b, f = df["baseline"].to_numpy(dtype=float), df["followup"].to_numpy(dtype=float)
-    cols = arm_indicators(df["arm"].to_numpy(), arms, control)
-    out = []
-    for name, y, extra in (("follow-up only", f, {}), ("change score", f - b, {}),
-                           ("ANCOVA, linear baseline", f, {"baseline": b}),
-                           ("ANCOVA, baseline as categories", f, model.columns(b))):
-        fit = fit_ols(y, {**extra, **cols})
-        for k in cols:
-            est, lo, hi = fit.ci(k)
-            out.append(Effect(name, k[4:-1], est, float(fit.se[fit.index(k)]), lo, hi, fit.p_value(k), fit.df_resid))
-    return out
+        return fit_analyses(df["baseline"], df["followup"], df["arm"].to_numpy(), arms, control, model.plan,
+                            level).effects
+    b = df["baseline"].to_numpy(dtype=float)
+    return fit_analyses_categorical(b, df["followup"], df["arm"].to_numpy(), arms, control, model.columns(b), level)
 
 
 FLEXIBLE_ROWS = ("ANCOVA, spline baseline", "ANCOVA, baseline as categories")
 
 
-def analyses_table(df, arms, control, model: BaselineModel):
-    effects = _analyses(df, arms, control, model)
+def analyses_table(df, arms, control, model: BaselineModel, level: float = 0.95):
+    effects = _analyses(df, arms, control, model, level)
     rows = [[e.analysis, e.contrast, e.estimate, e.se, e.lower, e.upper, e.p_value] for e in effects]
     table = Table("analyses", "Treatment effect under each analysis, fitted on the same participants",
                   ["Analysis", "Arm vs control", "Effect", "SE", "lower", "upper", "p"], rows,
@@ -467,7 +460,7 @@ def analyses_table(df, arms, control, model: BaselineModel):
     return table, ests, ratio_anc, effects
 
 
-def ordinal_alternative(df, arms, control, model: BaselineModel):
+def ordinal_alternative(df, arms, control, model: BaselineModel, level: float = 0.95):
     """Proportional-odds ANCOVA of follow-up on the flexible baseline plus arm (McCullagh 1980).
 
     Returns (rows for the analyses table, a table of clinician-scale translations, a reason when it
@@ -489,10 +482,10 @@ def ordinal_alternative(df, arms, control, model: BaselineModel):
     rows, trans = [], []
     quartiles = sorted(set(np.quantile(y, [0.25, 0.5, 0.75]).tolist()))
     for arm_name in [k for k in names if k.startswith("arm[")]:
-        w = fit.wald(arm_name)
+        w = fit.wald(arm_name, level)
         rows.append(["proportional-odds ANCOVA (log odds ratio)", arm_name[4:-1], w.estimate, w.se, w.lower, w.upper,
                      w.p_value])
-        conc = po.concordance_exact(fit, _vector(names, ref, None), arm_name)
+        conc = po.concordance_exact(fit, _vector(names, ref, None), arm_name, level)
         trans.append([f"{arm_name[4:-1]} vs {control}", "concordance probability", conc.estimate, conc.lower,
                       conc.upper])
         check = po.proportional_odds_check(y, X, arm_name, names=names, fit=fit)
@@ -500,10 +493,10 @@ def ordinal_alternative(df, arms, control, model: BaselineModel):
                       f"on {check.df} df (p {check.p_value:.3f}, approximate)", check.heterogeneity_chi2, None, None])
     for arm in arms:
         x = _vector(names, ref, arm)
-        mean, med = po.predicted_mean(fit, x), po.predicted_median(fit, x)
+        mean, med = po.predicted_mean(fit, x, level), po.predicted_median(fit, x, level)
         trans.append([arm, "mean follow-up at median baseline", mean.estimate, mean.lower, mean.upper])
         trans.append([arm, "median follow-up at median baseline", med.estimate, med.lower, med.upper])
-        ex = po.prob_exceeds(fit, x, quartiles)
+        ex = po.prob_exceeds(fit, x, quartiles, level)
         for t, pr, lo, hi in zip(ex.thresholds, ex.probability, ex.lower, ex.upper):
             trans.append([arm, f"P(follow-up > {fmt(float(t))}) at median baseline", pr, lo, hi])
     table = Table("ordinal-translation", "Proportional-odds ANCOVA on the outcome's own scale",
@@ -519,13 +512,13 @@ def _vector(names, ref, arm):
                      for k in names])
 
 
-def heterogeneity_part(df, arms, control):
+def heterogeneity_part(df, arms, control, level: float = 0.95):
     """Apparent heterogeneity on the change scale against the ANCOVA interaction test."""
     rows = []
     for arm in arms:
         sub = df[df["arm"] == arm]
         if len(sub) >= 10:
-            r = pearson(sub["baseline"], sub["followup"] - sub["baseline"])
+            r = pearson(sub["baseline"], sub["followup"] - sub["baseline"], level)
             rows.append([arm, len(sub), r.r, r.lower, r.upper, r.p_value])
     inter = interaction_test(df["baseline"].to_numpy(), df["followup"].to_numpy(), df["arm"].to_numpy(), arms, control)
     table = Table("heterogeneity", "Correlation of change with baseline within arm",
@@ -709,7 +702,7 @@ def run(data, ctx: CheckContext):
     edge, edge_scale, edge_note = edge_test(data, df, ctx)
     lin_test, flex_fit = flexible_linearity(b, f, arm_cols, model)
     trend = spread_trend_test(flex_fit.resid, b)
-    prof = boxcox_profile(f, b, arm_cols) if np.all(b > 0) and np.all(f > 0) else None
+    prof = boxcox_profile(f, b, arm_cols, level=ctx.level) if np.all(b > 0) and np.all(f > 0) else None
     p_boxcox = boxcox_lr_pvalue(prof, 1.0) if prof is not None else None
     slope = slope_test(b, f, arm_cols, 1.0, ctx.level)
     raw = [edge.p_value if edge is not None else None, lin_test.p_value if lin_test is not None else None, trend.p_value, p_boxcox, slope.p_value]
@@ -719,7 +712,7 @@ def run(data, ctx: CheckContext):
     parts = {
         "selection": selection_part(data, df, ctx, edge, edge_scale, edge_note, p_edge),
         "linearity": linearity_part(lin_test, model, p_lin),
-        "scale": scale_part(trend, prof, p_trend, p_bc, p_boxcox),
+        "scale": scale_part(trend, prof, p_trend, p_bc, p_boxcox, ctx.level),
         "bounds": bounds_part(df, data.spec),
         "interval": interval_part(df, data.spec),
         "slope": slope_part(slope, adj, p_slope),
@@ -731,12 +724,12 @@ def run(data, ctx: CheckContext):
         estimates += p.estimates
     tables, caveats = [], []
     if len(arms) > 1:
-        table, ests, ratio_anc, _ = analyses_table(df, arms, control, model)
+        table, ests, ratio_anc, _ = analyses_table(df, arms, control, model, ctx.level)
         awkward = (any(parts[k].sub.verdict != Verdict.SOUND for k in ("bounds", "interval", "scale"))
                    or abs(skewness(df["followup"])) > SKEW_FOR_LOG)
         po_table = None
         if awkward or data.spec.scale == "ordinal":
-            rows, po_table, why = ordinal_alternative(df, arms, control, model)
+            rows, po_table, why = ordinal_alternative(df, arms, control, model, ctx.level)
             table.rows.extend(rows)
             if why:
                 caveats.append(why[0].upper() + why[1:] + ".")
@@ -744,7 +737,7 @@ def run(data, ctx: CheckContext):
         if po_table is not None:
             tables.append(po_table)
         estimates += ests
-        het_table, het_est, het_caveat = heterogeneity_part(df, arms, control)
+        het_table, het_est, het_caveat = heterogeneity_part(df, arms, control, ctx.level)
         tables.append(het_table)
         estimates += het_est
         if het_caveat:

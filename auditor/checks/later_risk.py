@@ -26,8 +26,8 @@ from ..references import add_reference, cite
 from ..results import Figure, SubFinding, Table, Verdict
 from ..stats.linear import arm_indicators
 from ..stats.logistic import (INTERCEPT, ChiSquarePartition, ExtremumTest, LogisticFit, LRTest,
-                              SeparationError, block_columns, chi_square_partition, contrast, fit_logistic,
-                              interior_extremum, lr_test, risk_band)
+                              SeparationError, block_columns, bootstrap_lowest_point, chi_square_partition,
+                              coefficient_ratio, contrast, fit_logistic, interior_extremum, lr_test, risk_band)
 from ..stats.splines import SplinePlan, choose_knots, flexible_basis, knot_count
 from .common import estimate, fmt, fmt_p, result
 from .registry import CheckContext, NotAssessable, register
@@ -207,13 +207,8 @@ def derived_test(definition: Definition, y, latest, earlier, adjust, effective_n
 
 
 def weight_ratio(fit: LogisticFit, level: float) -> tuple[float, float, float]:
-    """r = b_e / b_l with var(r) = [V_ee - 2 r V_le + r^2 V_ll] / b_l^2 (delta method)."""
-    i, j = fit.index(LATEST), fit.index(EARLIER)
-    bl, be = fit.coef[i], fit.coef[j]
-    r = be / bl
-    var = (fit.cov[j, j] - 2 * r * fit.cov[i, j] + r * r * fit.cov[i, i]) / (bl * bl)
-    half = stats.norm.ppf(0.5 + level / 2) * math.sqrt(max(var, 0.0))
-    return float(r), float(r - half), float(r + half)
+    """r = b_e / b_l with var(r) = [V_ee - 2 r V_le + r^2 V_ll] / b_l^2 (delta method; stats.logistic)."""
+    return coefficient_ratio(fit, EARLIER, LATEST, level)
 
 
 # ------------------------------------------------------------------------------------- analysis
@@ -447,24 +442,9 @@ def locate_lowest(y, latest, earlier, adjust, lt: Term, et: Term, grid, at: floa
     if resamples <= 0:
         return Lowest(at, None, None, 0, 0)
     columns = {**lt.columns(latest), **et.columns(earlier), **adjust}
-    names = list(columns)
-    X = np.column_stack([columns[k] for k in names])
-    B = lt.basis(grid)
-    li = [names.index(k) + 1 for k in lt.names]
-    rng = np.random.default_rng(seed)
-    found, failed = [], 0
-    for _ in range(resamples):
-        idx = rng.integers(0, len(y), len(y))
-        try:
-            fit = fit_logistic(y[idx], {k: X[idx, j] for j, k in enumerate(names)})
-        except (ValueError, RuntimeError):
-            failed += 1
-            continue
-        found.append(grid[int(np.argmin(B @ fit.coef[li]))])
-    if len(found) < MIN_BOOT_SUCCESS * resamples:
-        return Lowest(at, None, None, resamples, failed)
-    lo, hi = np.quantile(found, [0.5 - level / 2, 0.5 + level / 2])
-    return Lowest(at, float(lo), float(hi), resamples, failed)
+    lo, hi, failed = bootstrap_lowest_point(y, columns, list(lt.names), lt.basis(grid), grid, resamples, seed,
+                                            level, MIN_BOOT_SUCCESS)
+    return Lowest(at, lo, hi, resamples, failed)
 
 
 def design_rows(fit: LogisticFit, n: int, given: dict[str, np.ndarray], fill: dict[str, float]) -> np.ndarray:

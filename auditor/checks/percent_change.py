@@ -22,7 +22,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..references import REFERENCES, add_reference, cite
-from ..results import Estimate, Figure, SubFinding, Table, Verdict
+from ..results import Estimate, Figure, SubFinding, Table, Verdict, level_label
 from ..stats import relative_change as rc
 from ..stats.correlation import spearman
 from ..stats.linear import arm_indicators
@@ -700,7 +700,7 @@ def _responder_baseline(inp: _Inputs, spec, ctx: CheckContext, resp: np.ndarray,
                      "label": "logistic fit, pooled"}],
          "rug": inp.b.tolist(), "xlabel": _axis(spec, "Baseline"), "ylabel": "Probability of responding",
          "vlines": [{"x": curve.x_low}, {"x": curve.x_high}]},
-        caption="Pooled over arms; band: 95% pointwise interval. Dotted lines: 10th and 90th baseline "
+        caption=f"Pooled over arms; band: {level_label(ctx.level)} pointwise interval. Dotted lines: 10th and 90th baseline "
                 "percentiles."))
     return verdict
 

@@ -17,9 +17,9 @@ import numpy as np
 from statsmodels.nonparametric.smoothers_lowess import lowess
 
 from ..references import cite
-from ..results import Figure, SubFinding, Table, Verdict
+from ..results import Figure, SubFinding, Table, Verdict, level_label
 from ..stats.correlation import pearson, spearman
-from ..stats.linear import arm_indicators, fit_ols
+from ..stats.linear import adjusted_slope, arm_indicators
 from .common import arms_present, complete_pairs, estimate, fmt_ci, result, thin
 from .registry import CheckContext, register
 
@@ -33,18 +33,14 @@ def _applies(spec, design) -> bool:
     return spec.baseline_visit is not None
 
 
-def baseline_slope(df, arms, control) -> tuple[float, float, float, float, int]:
+def baseline_slope(df, arms, control, level: float = 0.95) -> tuple[float, float, float, float, int]:
     """Slope of follow-up on baseline adjusted for arm: (estimate, lower, upper, p, residual df).
 
     followup = a + b * baseline + sum_k c_k [arm = k] + error, fitted by least squares; the CI is
     t-based. With no arms (blinded or single-arm) the arm terms are omitted.
     """
-    cols = {"baseline": df["baseline"].to_numpy()}
-    if len(arms) > 1:
-        cols.update(arm_indicators(df["arm"].to_numpy(), arms, control))
-    fit = fit_ols(df["followup"].to_numpy(), cols)
-    est, lo, hi = fit.ci("baseline")
-    return est, lo, hi, fit.p_value("baseline"), int(fit.df_resid)
+    cols = arm_indicators(df["arm"].to_numpy(), arms, control) if len(arms) > 1 else {}
+    return adjusted_slope(df["followup"].to_numpy(), df["baseline"].to_numpy(), cols, level)
 
 
 def smooth_curve(x: np.ndarray, y: np.ndarray, points: int = 60) -> tuple[list[float], list[float]]:
@@ -70,7 +66,7 @@ def run(data, ctx: CheckContext):
     arms = arms_present(df, data, ctx)
     b, f = df["baseline"].to_numpy(), df["followup"].to_numpy()
     pr, sp = pearson(b, f, ctx.level), spearman(b, f, ctx.level)
-    slope, s_lo, s_hi, s_p, _ = baseline_slope(df, arms, data.control_arm)
+    slope, s_lo, s_hi, s_p, _ = baseline_slope(df, arms, data.control_arm, ctx.level)
     adjusted = "adjusted for arm" if len(arms) > 1 else "pooled"
 
     estimates = [
@@ -115,7 +111,7 @@ def run(data, ctx: CheckContext):
                   references=cite(["frison-pocock-1992", "clifton-2019", "fieller-1957", "cleveland-1979"]),
                   method="Pearson r with Fisher z interval; Spearman rho with the Fieller-Hartley-Pearson "
                          "interval; least-squares slope of follow-up on baseline with arm as a factor; "
-                         "t-based 95% CI.")
+                         f"t-based {level_label(ctx.level)} CI.")
 
 
 def descriptive_subfindings(slope: float, s_lo: float, s_hi: float, pr) -> list[SubFinding]:

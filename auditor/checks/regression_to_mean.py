@@ -20,11 +20,12 @@ import numpy as np
 from scipy import stats
 
 from ..references import REFERENCES, add_reference, cite
-from ..results import Estimate, Figure, SubFinding, Verdict
-from ..stats.linear import fit_ols
+from ..results import Estimate, Figure, SubFinding, Verdict, level_label
+from ..stats.linear import mean_t_interval, slope_with_se
 from ..stats.rtm import (bias_after_second_baseline, expected_rtm, fit_truncated_normal, icc_oneway,
                          edge_test_scale, rtm_with_ci, shrunk_values, truncation_edge_test)
-from ..stats.rtm import fit_window_normal, rtm_window_with_ci, window_mean_shift
+from ..stats.rtm import (fit_window_normal, product_interval, rtm_window_with_ci, selection_shift_with_se,
+                         window_mean_shift)
 from .common import estimate, fmt, fmt_p, result
 from .registry import CheckContext, NotAssessable, register
 
@@ -446,17 +447,15 @@ def declared_criterion_reach(data, ctx) -> float:
 # ----------------------------------------------------------------------------- reliability
 
 
-def slope(y, x) -> tuple[float, float, float, float, int]:
-    """Least-squares slope of ``y`` on ``x``: (estimate, SE, lower, upper, n), t-based 95% CI.
+def slope(y, x, level: float = 0.95) -> tuple[float, float, float, float, int]:
+    """Least-squares slope of ``y`` on ``x``: (estimate, SE, lower, upper, n), t-based interval at ``level``.
 
     Under a bivariate normal with equal SDs the slope of one reading on another is their correlation,
     and selection on the regressor leaves the regression of the other reading on it unchanged
     (Pearson 1903), so the slope is an unbiased reliability even in a selected sample, where the
     correlation itself is attenuated.
     """
-    fit = fit_ols(np.asarray(y, float), {"x": np.asarray(x, float)})
-    est, lo, hi = fit.ci("x")
-    return est, float(fit.se[fit.index("x")]), lo, hi, fit.n
+    return slope_with_se(y, x, level)
 
 
 def other_reading(rd: Readings, sel: Selection) -> str | None:
@@ -481,7 +480,7 @@ def comparison_group(data, ctx, rd: Readings) -> Group:
 
 def _pair_reliability(rd, scale, sel, other, spec, level) -> Reliability:
     s, o = (scale.to(v) for v in rd.complete(sel.column, other))
-    est, se, lo, hi, n = slope(o, s)
+    est, se, lo, hi, n = slope(o, s, level)
     icc = icc_oneway(s, o, level=level)
     evidence = (f"slope of {_visit_of(spec, other)} on {sel.visit} in {n} selected participants "
                 f"{fmt(est)} ({fmt(lo)} to {fmt(hi)}), unbiased under selection on {sel.visit}; "
@@ -496,7 +495,7 @@ def _followup_reliability(data, ctx, rd, scale, sel) -> Reliability:
     if len(s) < MIN_PAIRS:
         raise NotAssessable(f"no second pre-treatment reading, no declared reliability, and only {len(s)} "
                             f"participants {group.where} with a follow-up value to estimate it from")
-    est, se, lo, hi, n = slope(scale.to(f), scale.to(s))
+    est, se, lo, hi, n = slope(scale.to(f), scale.to(s), ctx.level)
     extra = "" if group.by_arm else " and any variation between participants in the response to treatment"
     evidence = (f"slope of follow-up on {sel.visit} {group.where} ({n} participants) {fmt(est)} ({fmt(lo)} to "
                 f"{fmt(hi)}): a lower bound for the reliability, since it also includes true change over "
@@ -565,13 +564,9 @@ def further_conditions_caveat(spec, out: Out) -> None:
 
 
 def mean_change(d, where: str, by_arm: bool, level: float) -> Change:
-    """Mean of the differences ``d`` with its t interval."""
-    d = np.asarray(d, dtype=float)
-    n = len(d)
-    se = float(np.std(d, ddof=1) / np.sqrt(n))
-    q = stats.t.ppf(0.5 + level / 2, n - 1)
-    m = float(np.mean(d))
-    return Change(m, m - q * se, m + q * se, se, n, where, by_arm)
+    """Mean of the differences ``d`` with its t interval (:func:`auditor.stats.linear.mean_t_interval`)."""
+    m, lo, hi, se, n = mean_t_interval(d, level)
+    return Change(m, lo, hi, se, n, where, by_arm)
 
 
 def observed_change(data, ctx, rd, scale) -> Change:
@@ -596,18 +591,8 @@ def pre_treatment_change(rd, scale, sel, rel, spec, level) -> Change | None:
 
 
 def selection_shift_se(fit, cutoff_t: float, direction: str) -> tuple[float, float]:
-    """``e = E[S - mu | selected]`` at the fit (signed) and its delta-method SE from the fit's
-    covariance; ``e`` is minus the expected RTM at reliability 0."""
-    def e(mu, sigma):
-        if direction == "window":
-            return float(window_mean_shift(mu, sigma, fit.lower, fit.upper))
-        return -expected_rtm(mu, sigma, 0.0, cutoff_t, direction)
-
-    h = 1e-5 * fit.sigma
-    grad = np.array([(e(fit.mu + h, fit.sigma) - e(fit.mu - h, fit.sigma)) / (2 * h),
-                     (e(fit.mu, fit.sigma + h) - e(fit.mu, fit.sigma - h)) / (2 * h)])
-    cov = np.array([[fit.se_mu ** 2, fit.cov_mu_sigma], [fit.cov_mu_sigma, fit.se_sigma ** 2]])
-    return e(fit.mu, fit.sigma), float(np.sqrt(max(grad @ cov @ grad, 0.0)))
+    """``e = E[S - mu | selected]`` and its delta-method SE (:func:`auditor.stats.rtm.selection_shift_with_se`)."""
+    return selection_shift_with_se(fit, cutoff_t, direction)
 
 
 def residual_bias(data, ctx, rd, scale, sel) -> tuple[Interval, Group]:
@@ -633,9 +618,8 @@ def residual_bias(data, ctx, rd, scale, sel) -> tuple[Interval, Group]:
         bias = bias_after_second_baseline(fit.mu, fit.sigma, cut, rho_screen_second=float(np.clip(rho_sb, -1, 1)),
                                           rho_screen_followup=float(np.clip(rho_sf, -1, 1)),
                                           direction=sel.direction).second_baseline_bias
-    se = math.sqrt(e ** 2 * diff_se ** 2 + diff ** 2 * e_se ** 2 + diff_se ** 2 * e_se ** 2)
-    q = stats.norm.ppf(0.5 + ctx.level / 2)
-    return Interval(bias, bias - q * se, bias + q * se), group
+    lower, upper = product_interval(bias, diff, diff_se, e, e_se, ctx.level)
+    return Interval(bias, lower, upper), group
 
 
 def second_baseline_share(data, ctx, rd, scale, sel, rel, rho, out: Out) -> float | None:
@@ -759,9 +743,9 @@ def selection_section(sel, finds, n_kept, n_excluded, out: Out, share_out: float
                 f"out of this check")
 
 
-def population_section(spec, scale, sel, out: Out) -> None:
+def population_section(spec, scale, sel, out: Out, level: float = 0.95) -> None:
     fit = scale.fit
-    q = stats.norm.ppf(0.975)
+    q = stats.norm.ppf(0.5 + level / 2)
     lo, hi = fit.mu - q * fit.se_mu, fit.mu + q * fit.se_mu
     s_lo, s_hi = fit.sigma - q * fit.se_sigma, fit.sigma + q * fit.se_sigma
     if scale.log:
@@ -887,7 +871,7 @@ def truncation_figure(spec, rd, scale, sel) -> Figure:
                           f"{' (log scale, labelled in original units)' if scale.log else ''}.")
 
 
-def comparison_figure(spec, scale, rows: list[dict], by_arm: bool) -> Figure:
+def comparison_figure(spec, scale, rows: list[dict], by_arm: bool, level: float = 0.95) -> Figure:
     conv = _pct if scale.log else float
     data_rows = [{"label": r["label"], "value": conv(r["value"]), "lower": conv(r["lower"]),
                   "upper": conv(r["upper"])} for r in rows]
@@ -895,7 +879,7 @@ def comparison_figure(spec, scale, rows: list[dict], by_arm: bool) -> Figure:
     return Figure("rtm-expected-observed", "interval_rows",
                   f"{spec.display_name}: change expected from regression to the mean and change observed",
                   {"rows": data_rows, "reference": 0.0, "xlabel": xlabel},
-                  caption="Points and 95% intervals. An observed change inside the expected interval could be "
+                  caption=f"Points and {level_label(level)} intervals. An observed change inside the expected interval could be "
                           "produced by regression to the mean alone.", by_arm=by_arm)
 
 
@@ -1202,7 +1186,7 @@ def run(data, ctx: CheckContext):
     share_out = excluded_share(scale, sel)
     no_one_out = selects_no_one(sel, share_out)
     selection_section(sel, finds, len(rd.present(sel.column)), n_excluded, out, share_out)
-    population_section(spec, scale, sel, out)
+    population_section(spec, scale, sel, out, ctx.level)
     rel = choose_reliability(data, ctx, rd, scale, sel)
     reliability_section(spec, rel, out)
     rho = _capped(rel, out)
@@ -1230,7 +1214,7 @@ def run(data, ctx: CheckContext):
     bias_sub(spec, design, sel, target, sigma, scale, material, verdict, target_by_arm, out, material_sd)
     figures = [f for f in (pairs_figure(spec, rd, scale, sel, rel), truncation_figure(spec, rd, scale, sel)) if f]
     out.figures = figures + out.figures + [
-        comparison_figure(spec, scale, figure_rows(sel, rtm, target, obs, pre), by_arm)]
+        comparison_figure(spec, scale, figure_rows(sel, rtm, target, obs, pre), by_arm, ctx.level)]
     caveats(ctx, rel, out)
     further_conditions_caveat(spec, out)
     text = (no_one_out_headline(spec, sel, finds, scale, rtm, target, share_out) if no_one_out and not material

@@ -6,7 +6,7 @@ import base64
 import math
 
 from ..references import REFERENCES
-from ..results import Audit, CheckResult, SummaryAudit, Verdict
+from ..results import Audit, CheckResult, SummaryAudit, Verdict, level_label
 from .bidi import UserText, audit_user_strings
 
 VERDICT_CLASS = {
@@ -256,7 +256,12 @@ def _audit_strings(audit: Audit) -> dict:
             "seed": p.seed,
             "platform": p.platform,
             "thresholds": sorted((k, number(v)) for k, v in p.thresholds.items()),
+            "confidence_level": level_label(p.confidence_level),
         },
+        "interval_heading": f"{level_label(p.confidence_level)} interval",
+        "level_statement": (f"Every interval in this audit is a two-sided {level_label(p.confidence_level)} "
+                            "confidence interval, and every verdict that rests on an interval is judged at that "
+                            "level (--level, or confidence_level in study.toml)."),
         "left_out": None if audit.left_out is None else left_out_view(audit),
         "schema_version": audit.schema_version,
         **summary_view(audit),

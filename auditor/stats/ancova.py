@@ -31,10 +31,10 @@ class Effect:
     df: float
 
 
-def _effects(fit: LinearFit, analysis: str, arm_cols: dict) -> list[Effect]:
+def _effects(fit: LinearFit, analysis: str, arm_cols: dict, level: float = 0.95) -> list[Effect]:
     out = []
     for name in arm_cols:
-        est, lo, hi = fit.ci(name)
+        est, lo, hi = fit.ci(name, level)
         out.append(Effect(analysis, name[4:-1], est, float(fit.se[fit.index(name)]), lo, hi, fit.p_value(name),
                           fit.df_resid))
     return out
@@ -52,8 +52,9 @@ class AnalysisSet:
     spline: LinearFit
 
 
-def fit_analyses(baseline, followup, arm, arms: list[str], control: str, plan: SplinePlan) -> AnalysisSet:
-    """Fit the four analyses; arms must have at least two levels present."""
+def fit_analyses(baseline, followup, arm, arms: list[str], control: str, plan: SplinePlan,
+                 level: float = 0.95) -> AnalysisSet:
+    """Fit the four analyses; arms must have at least two levels present; t intervals at ``level``."""
     b = np.asarray(baseline, dtype=float)
     f = np.asarray(followup, dtype=float)
     cols = arm_indicators(arm, arms, control)
@@ -61,9 +62,31 @@ def fit_analyses(baseline, followup, arm, arms: list[str], control: str, plan: S
     ch = fit_ols(f - b, dict(cols))
     lin = fit_ols(f, {"baseline": b, **cols})
     spl = fit_ols(f, {**spline_columns(b, plan), **cols})
-    effects = (_effects(fu, "follow-up only", cols) + _effects(ch, "change score", cols)
-               + _effects(lin, "ANCOVA, linear baseline", cols) + _effects(spl, "ANCOVA, spline baseline", cols))
+    effects = (_effects(fu, "follow-up only", cols, level) + _effects(ch, "change score", cols, level)
+               + _effects(lin, "ANCOVA, linear baseline", cols, level)
+               + _effects(spl, "ANCOVA, spline baseline", cols, level))
     return AnalysisSet(effects, lin, spl)
+
+
+def fit_analyses_categorical(baseline, followup, arm, arms: list[str], control: str, category_cols: dict,
+                             level: float = 0.95) -> list[Effect]:
+    """The four analyses with the flexible ANCOVA taking baseline as categories instead of a spline.
+
+    For a baseline with few distinct values, Y1 = a + sum_j g_j [Y0 = v_j] + d*arm + e (one indicator
+    per baseline value after the first, or columns spanning the same space, ``category_cols``) makes no assumption about the shape of the
+    baseline relation at all; the other three analyses are as in :func:`fit_analyses`. Effects in
+    the order follow-up only, change score, linear ANCOVA, categorical ANCOVA (Frison and Pocock,
+    Stat Med 1992;11:1685; categorical adjustment: Senn, Statistical Issues in Drug Development,
+    2nd ed., 2007, ch. 7, from memory).
+    """
+    b, f = np.asarray(baseline, dtype=float), np.asarray(followup, dtype=float)
+    cols = arm_indicators(arm, arms, control)
+    out: list[Effect] = []
+    for name, y, extra in (("follow-up only", f, {}), ("change score", f - b, {}),
+                           ("ANCOVA, linear baseline", f, {"baseline": b}),
+                           ("ANCOVA, baseline as categories", f, category_cols)):
+        out += _effects(fit_ols(y, {**extra, **cols}), name, cols, level)
+    return out
 
 
 def linearity_test(baseline, followup, other_columns: dict, plan: SplinePlan):

@@ -8,6 +8,7 @@ import numpy as np
 from scipy import stats
 
 from .linear import fit_ols
+from .lrtest import likelihood_ratio
 
 
 @dataclass(frozen=True)
@@ -176,7 +177,7 @@ def boxcox_lr_pvalue(profile: BoxCoxProfile, value: float = 1.0) -> float:
     2 (max loglik - loglik at value), the loglik at ``value`` interpolated on the profile's grid."""
     grid, ll = np.asarray(profile.grid), np.asarray(profile.loglik)
     at = float(np.interp(value, grid, ll))
-    return float(stats.chi2.sf(max(0.0, 2 * (float(np.max(ll)) - at)), 1))
+    return likelihood_ratio(at, float(np.max(ll)), 1).p_value
 
 
 @dataclass(frozen=True)

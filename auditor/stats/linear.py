@@ -78,6 +78,44 @@ def f_test(reduced: LinearFit, full: LinearFit) -> NestedTest:
     return NestedTest(float(f), q, full.df_resid, float(stats.f.sf(f, q, full.df_resid)))
 
 
+def adjusted_slope(y, x, covariates: dict[str, np.ndarray] | None = None,
+                   level: float = 0.95) -> tuple[float, float, float, float, int]:
+    """Least-squares slope of ``y`` on ``x`` adjusted for other columns: (estimate, lower, upper, p, df).
+
+    y = a + b x + sum_k c_k z_k + e; b-hat with the t interval b-hat -/+ t_{(1+level)/2, n-p} SE(b-hat)
+    and the two-sided t-test of b = 0 (any regression text, e.g. Draper and Smith, Applied Regression
+    Analysis, 3rd ed., 1998, ch. 3). With ``covariates`` empty it is the simple regression slope.
+    """
+    fit = fit_ols(y, {"x": np.asarray(x, dtype=float), **(covariates or {})})
+    est, lo, hi = fit.ci("x", level)
+    return est, lo, hi, fit.p_value("x"), int(fit.df_resid)
+
+
+def slope_with_se(y, x, level: float = 0.95) -> tuple[float, float, float, float, int]:
+    """Least-squares slope of ``y`` on ``x`` alone: (estimate, SE, lower, upper, n), t interval at ``level``.
+
+    b-hat = Sxy / Sxx, SE = s / sqrt(Sxx) with s^2 = RSS / (n - 2), interval b-hat -/+ t_{(1+level)/2, n-2} SE
+    (Draper and Smith, Applied Regression Analysis, 3rd ed., 1998, ch. 1).
+    """
+    fit = fit_ols(np.asarray(y, float), {"x": np.asarray(x, float)})
+    est, lo, hi = fit.ci("x", level)
+    return est, float(fit.se[fit.index("x")]), lo, hi, fit.n
+
+
+def mean_t_interval(d, level: float = 0.95) -> tuple[float, float, float, float, int]:
+    """Mean of ``d`` with its one-sample t interval: (mean, lower, upper, SE, n).
+
+    SE = sd(d) / sqrt(n) (n - 1 divisor), interval mean -/+ t_{(1+level)/2, n-1} SE (Student 1908;
+    any text, e.g. Altman, Practical Statistics for Medical Research, 1991, ch. 9).
+    """
+    d = np.asarray(d, dtype=float)
+    n = len(d)
+    se = float(np.std(d, ddof=1) / np.sqrt(n))
+    q = stats.t.ppf(0.5 + level / 2, n - 1)
+    m = float(np.mean(d))
+    return m, m - q * se, m + q * se, se, n
+
+
 def arm_indicators(arm: np.ndarray, arms: list[str], control: str | None) -> dict[str, np.ndarray]:
     """0/1 columns for each non-control arm (treatment coding against the control)."""
     arm = np.asarray(arm, dtype=object)

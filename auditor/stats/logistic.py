@@ -20,10 +20,13 @@ Everything here is pure: arrays in, frozen dataclasses out; no verdicts, no plot
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
 from scipy import linalg, special, stats
+
+from .lrtest import LRTest, likelihood_ratio  # noqa: F401  (LRTest is part of this module's interface)
 
 INTERCEPT = "(intercept)"
 SEPARATION_LOGIT = 25.0
@@ -173,28 +176,15 @@ def fit_logistic(y, columns: dict[str, np.ndarray] | None = None, intercept: boo
 # --------------------------------------------------------------------------------------- LR tests
 
 
-@dataclass(frozen=True)
-class LRTest:
-    """A likelihood-ratio chi-square: 2 (l_full - l_reduced) on ``df`` degrees of freedom."""
-
-    statistic: float
-    df: int
-    p_value: float
-
-
 def lr_test(reduced: LogisticFit, full: LogisticFit) -> LRTest:
-    """The LR chi-square of a reduced model nested in a full one (Wilks 1938).
+    """The LR chi-square of a reduced model nested in a full one (:func:`auditor.stats.lrtest.likelihood_ratio`).
 
     Nesting (the reduced model's column space inside the full one's) is the caller's duty; only the
     sample and the parameter counts are checked here.
     """
     if reduced.n != full.n:
         raise ValueError("nested models must be fitted to the same observations")
-    df = full.n_params - reduced.n_params
-    if df <= 0:
-        raise ValueError("the full model must have more parameters than the reduced one")
-    stat = max(2.0 * (full.loglik - reduced.loglik), 0.0)
-    return LRTest(float(stat), int(df), float(stats.chi2.sf(stat, df)))
+    return likelihood_ratio(reduced.loglik, full.loglik, full.n_params - reduced.n_params)
 
 
 @dataclass(frozen=True)
@@ -328,6 +318,54 @@ def contrast(fit: LogisticFit, weights: dict[str, float] | np.ndarray) -> tuple[
     else:
         c = np.asarray(weights, dtype=float)
     return float(c @ fit.coef), float(np.sqrt(max(c @ fit.cov @ c, 0.0)))
+
+
+def coefficient_ratio(fit: LogisticFit, numerator: str, denominator: str,
+                      level: float = 0.95) -> tuple[float, float, float]:
+    """Ratio r = b_num / b_den of two coefficients with its delta-method interval: (r, lower, upper).
+
+    var(r) = [V_nn - 2 r V_nd + r^2 V_dd] / b_den^2 (first-order Taylor expansion of the ratio; e.g.
+    Casella and Berger, Statistical Inference, 2nd ed., 2002, section 5.5.4); interval
+    r -/+ z_{(1+level)/2} sqrt(var(r)).
+    """
+    i, j = fit.index(denominator), fit.index(numerator)
+    bl, be = fit.coef[i], fit.coef[j]
+    r = be / bl
+    var = (fit.cov[j, j] - 2 * r * fit.cov[i, j] + r * r * fit.cov[i, i]) / (bl * bl)
+    half = stats.norm.ppf(0.5 + level / 2) * math.sqrt(max(var, 0.0))
+    return float(r), float(r - half), float(r + half)
+
+
+def bootstrap_lowest_point(y, columns: dict[str, np.ndarray], term_names: list[str], basis_grid: np.ndarray,
+                           grid, resamples: int, seed: int, level: float = 0.95,
+                           min_success: float = 0.0) -> tuple[float | None, float | None, int]:
+    """Percentile bootstrap of the grid point where a term's fitted logit is lowest: (lower, upper, failed).
+
+    Rows are resampled with replacement (``numpy.random.default_rng(seed)``), the logistic model of
+    ``y`` on ``columns`` refitted, and the grid point minimising basis_grid @ b_term recorded; the
+    interval is the (1 -/+ level)/2 quantiles of the points found (Efron and Tibshirani, An
+    Introduction to the Bootstrap, 1993, ch. 13). Fits that fail count in ``failed``; with fewer than
+    ``min_success * resamples`` successes the interval is (None, None). The basis (knots) stays at its
+    full-sample positions.
+    """
+    y = np.asarray(y)
+    names = list(columns)
+    X = np.column_stack([columns[k] for k in names])
+    li = [names.index(k) + 1 for k in term_names]
+    rng = np.random.default_rng(seed)
+    found, failed = [], 0
+    for _ in range(resamples):
+        idx = rng.integers(0, len(y), len(y))
+        try:
+            fit = fit_logistic(y[idx], {k: X[idx, j] for j, k in enumerate(names)})
+        except (ValueError, RuntimeError):
+            failed += 1
+            continue
+        found.append(grid[int(np.argmin(basis_grid @ fit.coef[li]))])
+    if len(found) < min_success * resamples:
+        return None, None, failed
+    lo, hi = np.quantile(found, [0.5 - level / 2, 0.5 + level / 2])
+    return float(lo), float(hi), failed
 
 
 # ------------------------------------------------------------------------------ interior extremum

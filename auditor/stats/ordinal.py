@@ -36,6 +36,8 @@ from typing import Sequence
 import numpy as np
 from scipy import linalg, optimize, special, stats
 
+from .lrtest import LRTest, likelihood_ratio
+
 __all__ = [
     "OrdinalFitError",
     "OrdinalFit",
@@ -114,13 +116,8 @@ class OddsRatio:
     level: float
 
 
-@dataclass(frozen=True)
-class LikelihoodRatioTest:
-    """chi2 = 2 (loglik_full - loglik_reduced) on df = difference in slopes."""
-
-    chi2: float
-    df: int
-    p_value: float
+LikelihoodRatioTest = LRTest
+"""chi2 = 2 (loglik_full - loglik_reduced) on df = difference in slopes (the tool's one LR test result)."""
 
 
 @dataclass(frozen=True, eq=False)
@@ -995,26 +992,18 @@ def _exceedance_curve(fit: OrdinalFit, x: np.ndarray) -> tuple[np.ndarray, np.nd
     return lp, special.expit(lp)
 
 
-def lr_test(full: OrdinalFit, reduced: OrdinalFit) -> LikelihoodRatioTest:
+def lr_test(reduced: OrdinalFit, full: OrdinalFit) -> LikelihoodRatioTest:
     """Likelihood-ratio test of nested fits on the same rows: chi2 = 2 (ll_full - ll_reduced).
 
-    df is the difference in the number of slopes; p = chi2 survival function
-    (Wilks 1938). The caller guarantees the nesting; levels, row counts and
-    total weight are checked to match.
+    The reduced fit first, as everywhere (:func:`auditor.stats.lrtest.likelihood_ratio`). df is the
+    difference in the number of slopes; p = chi2 survival function (Wilks 1938). The caller
+    guarantees the nesting; levels, row counts and total weight are checked to match.
     """
     if not np.array_equal(full.levels, reduced.levels) or full.n != reduced.n:
         raise ValueError("the two fits do not use the same outcome levels and rows.")
     if not math.isclose(full.weight_total, reduced.weight_total, rel_tol=1e-12):
         raise ValueError("the two fits do not use the same total weight.")
-    df = full.beta.size - reduced.beta.size
-    if df <= 0:
-        raise ValueError("the full model must have more slopes than the reduced model.")
-    chi2 = 2.0 * (full.loglik - reduced.loglik)
-    if chi2 < 0:
-        if chi2 < -1e-8 * (1.0 + abs(full.loglik)):
-            raise ValueError("the reduced fit has the higher log-likelihood, so the models are not nested.")
-        chi2 = 0.0
-    return LikelihoodRatioTest(chi2=chi2, df=df, p_value=float(stats.chi2.sf(chi2, df)))
+    return likelihood_ratio(reduced.loglik, full.loglik, full.beta.size - reduced.beta.size)
 
 
 def prob_exceeds(fit: OrdinalFit, x, thresholds, level: float = 0.95) -> ExceedanceProbabilities:

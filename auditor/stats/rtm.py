@@ -17,6 +17,7 @@ docs/methods/regression-to-the-mean-formulas.md.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from functools import lru_cache
 
@@ -1014,3 +1015,42 @@ def rtm_window_with_ci(fit: WindowNormalFit, rho: float, rho_se: float | None, l
     values = expected_rtm_window(draws[:, 0], sigma_d, rho_d, fit.lower, fit.upper)
     lower, upper = np.quantile(values, [0.5 - level / 2, 0.5 + level / 2])
     return RtmInterval(estimate, float(lower), float(upper), level, "bootstrap", seed, int(n_draws))
+
+
+def selection_shift_with_se(fit, cutoff: float, direction: str) -> tuple[float, float]:
+    """The mean shift of the selected entry readings, ``e = E[S - mu | selected]`` (signed), and its
+    delta-method SE.
+
+    ``e`` is minus the expected regression to the mean at reliability 0: sigma * phi(z) / (1 - Phi(z)),
+    z = (c - mu) / sigma, for selection above c (the truncated-normal mean; Johnson, Kotz and
+    Balakrishnan, Continuous Univariate Distributions, vol. 1, 2nd ed., 1994, ch. 13), and the doubly
+    truncated mean shift for a window ``direction`` (with ``fit.lower``, ``fit.upper``). SE from the
+    fit's covariance of (mu, sigma) and a central-difference gradient (step 1e-5 sigma):
+    var(e) = g' V g (delta method). ``fit`` is a truncated-normal or window-normal fit.
+    """
+    def e(mu, sigma):
+        if direction == "window":
+            return float(window_mean_shift(mu, sigma, fit.lower, fit.upper))
+        return -expected_rtm(mu, sigma, 0.0, cutoff, direction)
+
+    h = 1e-5 * fit.sigma
+    grad = np.array([(e(fit.mu + h, fit.sigma) - e(fit.mu - h, fit.sigma)) / (2 * h),
+                     (e(fit.mu, fit.sigma + h) - e(fit.mu, fit.sigma - h)) / (2 * h)])
+    cov = np.array([[fit.se_mu ** 2, fit.cov_mu_sigma], [fit.cov_mu_sigma, fit.se_sigma ** 2]])
+    return e(fit.mu, fit.sigma), float(np.sqrt(max(grad @ cov @ grad, 0.0)))
+
+
+def product_se(a: float, se_a: float, b: float, se_b: float) -> float:
+    """Exact SE of the product of two independent estimates a and b (Goodman 1960, J Am Stat Assoc
+    55:708-713): var(ab) = a^2 var(b) + b^2 var(a) + var(a) var(b)."""
+    return math.sqrt(a ** 2 * se_b ** 2 + b ** 2 * se_a ** 2 + se_a ** 2 * se_b ** 2)
+
+
+def product_interval(estimate: float, a: float, se_a: float, b: float, se_b: float,
+                     level: float = 0.95) -> tuple[float, float]:
+    """Normal interval ``estimate -/+ z_{(1+level)/2} SE(ab)`` for an estimate proportional to the
+    product of a and b (the residual bias after a later baseline, (rho_SF - rho_SB) e), with
+    SE(ab) from :func:`product_se`."""
+    q = stats.norm.ppf(0.5 + level / 2)
+    se = product_se(a, se_a, b, se_b)
+    return estimate - q * se, estimate + q * se

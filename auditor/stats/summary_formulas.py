@@ -20,7 +20,11 @@ from .efficiency import variance_factor_unequal
 from .relative_change import change_vs_ancova_efficiency, dichotomisation_efficiency
 from .rtm import _mills, expected_rtm
 
-Z975 = float(stats.norm.ppf(0.975))
+
+
+def normal_quantile(level: float = 0.95) -> float:
+    """z_{(1+level)/2}, the normal quantile of a two-sided interval at ``level`` (1.96 at 0.95)."""
+    return float(stats.norm.ppf(0.5 + level / 2))
 
 
 # ------------------------------------------------------------------------------ correlation and SDs

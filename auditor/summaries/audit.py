@@ -114,7 +114,8 @@ def audit_summaries(study: SummaryStudy, options: AuditOptions | None = None) ->
     options = options or AuditOptions()
     meta = study.metadata
     seed = meta.study.seed if options.seed is None else options.seed
-    ctx = Context(meta.study.design, list(meta.study.arms), meta.study.control_arm, seed, options.quick)
+    level = meta.study.confidence_level if options.level is None else options.level
+    ctx = Context(meta.study.design, list(meta.study.arms), meta.study.control_arm, seed, options.quick, level)
     results, comments = [], []
     for spec in meta.outcomes:
         by_arm = study.summaries.arms[spec.param]
@@ -144,6 +145,7 @@ def audit_summaries(study: SummaryStudy, options: AuditOptions | None = None) ->
                       metadata_sha256=study.metadata_sha256,
                       files=[InputFile("summaries", s.file, s.sha256, s.rows)],
                       options={**options.as_record(), "source": "summaries"}, analysis_date=date, seed=seed,
+                      confidence_level=level,
                       platform=f"Python {platform.python_version()} on {platform.system()} {platform.machine()}",
                       thresholds=summary_thresholds())
     return SummaryAudit(study_id=meta.study.id, title=meta.study.title, design=meta.study.design,

@@ -16,7 +16,7 @@ from ..checks.common import fmt
 from ..checks.percent_change import RECODE_CHANGE
 from ..checks.regression_to_mean import BIASED_BY_RTM, MATERIAL_SD
 from ..references import add_reference
-from ..results import CheckResult, Estimate, SubFinding, Table, Verdict
+from ..results import CheckResult, Estimate, SubFinding, Table, Verdict, level_label
 from ..stats import summary_formulas as sf
 from ..stats.relative_change import recoding_shift
 from .reader import ArmSummary
@@ -81,6 +81,8 @@ class Context:
     control_arm: str | None
     seed: int
     quick: bool = False
+    level: float = 0.95
+    """Two-sided confidence level of every interval (study.toml's confidence_level, or --level)."""
 
 
 @dataclass(frozen=True)
@@ -148,7 +150,7 @@ def consistency(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> D
     for a in arms:
         v = a.values
         if a.r is not None:
-            lo, hi = sf.fisher_interval(a.r, a.n)
+            lo, hi = sf.fisher_interval(a.r, a.n, ctx.level)
             ests.append(Estimate(f"Pre-post correlation, {a.arm}", a.r, lo, hi,
                                  note=a.sources.get("r", ""), by_arm=True,
                                  key=f"{cid}.correlation.arm-{arms.index(a) + 1}", arm=a.arm))
@@ -305,7 +307,8 @@ def efficiency(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Dr
         subs.append(SubFinding("cost", f"What does {ANALYSIS_TEXT[analysis]} cost against ANCOVA (material above "
                                f"{_pct(MATERIAL_RATIO)})?", verdict, evidence + "; no correlation, so no interval"))
     else:
-        iv = sf.simulated_interval(fn, p.sd_b, p.sd_f, p.r, p.df, ctx.seed, QUICK_DRAWS if ctx.quick else DRAWS)
+        iv = sf.simulated_interval(fn, p.sd_b, p.sd_f, p.r, p.df, ctx.seed, QUICK_DRAWS if ctx.quick else DRAWS,
+                                   ctx.level)
         verdict = _grade_ratio(iv.value, iv.lower)
         if approx and verdict is Verdict.UNSUPPORTED:
             verdict = Verdict.CAUTION
@@ -313,7 +316,7 @@ def efficiency(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Dr
                              note=f"pooled r = {fmt(p.r)}; interval by Wishart simulation of the SDs and r "
                                   f"({iv.draws} draws, seed {iv.seed})" + ("; first-order approximation" if approx else "")))
         evidence = (f"{ANALYSIS_TEXT[analysis]} needs {_pct(iv.value)} more participants than ANCOVA "
-                    f"(95% interval {_pct(iv.lower)} to {_pct(iv.upper)}) at pooled r = {fmt(p.r)}")
+                    f"({level_label(ctx.level)} interval {_pct(iv.lower)} to {_pct(iv.upper)}) at pooled r = {fmt(p.r)}")
         headline = (evidence[0].upper() + evidence[1:]
                     + (f"; material above {_pct(MATERIAL_RATIO)}." if verdict is not Verdict.SOUND else
                        f"; below the {_pct(MATERIAL_RATIO)} threshold." if iv.upper <= MATERIAL_RATIO else
@@ -322,16 +325,17 @@ def efficiency(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Dr
             headline += " (First-order approximation for percent change: graded at most caution.)"
         subs.append(SubFinding("cost", f"What does {ANALYSIS_TEXT[analysis]} cost against ANCOVA (material above "
                                f"{_pct(MATERIAL_RATIO)})?", verdict, evidence))
+        z_level = sf.normal_quantile(ctx.level)
         anc = sf.implied_ancova([c.mean["baseline"], t.mean["baseline"]], [c.mean["followup"], t.mean["followup"]],
                                 p.sd_b, p.sd_f, p.r, [c.n, t.n])
         ests.append(Estimate(f"ANCOVA effect implied by the summaries ({t.arm} minus {c.arm})", anc.effect,
-                             anc.effect - sf.Z975 * anc.se, anc.effect + sf.Z975 * anc.se, unit=spec.unit,
+                             anc.effect - z_level * anc.se, anc.effect + z_level * anc.se, unit=spec.unit,
                              note=f"beta = {fmt(anc.beta)}, approximate SE {fmt(anc.se)}", by_arm=True,
                              key=f"{cid}.ancova-effect.contrast-1", arm=f"{t.arm} minus {c.arm}"))
         dchg = (t.mean["followup"] - t.mean["baseline"]) - (c.mean["followup"] - c.mean["baseline"])
         se_chg = p.sd_c * math.sqrt(1 / c.n + 1 / t.n)
         ests.append(Estimate(f"Change-score effect from the summaries ({t.arm} minus {c.arm})", dchg,
-                             dchg - sf.Z975 * se_chg, dchg + sf.Z975 * se_chg, unit=spec.unit,
+                             dchg - z_level * se_chg, dchg + z_level * se_chg, unit=spec.unit,
                              note=f"SE {fmt(se_chg)} from the pooled SD of change", by_arm=True,
                              key=f"{cid}.change-effect.contrast-1", arm=f"{t.arm} minus {c.arm}"))
     res = _result(cid, spec, verdict, headline, subfindings=subs, estimates=ests, tables=[grid],
@@ -373,7 +377,8 @@ def responder(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Dra
                     f"ANCOVA for r from {PLAUSIBLE_R[0]:g} to {PLAUSIBLE_R[1]:g}; no correlation, so no interval")
         headline = evidence[0].upper() + evidence[1:] + "; graded at most caution."
     else:
-        iv = sf.simulated_interval(fn, p.sd_b, p.sd_f, p.r, p.df, ctx.seed, QUICK_DRAWS if ctx.quick else DRAWS)
+        iv = sf.simulated_interval(fn, p.sd_b, p.sd_f, p.r, p.df, ctx.seed, QUICK_DRAWS if ctx.quick else DRAWS,
+                                   ctx.level)
         verdict = _grade_ratio(iv.value, iv.lower)
         if approx and verdict is Verdict.UNSUPPORTED:
             verdict = Verdict.CAUTION
@@ -387,7 +392,7 @@ def responder(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Dra
                              note="normal change; 2/pi = 0.637 at the median; interval from the same Wishart draws "
                                   "(mean change held at its reported value)", key=f"{cid}.dichotomisation-efficiency"))
         evidence = (f"counting responders ({rule_text}) needs {_pct(iv.value)} more participants than ANCOVA "
-                    f"(95% interval {_pct(iv.lower)} to {_pct(iv.upper)}); the cut lies {fmt(abs(z))} SD from the "
+                    f"({level_label(ctx.level)} interval {_pct(iv.lower)} to {_pct(iv.upper)}); the cut lies {fmt(abs(z))} SD from the "
                     f"mean change")
         headline = evidence[0].upper() + evidence[1:] + "."
         if approx:

@@ -187,7 +187,7 @@ def test_lr_test_is_twice_the_loglik_difference():
     y, X = simulate(50, seed=21)
     full = fit_proportional_odds(y, X)
     reduced = fit_proportional_odds(y, X[:, :1])
-    test = lr_test(full, reduced)
+    test = lr_test(reduced, full)  # reduced first, as every LR test of the tool
     assert test.df == 1
     assert test.chi2 == pytest.approx(2 * (full.loglik - reduced.loglik), rel=1e-12)  # [DEF]
     assert test.p_value == pytest.approx(stats.chi2.sf(test.chi2, 1), rel=1e-12)  # [DEF] scipy chi2.sf
