@@ -387,7 +387,8 @@ def responder(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Dra
                              note=f"cut {fmt(cut)} on change, z = {fmt(z)}; Wishart simulation ({iv.draws} draws, "
                                   f"seed {iv.seed})"))
         eff = sf.simulated_interval(lambda r, b, f: sf.dichotomisation_efficiency((cut - mean_c) / sf.change_sd(b, f, r)),
-                                    p.sd_b, p.sd_f, p.r, p.df, ctx.seed, QUICK_DRAWS if ctx.quick else DRAWS)
+                                    p.sd_b, p.sd_f, p.r, p.df, ctx.seed, QUICK_DRAWS if ctx.quick else DRAWS,
+                                    level=ctx.level)
         ests.append(Estimate("Efficiency of dichotomising change at the cut", eff.value, eff.lower, eff.upper,
                              note="normal change; 2/pi = 0.637 at the median; interval from the same Wishart draws "
                                   "(mean change held at its reported value)", key=f"{cid}.dichotomisation-efficiency"))
@@ -600,7 +601,7 @@ def rtm(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
     control = next((a for a in arms if a.arm == ctx.control_arm), arms[0])
     observed = control.mean["followup"] - control.mean["baseline"]
     lo_v, hi_v = min(g[2] for g in grid), max(g[2] for g in grid)
-    lo_o, hi_o, how = observed_change_interval(control)
+    lo_o, hi_o, how = observed_change_interval(control, ctx.level)
     ests = [Estimate(f"Observed mean change, {control.arm}", observed, lo_o, hi_o, unit=spec.unit, by_arm=True,
                      key=f"{cid}.observed-change.control", arm=control.arm,
                      note=f"regression to the mean alone predicts {fmt(lo_v)} to {fmt(hi_v)}; {how}")]
@@ -648,7 +649,7 @@ def rtm(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
                  f"{fmt(ends[-1])} times that change")
     return Draft(res, f"Regression to the mean alone predicts a change of {span} after entry on {e.text}; the "
                       f"{control.arm} arm changed by {fmt(observed)}"
-                      + ("" if lo_o is None else f" (95% interval {fmt(lo_o)} to {fmt(hi_o)})")
+                      + ("" if lo_o is None else f" ({level_label(ctx.level)} interval {fmt(lo_o)} to {fmt(hi_o)})")
                       + f"{share}.", request)
 
 
