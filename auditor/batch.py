@@ -202,7 +202,7 @@ def audit_summaries_into(folder: Path, target: Path, options: dict, paper: str, 
                                             "--blinded/--unblinded do not apply to published summaries",
                                             "leave the option out, or list this folder in a separate batch")],
                               "in the batch options")
-    opts = {k: options.get(k) for k in ("analysis_date", "seed", "quick") if options.get(k) is not None}
+    opts = {k: options.get(k) for k in ("analysis_date", "seed", "quick", "level") if options.get(k) is not None}
     audit = audit_summaries(load_summary_study(folder), AuditOptions(**opts))
     write_summary_audit(audit, target, force=force, paper=paper, protected=[folder], formats=formats,
                         figure_data=figure_data)
