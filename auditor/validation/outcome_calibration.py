@@ -347,3 +347,23 @@ PASS_NOTE = (f"Per outcome, every applicable check together. Null: any unsupport
              f"{JUDGED_SIZE} per arm: the expected verdict or worse in >= {MIN_DETECTION:g} - 2 MCSE; MCSE = "
              f"sqrt(b (1 - b) / R) at the bound b; a row also fails when the exact one-sided binomial test "
              f"rejects its bound at alpha {PASS_ALPHA:g}. The 2,000-per-arm case must never be unsupported.")
+
+
+def main(argv=None) -> None:
+    """Print the per-outcome table (the rows ``auditor selfcheck`` reports, same seeds)."""
+    import argparse
+
+    ap = argparse.ArgumentParser(description="Verdict calibration per outcome, every applicable check together.")
+    ap.add_argument("--full", action="store_true", help=f"{FULL_REPLICATES} replicates per row "
+                    f"({LARGE_FULL_REPLICATES} at 2,000 per arm); default: quick")
+    ap.add_argument("--reps", type=int, default=None, help="replicates per row (overrides --full)")
+    ap.add_argument("--seed", type=int, default=20261201)
+    ap.add_argument("--only", default="", help="rows whose id starts with this (calibration/null/...)")
+    args = ap.parse_args(argv)
+    t0 = time.perf_counter()
+    rows = calibrate(args.full, args.seed, args.only, reps=args.reps,
+                     progress=lambda rid: print(f"  done: {rid}", flush=True))
+    print()
+    print(markdown_table(rows))
+    print(f"\n{PASS_NOTE}\nBase seed {args.seed}, quick mode of each check (fewer resamples), "
+          f"{time.perf_counter() - t0:.0f} s in all.")
