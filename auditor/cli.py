@@ -568,7 +568,8 @@ def _write_comparison(cmp, a, b, forced, html, json_path, force, inputs) -> None
 @app.command()
 def selfcheck(
     output: Path = typer.Option(..., "-o", "--output", help="Folder for the validation report."),
-    full: bool = typer.Option(False, "--full", help="At least 200 replicates per simulation (slow); default: quick."),
+    full: bool = typer.Option(False, "--full", help="At least 200 replicates per simulation and calibration row "
+                              "(slow); default: quick."),
     seed: int = typer.Option(20261201, "--seed", help="Base seed of the simulations."),
     date: Optional[str] = typer.Option(None, "--date", help="Date printed on the report (default: today)."),
     only: str = typer.Option("", "--only", help="Run only the cases whose id starts with this."),
@@ -595,13 +596,17 @@ def selfcheck(
         files = dict(zip(names, (html.encode("utf-8"), html_to_pdf(html), rep.to_json().encode("utf-8"))))
         _, recovery = write_file_set(files, output, force=force, what="a validation report")
         _report_recovery(recovery, output)
-        n_pass = sum(c.passed for c in rep.reference + rep.simulation)
-        out.print(f"{n_pass} of {len(rep.reference) + len(rep.simulation)} cases pass ({rep.mode} mode).", markup=False)
+        out.print(f"{rep.n_pass} of {rep.n_all} cases pass ({rep.mode} mode).", markup=False)
         if rep.simulation:
             out.print(f"Pass rule: {rep.pass_rule}", markup=False)
+        if rep.calibration:
+            out.print(f"Verdict calibration: {rep.calibration_rule}", markup=False)
         for c in rep.reference + rep.simulation:
             if not c.passed:
                 out.print(f"FAIL {c.id}: expected {c.expected}, obtained {c.obtained} ({c.detail})", markup=False)
+        for r in rep.calibration:
+            if not r.passed:
+                out.print(f"FAIL {r.id}: {r.judged} ({r.detail})", markup=False)
         out.print(str(output / "validation.html"), markup=False)
         if not rep.passed:
             raise typer.Exit(EXIT_GATE)

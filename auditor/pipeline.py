@@ -172,9 +172,16 @@ def run_checks_for_outcome(study: Study, spec, ctx: CheckContext, only: tuple[st
     "not assessable" finding for that check alone. ``assembled`` is :func:`assemble_outcome`'s
     result when the caller already has it.
     """
-    design = study.metadata.study.design
-    checks = [c for c in all_checks() if (not only or c.id in only) and c.applies(spec, design)]
     data, reason = assembled if assembled is not None else assemble_outcome(study, spec, ctx)
+    return run_applicable_checks(spec, study.metadata.study.design, data, reason, ctx, only, draw)
+
+
+def run_applicable_checks(spec, design: str, data, reason: str | None, ctx: CheckContext,
+                          only: tuple[str, ...] = (), draw: bool = True) -> list[CheckResult]:
+    """Every check that applies to ``spec`` in ``design``, run on assembled ``data`` (or each given
+    ``reason`` as "not assessable"); blinding and figures as in an audit. The self-check's verdict
+    calibration calls this directly on simulated outcomes, so it judges the checks as an audit does."""
+    checks = [c for c in all_checks() if (not only or c.id in only) and c.applies(spec, design)]
     out = []
     for check in checks:
         if ctx.blinded and check.needs_arms:

@@ -2,7 +2,9 @@
 
 The report (HTML, PDF, JSON) lists every case with its source, the expected value, the value
 obtained, the tolerance and pass or fail, plus the environment and the date: evidence a
-biostatistics core can file under its computerised-system validation SOP.
+biostatistics core can file under its computerised-system validation SOP. Its last section is the
+verdict calibration per outcome (:mod:`auditor.validation.outcome_calibration`): every applicable
+check together on simulated outcomes under nulls and violations, with Monte Carlo SEs.
 """
 
 from __future__ import annotations
@@ -10,10 +12,11 @@ from __future__ import annotations
 import datetime as dt
 import json
 import platform
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, field
 
 from . import __version__
 from .pipeline import library_versions
+from .validation import outcome_calibration
 from .validation.cases import (PASS_ALPHA, PASS_RULE, CaseOutcome, case_seed, reference_cases, run_reference,
                                run_simulation, simulation_cases)
 
@@ -31,10 +34,21 @@ class SelfcheckReport:
     pass_rule: str = PASS_RULE
     """How a simulation case is judged (an exact binomial test at :data:`PASS_ALPHA`), in words."""
     pass_alpha: float = PASS_ALPHA
+    calibration: list[outcome_calibration.CalibrationRow] = field(default_factory=list)
+    """The per-outcome verdict calibration rows (every applicable check together)."""
+    calibration_rule: str = outcome_calibration.PASS_NOTE
 
     @property
     def passed(self) -> bool:
-        return all(c.passed for c in self.reference + self.simulation)
+        return all(c.passed for c in self.reference + self.simulation + self.calibration)
+
+    @property
+    def n_pass(self) -> int:
+        return sum(c.passed for c in self.reference + self.simulation + self.calibration)
+
+    @property
+    def n_all(self) -> int:
+        return len(self.reference) + len(self.simulation) + len(self.calibration)
 
     def to_json(self) -> str:
         d = asdict(self)
@@ -43,13 +57,15 @@ class SelfcheckReport:
 
 
 def case_ids() -> list[str]:
-    """The id of every reference and simulation case, which ``--only`` selects from by prefix."""
-    return sorted(c.id for c in reference_cases() + simulation_cases())
+    """The id of every reference case, simulation case and calibration row, which ``--only`` selects
+    from by prefix."""
+    return sorted([c.id for c in reference_cases() + simulation_cases()] + outcome_calibration.row_ids())
 
 
 def run_selfcheck(full: bool = False, seed: int = 20261201, date: str | None = None, only: str = "",
                   progress=None) -> SelfcheckReport:
-    """Run every reference case and every simulation case (quick: few replicates; full: >= 200)."""
+    """Run every reference case, every simulation case and the per-outcome verdict calibration
+    (quick: few replicates; full: >= 200, 40 for the 2,000-per-arm case)."""
     ref = []
     for case in reference_cases():
         if only and not case.id.startswith(only):
@@ -64,9 +80,10 @@ def run_selfcheck(full: bool = False, seed: int = 20261201, date: str | None = N
         sim.append(run_simulation(case, full, case_seed(seed, case.id)))
         if progress:
             progress(case.id)
+    cal = outcome_calibration.calibrate(full, seed, only, progress=progress)
     return SelfcheckReport("full" if full else "quick", date or dt.date.today().isoformat(), __version__,
                            f"{platform.platform()}; Python {platform.python_version()}", library_versions(), seed,
-                           ref, sim)
+                           ref, sim, calibration=cal)
 
 
 def selfcheck_view(rep: SelfcheckReport) -> dict:
@@ -77,6 +94,20 @@ def selfcheck_view(rep: SelfcheckReport) -> dict:
     return {"mode": rep.mode, "date": rep.date, "tool_version": rep.tool_version, "platform": rep.platform,
             "libraries": sorted(rep.libraries.items()), "seed": rep.seed, "passed": rep.passed,
             "pass_rule": rep.pass_rule,
-            "n_pass": sum(c.passed for c in rep.reference + rep.simulation),
-            "n_all": len(rep.reference + rep.simulation),
-            "reference": rows(rep.reference), "simulation": rows(rep.simulation)}
+            "n_pass": rep.n_pass, "n_all": rep.n_all,
+            "reference": rows(rep.reference), "simulation": rows(rep.simulation),
+            "calibration_rule": rep.calibration_rule, "calibration": calibration_rows(rep.calibration)}
+
+
+def calibration_rows(rows: list) -> list[dict]:
+    """Display strings of the per-outcome calibration rows (shares with their MCSE, the checks that
+    flagged, the rule and its result)."""
+    mc = outcome_calibration.mcse
+    return [{"id": r.id, "description": r.description, "truth": r.truth, "expected": r.expected,
+             "n_per_arm": f"{r.n_per_arm:,}", "replicates": r.replicates,
+             "any_unsupported": f"{r.any_unsupported:.3f} ({mc(r.any_unsupported, r.replicates):.3f})",
+             "any_caution": f"{r.any_caution:.3f} ({mc(r.any_caution, r.replicates):.3f})",
+             "flagged_by": ", ".join(f"{k} {v:.2f}" for k, v in r.flagged_by.items() if v > 0) or "none",
+             "rule": r.judged or "reported, not judged", "detail": r.detail,
+             "result": "pass" if r.passed else "FAIL", "cls": "v-sound" if r.passed else "v-unsupported"}
+            for r in rows]

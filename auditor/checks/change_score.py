@@ -611,6 +611,16 @@ ASSUMPTIONS = ("interval", "bounds", "linearity", "selection", "scale")
 """The sub-findings whose detectable departure matters to a change analysis and so raises caution."""
 
 
+def awkward_for(planned: str) -> tuple[str, ...]:
+    """The sub-findings whose departure makes the baseline-adjusted alternative need care.
+
+    For a percent-change plan the scale sub-finding is left out: a log scale fitting better than the
+    raw one is what a multiplicative (percent) analysis assumes, not a departure from it, and the
+    percent-change check sizes what percent change costs against the log-scale and raw ANCOVA with an
+    interval; the finding stays in the report."""
+    return ("bounds", "interval") if planned == "percent-change" else ("bounds", "interval", "scale")
+
+
 def decide(planned: str, parts: dict[str, Part], r, cost, material_ratio: float = MATERIAL_RATIO) -> tuple[Verdict, str]:
     """Overall verdict and headline for the planned analysis.
 
@@ -648,7 +658,8 @@ def decide(planned: str, parts: dict[str, Part], r, cost, material_ratio: float 
     prefix = ("The recommended baseline-adjusted alternative" if planned == "percent-change"
               else "The baseline-adjusted analysis")
     nonlin = parts["linearity"].sub.verdict != Verdict.SOUND
-    awkward = [p.phrase for k, p in parts.items() if k in ("bounds", "interval", "scale") and p.sub.verdict != Verdict.SOUND]
+    awkward = [p.phrase for k, p in parts.items()
+               if k in awkward_for(planned) and p.sub.verdict != Verdict.SOUND]
     if nonlin or awkward:
         extra = "; ".join(([parts["linearity"].phrase] if nonlin else []) + awkward)
         return Verdict.CAUTION, (f"{prefix} needs care: {extra}; use a flexible baseline"
