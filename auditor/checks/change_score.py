@@ -132,6 +132,20 @@ def flexible_linearity(b, f, arm_cols, model: BaselineModel):
     return (f_test(lin, flex) if len(model.levels) > 2 else None), flex
 
 
+def linearity_on_plan_scale(b, f, arm_cols, model: BaselineModel, planned: str, flex_fit):
+    """(test or None, note): the nonlinearity test on the scale the planned analysis works on.
+
+    A percent-change plan is a multiplicative analysis: its baseline-adjusted alternative is the ANCOVA of
+    log follow-up on log baseline, so linearity is judged there when every value is positive (a log-normal
+    pair is curved on the raw scale and straight on the log scale). Other plans keep the raw-scale test
+    already computed (``flex_fit``'s)."""
+    if planned != "percent-change" or model.levels is not None or not (np.all(b > 0) and np.all(f > 0)):
+        return None, ""
+    lb, lf = np.log(b), np.log(f)
+    test, _ = flexible_linearity(lb, lf, arm_cols, baseline_model(lb))
+    return test, "log scale, as the percent-change plan assumes"
+
+
 def _verdict(ok: bool, soft: bool = False) -> Verdict:
     return Verdict.SOUND if ok else (Verdict.CAUTION if soft else Verdict.UNSUPPORTED)
 
@@ -279,9 +293,9 @@ def declared_selection_part(data, ctx) -> Part:
                 "participants were selected on this measurement, so regression to the mean is expected")
 
 
-def linearity_part(test, model: BaselineModel, p_adj) -> Part:
+def linearity_part(test, model: BaselineModel, p_adj, scale_note: str = "") -> Part:
     q = "Is follow-up linear in baseline?"
-    what = model.what
+    what = f"{model.what}; {scale_note}" if scale_note else model.what
     if test is None:
         return Part(SubFinding("linearity", q, Verdict.SOUND,
                                f"baseline takes {len(model.levels)} values, so a line fits each of them exactly: "
@@ -712,6 +726,8 @@ def run(data, ctx: CheckContext):
     # at the family-wise level ALPHA.
     edge, edge_scale, edge_note = edge_test(data, df, ctx)
     lin_test, flex_fit = flexible_linearity(b, f, arm_cols, model)
+    log_test, lin_note = linearity_on_plan_scale(b, f, arm_cols, model, data.spec.planned_analysis, flex_fit)
+    lin_test = log_test if log_test is not None else lin_test
     trend = spread_trend_test(flex_fit.resid, b)
     prof = boxcox_profile(f, b, arm_cols, level=ctx.level) if np.all(b > 0) and np.all(f > 0) else None
     p_boxcox = boxcox_lr_pvalue(prof, 1.0) if prof is not None else None
@@ -722,7 +738,7 @@ def run(data, ctx: CheckContext):
     adj = "adjusted for arm" if len(arms) > 1 else "pooled"
     parts = {
         "selection": selection_part(data, df, ctx, edge, edge_scale, edge_note, p_edge),
-        "linearity": linearity_part(lin_test, model, p_lin),
+        "linearity": linearity_part(lin_test, model, p_lin, lin_note),
         "scale": scale_part(trend, prof, p_trend, p_bc, p_boxcox, ctx.level),
         "bounds": bounds_part(df, data.spec),
         "interval": interval_part(df, data.spec),
