@@ -76,8 +76,8 @@ def fit_analyses_categorical(baseline, followup, arm, arms: list[str], control: 
     per baseline value after the first, or columns spanning the same space, ``category_cols``) makes no assumption about the shape of the
     baseline relation at all; the other three analyses are as in :func:`fit_analyses`. Effects in
     the order follow-up only, change score, linear ANCOVA, categorical ANCOVA (Frison and Pocock,
-    Stat Med 1992;11:1685; categorical adjustment: Senn, Statistical Issues in Drug Development,
-    2nd ed., 2007, ch. 7, from memory).
+    Stat Med 1992;11:1685; the categorical adjustment is ordinary least squares with a factor for
+    baseline, which spans any function of a baseline with that many values).
     """
     b, f = np.asarray(baseline, dtype=float), np.asarray(followup, dtype=float)
     cols = arm_indicators(arm, arms, control)

@@ -203,8 +203,7 @@ class ImpliedAncova:
 def implied_ancova(mean_b: Sequence[float], mean_f: Sequence[float], sd_b: float, sd_f: float, r: float,
                    n: Sequence[int]) -> ImpliedAncova:
     """Two arms (control first): effect = (mf1 - mf0) - beta (mb1 - mb0), beta = r SDf / SDb from the
-    pooled within-arm moments (Frison and Pocock 1992; Senn, Statistical Issues in Drug Development,
-    ch. 7). SE^2 = SDf^2 (1 - r^2) (1/n0 + 1/n1) + (mb1 - mb0)^2 var(beta), var(beta) =
+    pooled within-arm moments (Frison and Pocock 1992). SE^2 = SDf^2 (1 - r^2) (1/n0 + 1/n1) + (mb1 - mb0)^2 var(beta), var(beta) =
     SDf^2 (1 - r^2) / (SDb^2 (N - 3)); large-sample normal theory."""
     beta = r * sd_f / sd_b
     db = mean_b[1] - mean_b[0]
