@@ -102,32 +102,23 @@ def iso_date(value) -> dt.date | None:
     return None
 
 
-def _analysis_date(value):
-    """study.toml's analysis_date: a TOML date or the text YYYY-MM-DD of a real calendar date."""
-    if value is None:
-        return None
-    date = iso_date(value)
-    if date is None:
-        raise ValueError(f"analysis_date {value!r:.60} is not a calendar date written YYYY-MM-DD "
-                         "(for example 2026-11-20)")
-    return date
+def _calendar_date(key: str, example: str):
+    """A validator for a study.toml date key: a TOML date or the text YYYY-MM-DD of a real calendar
+    date (None when absent), refused with the key's name and an example otherwise."""
+    def check(value):
+        if value is None:
+            return None
+        date = iso_date(value)
+        if date is None:
+            raise ValueError(f"{key} {value!r:.60} is not a calendar date written YYYY-MM-DD "
+                             f"(for example {example})")
+        return date
+    return check
 
 
-AnalysisDate = Annotated[Optional[dt.date], PlainValidator(_analysis_date)]
-
-
-def _data_cut(value):
-    """study.toml's data_cut: the date the data were frozen for this report, written as analysis_date is."""
-    if value is None:
-        return None
-    date = iso_date(value)
-    if date is None:
-        raise ValueError(f"data_cut {value!r:.60} is not a calendar date written YYYY-MM-DD "
-                         "(for example 2026-10-31)")
-    return date
-
-
-DataCut = Annotated[Optional[dt.date], PlainValidator(_data_cut)]
+AnalysisDate = Annotated[Optional[dt.date], PlainValidator(_calendar_date("analysis_date", "2026-11-20"))]
+DataCut = Annotated[Optional[dt.date], PlainValidator(_calendar_date("data_cut", "2026-10-31"))]
+"""study.toml's data_cut: the date the data were frozen for this report, written as analysis_date is."""
 
 
 class _Strict(BaseModel):
@@ -333,7 +324,30 @@ class RecordRules(_Strict):
     participants flagged Y are analysed."""
 
 
-class OutcomeSpec(_Strict):
+class ScaleFacts:
+    """What an outcome's declaration says about its name and range, shared by the data and the
+    summaries schemas (each has ``param``, ``label``, ``levels`` and ``bounds``)."""
+
+    @property
+    def display_name(self) -> str:
+        return self.label or self.param
+
+    @property
+    def lower_bound(self) -> Optional[float]:
+        """The declared lower bound (``-inf`` counts as none), else the lowest ordinal level."""
+        if self.bounds is not None and self.bounds[0] is not None and math.isfinite(self.bounds[0]):
+            return self.bounds[0]
+        return self.levels[0] if self.levels else None
+
+    @property
+    def upper_bound(self) -> Optional[float]:
+        """The declared upper bound (``inf`` counts as none), else the highest ordinal level."""
+        if self.bounds is not None and self.bounds[1] is not None and math.isfinite(self.bounds[1]):
+            return self.bounds[1]
+        return self.levels[-1] if self.levels else None
+
+
+class OutcomeSpec(_Strict, ScaleFacts):
     param: Name
     label: StrictStr = Field(default="", max_length=2000)
     scale: Scale
@@ -432,23 +446,6 @@ class OutcomeSpec(_Strict):
     def main_followup(self) -> VisitName:
         return self.primary_followup if self.primary_followup is not None else self.followup_visits[-1]
 
-    @property
-    def display_name(self) -> str:
-        return self.label or self.param
-
-    @property
-    def lower_bound(self) -> Optional[float]:
-        """The declared lower bound (``-inf`` counts as none), else the lowest ordinal level."""
-        if self.bounds is not None and self.bounds[0] is not None and math.isfinite(self.bounds[0]):
-            return self.bounds[0]
-        return self.levels[0] if self.levels else None
-
-    @property
-    def upper_bound(self) -> Optional[float]:
-        """The declared upper bound (``inf`` counts as none), else the highest ordinal level."""
-        if self.bounds is not None and self.bounds[1] is not None and math.isfinite(self.bounds[1]):
-            return self.bounds[1]
-        return self.levels[-1] if self.levels else None
 
 
 def _key(visit) -> str:

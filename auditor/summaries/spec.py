@@ -10,14 +10,13 @@ which to grade regression to the mean). The per-arm numbers live in the summarie
 from __future__ import annotations
 
 import hashlib
-import math
 from pathlib import Path
 from typing import Literal, Optional
 
 from pydantic import Field, StrictBool, ValidationError, field_validator, model_validator
 
 from ..errors import ProblemLog
-from ..metadata import (METADATA_FILE, Bound, Finite, Name, ResponderRule, Scale, StudyInfo, _fix_for,
+from ..metadata import (METADATA_FILE, Bound, Finite, Name, ResponderRule, Scale, ScaleFacts, StudyInfo, _fix_for,
                         _location_text, _Strict, _toml_line, tomllib)
 
 ReportedAnalysis = Literal["change", "percent-change", "follow-up-adjusted", "follow-up-only", "responder"]
@@ -69,7 +68,7 @@ class EntryWindow(_Strict):
         return f"baseline at most {self.upper:g}"
 
 
-class SummaryOutcome(_Strict):
+class SummaryOutcome(_Strict, ScaleFacts):
     param: Name
     label: str = Field(default="", max_length=2000)
     scale: Scale
@@ -103,21 +102,6 @@ class SummaryOutcome(_Strict):
             raise ValueError("reported_analysis 'responder' needs a responder rule")
         return self
 
-    @property
-    def display_name(self) -> str:
-        return self.label or self.param
-
-    @property
-    def lower_bound(self) -> Optional[float]:
-        if self.bounds is not None and self.bounds[0] is not None and math.isfinite(self.bounds[0]):
-            return self.bounds[0]
-        return self.levels[0] if self.levels else None
-
-    @property
-    def upper_bound(self) -> Optional[float]:
-        if self.bounds is not None and self.bounds[1] is not None and math.isfinite(self.bounds[1]):
-            return self.bounds[1]
-        return self.levels[-1] if self.levels else None
 
 
 class SummaryMetadata(_Strict):
