@@ -87,21 +87,26 @@ def _load():
         importlib.import_module(f"{__name__}.{info.name}")
 
 
-def to_svg(fig: Figure) -> str:
-    """Draw a figure and return its SVG markup (no XML prolog), byte-identical for equal data."""
+def _drawn(fig: Figure, buf, **save) -> None:
+    """Draw ``fig`` with its registered drawing function and save it into ``buf`` (matplotlib's
+    ``savefig`` options in ``save``), closing the matplotlib figure whatever happens."""
     _load()
     fn = _DRAWERS[fig.kind]
     with plt.rc_context(STYLE):
         mfig = plt.figure(figsize=fn.size)
         try:
             fn(plain_labels(fig.data), mfig)
-            buf = io.StringIO()
-            mfig.savefig(buf, format="svg", bbox_inches="tight", metadata={"Date": None, "Creator": None})
+            mfig.savefig(buf, bbox_inches="tight", **save)
         finally:
             plt.close(mfig)
+
+
+def to_svg(fig: Figure) -> str:
+    """Draw a figure and return its SVG markup (no XML prolog), byte-identical for equal data."""
+    buf = io.StringIO()
+    _drawn(fig, buf, format="svg", metadata={"Date": None, "Creator": None})
     svg = buf.getvalue()
-    start = svg.find("<svg")
-    return svg[start:]
+    return svg[svg.find("<svg"):]
 
 
 PNG_DPI = 150
@@ -115,16 +120,8 @@ def to_png(fig: Figure, dpi: int = PNG_DPI) -> bytes:
     The PNG carries no time and no software tag (matplotlib writes no time in PNGs; its
     ``Software`` entry is removed), so reruns give the same bytes.
     """
-    _load()
-    fn = _DRAWERS[fig.kind]
-    with plt.rc_context(STYLE):
-        mfig = plt.figure(figsize=fn.size)
-        try:
-            fn(plain_labels(fig.data), mfig)
-            buf = io.BytesIO()
-            mfig.savefig(buf, format="png", dpi=dpi, bbox_inches="tight", metadata={"Software": None})
-        finally:
-            plt.close(mfig)
+    buf = io.BytesIO()
+    _drawn(fig, buf, format="png", dpi=dpi, metadata={"Software": None})
     return _opaque_png(buf.getvalue())
 
 
