@@ -182,13 +182,7 @@ def checked_draft(data_files: list[Path], folder: Path, blinded: bool = False) -
     (exit 2), so ``init`` writes nothing rather than a file its own ``validate`` rejects.
     Validation warnings are allowed, as they are for ``validate``.
     """
-    text = draft_metadata(data_files, folder, blinded)
-    try:
-        load_study(folder, text.encode("utf-8"))
-    except StudyInputError as exc:
-        raise StudyInputError(exc.problems, "in the drafted study.toml, which was not written "
-                              "(mend the data, or write study.toml by hand)") from None
-    return text
+    return _validated_draft(folder, draft_metadata(data_files, folder, blinded))
 
 
 # --------------------------------------------------------------------------- a whole folder
@@ -438,7 +432,12 @@ def _records_lines(tables: dict, bds: list[Path], part: pd.DataFrame | None) -> 
 
 def checked_folder_draft(folder: Path, blinded: bool = True) -> str:
     """:func:`draft_folder`, validated as ``auditor validate`` would validate it (see :func:`checked_draft`)."""
-    text = draft_folder(folder, blinded)
+    return _validated_draft(folder, draft_folder(folder, blinded))
+
+
+def _validated_draft(folder: Path, text: str) -> str:
+    """``text``, a drafted study.toml, once it loads with the folder's data as ``validate`` would
+    load it; its problems otherwise, said to be in the draft (which is then not written)."""
     try:
         load_study(folder, text.encode("utf-8"))
     except StudyInputError as exc:

@@ -263,6 +263,16 @@ def _effect_check(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context):
 # ---------------------------------------------------------------------------------- efficiency
 
 
+def _graded_cost(fn, p: Pooled, ctx: Context, approx: bool):
+    """(interval, verdict) of a sample-size ratio ``fn`` from the pooled summaries: the seeded Wishart
+    interval at the audit's level, graded by :func:`_grade_ratio`; a first-order approximation
+    (``approx``) is graded at most caution."""
+    iv = sf.simulated_interval(fn, p.sd_b, p.sd_f, p.r, p.df, ctx.seed, QUICK_DRAWS if ctx.quick else DRAWS,
+                               ctx.level)
+    verdict = _grade_ratio(iv.value, iv.lower)
+    return iv, (Verdict.CAUTION if approx and verdict is Verdict.UNSUPPORTED else verdict)
+
+
 def _grade_ratio(value: float, lower: float | None) -> Verdict:
     if lower is not None and lower > MATERIAL_RATIO:
         return Verdict.UNSUPPORTED
@@ -307,11 +317,7 @@ def efficiency(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Dr
         subs.append(SubFinding("cost", f"What does {ANALYSIS_TEXT[analysis]} cost against ANCOVA (material above "
                                f"{_pct(MATERIAL_RATIO)})?", verdict, evidence + "; no correlation, so no interval"))
     else:
-        iv = sf.simulated_interval(fn, p.sd_b, p.sd_f, p.r, p.df, ctx.seed, QUICK_DRAWS if ctx.quick else DRAWS,
-                                   ctx.level)
-        verdict = _grade_ratio(iv.value, iv.lower)
-        if approx and verdict is Verdict.UNSUPPORTED:
-            verdict = Verdict.CAUTION
+        iv, verdict = _graded_cost(fn, p, ctx, approx)
         ests.append(Estimate("Sample-size ratio against ANCOVA", iv.value, iv.lower, iv.upper, key=f"{cid}.ratio",
                              note=f"pooled r = {fmt(p.r)}; interval by Wishart simulation of the SDs and r "
                                   f"({iv.draws} draws, seed {iv.seed})" + ("; first-order approximation" if approx else "")))
@@ -377,11 +383,7 @@ def responder(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Dra
                     f"ANCOVA for r from {PLAUSIBLE_R[0]:g} to {PLAUSIBLE_R[1]:g}; no correlation, so no interval")
         headline = evidence[0].upper() + evidence[1:] + "; graded at most caution."
     else:
-        iv = sf.simulated_interval(fn, p.sd_b, p.sd_f, p.r, p.df, ctx.seed, QUICK_DRAWS if ctx.quick else DRAWS,
-                                   ctx.level)
-        verdict = _grade_ratio(iv.value, iv.lower)
-        if approx and verdict is Verdict.UNSUPPORTED:
-            verdict = Verdict.CAUTION
+        iv, verdict = _graded_cost(fn, p, ctx, approx)
         z = (cut - mean_c) / p.sd_c
         ests.append(Estimate("Sample-size ratio, responders against ANCOVA", iv.value, iv.lower, iv.upper, key=f"{cid}.ratio",
                              note=f"cut {fmt(cut)} on change, z = {fmt(z)}; Wishart simulation ({iv.draws} draws, "
