@@ -252,7 +252,10 @@ def run(
         if _summaries_folder(study_dir):
             refuse_if_any([option_problem(o, "an audit from published summaries has no participant data to pool "
                                              "or list", "leave the option out for a summaries folder")
-                           for o, given in (("--blinded", blinded), ("--list-left-out", list_left_out)) if given])
+                           for o, given in (("--blinded" if blinded else "--unblinded", blinded is not None),
+                                            ("--list-left-out", list_left_out),
+                                            ("--withhold-pooled" if withhold_pooled else "--show-pooled",
+                                             withhold_pooled is not None)) if given])
             return _run_summaries(study_dir, output, force, analysis_date, today, seed, paper, check, strict, quiet,
                                   formats, level)
         refuse_if_any(seed_problems(seed), level_problems(level), date_problems(analysis_date, "--analysis-date"),

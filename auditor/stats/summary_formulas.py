@@ -244,6 +244,41 @@ def percent_change_of_means(mean_baseline: float, mean_followup: float) -> float
     return float(100 * (mean_followup - mean_baseline) / mean_baseline)
 
 
+@dataclass(frozen=True)
+class PercentChangeOfMeans:
+    """The percent change of one arm's means, 100 (mf / mb - 1), with its delta-method SE and interval."""
+
+    value: float
+    se: float
+    lower: float
+    upper: float
+
+
+def percent_change_of_means_interval(mean_baseline: float, mean_followup: float, sd_baseline: float,
+                                     sd_followup: float, r: float, n: int,
+                                     level: float = 0.95) -> PercentChangeOfMeans:
+    """The percent change of the means of one arm's ``n`` participants, with a normal interval by the
+    first-order delta method.
+
+    g = 100 (mf / mb - 1) has gradient (dg/dmb, dg/dmf) = (-100 mf / mb^2, 100 / mb). The two means
+    are of the same participants, so var(mb) = SDb^2 / n, var(mf) = SDf^2 / n and cov(mb, mf) =
+    r SDb SDf / n, r the pre-post correlation (reported or implied by the SDs). Hence, with
+    k = mf / mb,
+
+        SE = (100 / |mb|) sqrt((SDf^2 + k^2 SDb^2 - 2 k r SDb SDf) / n),
+
+    and the interval is value -/+ z SE, z the normal quantile of ``level``. Without r the covariance,
+    and so the SE, is unknown: the caller gives no interval then. The ratio of means is near normal
+    when the baseline mean is many of its SEs from zero (SDb / (mb sqrt(n)) small).
+    """
+    k = mean_followup / mean_baseline
+    var = (sd_followup**2 + k**2 * sd_baseline**2 - 2 * k * r * sd_baseline * sd_followup) / n
+    se = 100 / abs(mean_baseline) * math.sqrt(max(var, 0.0))
+    value = percent_change_of_means(mean_baseline, mean_followup)
+    q = normal_quantile(level) * se
+    return PercentChangeOfMeans(value, float(se), float(value - q), float(value + q))
+
+
 def mean_percent_change_second_order(mean_b: float, mean_f: float, sd_b: float, sd_f: float, r: float) -> float:
     """Second-order (delta method) approximation of the mean of the percent changes,
     E[100 (f / b - 1)] ~ 100 (mf/mb (1 + cv_b^2) - r sd_f sd_b / mb^2 - 1), with cv_b = SDb / mb:

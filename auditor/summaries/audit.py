@@ -71,6 +71,18 @@ def summary_thresholds() -> dict[str, float]:
             "sample_size_ratio": float(MATERIAL_RATIO)}
 
 
+SUMMARY_OPTIONS = ("analysis_date", "use_clock", "seed", "quick", "checks")
+"""The recorded options (:meth:`AuditOptions.as_record`) that bear on an audit from published
+summaries. The others (``blinded``, ``withhold_pooled``, ``list_left_out``) need participant data:
+`run` refuses them for a summaries folder, so the provenance does not list them."""
+
+
+def summary_options_record(options: AuditOptions) -> dict:
+    """The provenance's options of an audit from published summaries: those that apply to it, and its source."""
+    record = options.as_record()
+    return {**{k: record[k] for k in SUMMARY_OPTIONS}, "source": "summaries"}
+
+
 def _run(check_id: str, fn, spec, arms, ctx: Context, strict: bool) -> Draft:
     try:
         return fn(spec, arms, ctx)
@@ -144,7 +156,7 @@ def audit_summaries(study: SummaryStudy, options: AuditOptions | None = None) ->
     prov = Provenance(tool_version=__version__, library_versions=library_versions(),
                       metadata_sha256=study.metadata_sha256,
                       files=[InputFile("summaries", s.file, s.sha256, s.rows)],
-                      options={**options.as_record(), "source": "summaries"}, analysis_date=date, seed=seed,
+                      options=summary_options_record(options), analysis_date=date, seed=seed,
                       confidence_level=level,
                       platform=f"Python {platform.python_version()} on {platform.system()} {platform.machine()}",
                       thresholds=summary_thresholds())

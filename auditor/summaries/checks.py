@@ -439,6 +439,29 @@ def _shape_rows(spec: SummaryOutcome, arms: list[ArmSummary]):
                 a.sources[visit].startswith("reported")
 
 
+NO_R_NOTE = ("no interval: the paper reports no pre-post correlation and its SDs imply none, so the covariance of "
+             "the two means is unknown")
+
+
+_PERCENT_METHOD = ("; the mean of percent changes by the delta method, E[f/b] ~ mf/mb - cov/mb^2 + mf var(b)/mb^3; "
+                   "the percent change of the means 100 (mf/mb - 1) with a delta-method {level} interval, "
+                   "SE = (100/mb) sqrt((SDf^2 + k^2 SDb^2 - 2 k r SDb SDf)/n), k = mf/mb, where the pre-post "
+                   "correlation r is reported or implied by the SDs")
+
+
+def _percent_change_of_means(cid: str, a: ArmSummary, index: int, level: float) -> Estimate:
+    """One arm's percent change of the means, with its delta-method interval when the pre-post
+    correlation is reported or implied (the covariance of the two means needs it), else none, said so."""
+    name, key = f"Percent change of the means, {a.arm}", f"{cid}.percent-change-of-means.arm-{index}"
+    if a.r is None:
+        return Estimate(name, sf.percent_change_of_means(a.mean["baseline"], a.mean["followup"]), unit="%",
+                        note=NO_R_NOTE, by_arm=True, key=key, arm=a.arm)
+    pc = sf.percent_change_of_means_interval(a.mean["baseline"], a.mean["followup"], a.sd["baseline"],
+                                             a.sd["followup"], a.r, a.n, level)
+    return Estimate(name, pc.value, pc.lower, pc.upper, unit="%", by_arm=True, key=key, arm=a.arm,
+                    note=f"delta method, n = {a.n}, r = {fmt(a.r)} ({a.sources.get('r', 'reported')})")
+
+
 def shape(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
     cid = "summary-shape"
     if spec.lower_bound is None and spec.upper_bound is None:
@@ -497,15 +520,14 @@ def shape(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
     if spec.reported_analysis == "percent-change":
         gaps = []
         for a in arms:
+            ests.append(_percent_change_of_means(cid, a, arms.index(a) + 1, ctx.level))
             if a.r is None:
                 continue
-            pm = sf.percent_change_of_means(a.mean["baseline"], a.mean["followup"])
+            pm = ests[-1].value
             mp = sf.mean_percent_change_second_order(a.mean["baseline"], a.mean["followup"], a.sd["baseline"],
                                                      a.sd["followup"], a.r)
-            ests.append(Estimate(f"Percent change of the means, {a.arm}", pm, unit="%", by_arm=True,
-                                 key=f"{cid}.percent-change-of-means.arm-{arms.index(a) + 1}", arm=a.arm))
             ests.append(Estimate(f"Mean of the percent changes (second-order approximation), {a.arm}", mp,
-                                 unit="%", by_arm=True,
+                                 unit="%", by_arm=True, note="an approximation from the means and SDs: no interval",
                                  key=f"{cid}.mean-percent-change.arm-{arms.index(a) + 1}", arm=a.arm))
             gaps.append(abs(mp - pm))
         if gaps:
@@ -551,8 +573,8 @@ def shape(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
                                                                  "percent-change" else []),
                   method="(mean - lower bound) / SD < 2 suggests skew (Altman and Bland 1996); a mean within 1 SD of "
                          "a bound suggests a floor or ceiling (convention); quartile skewness (q3 + q1 - 2 median) / "
-                         "(q3 - q1); the mean of percent changes by the delta method, E[f/b] ~ mf/mb - cov/mb^2 + "
-                         "mf var(b)/mb^3.")
+                         "(q3 - q1)" + (_PERCENT_METHOD.format(level=level_label(ctx.level))
+                                        if spec.reported_analysis == "percent-change" else "") + ".")
     if verdict is Verdict.SOUND:
         return Draft(res)
     return Draft(res, _sentence("; ".join(problems)), "Please " + "; and ".join(asks) + ".")

@@ -152,3 +152,27 @@ def test_run_writes_only_the_formats_asked_for_and_always_comments(tmp_path):
     assert sorted(p.name for p in out.iterdir()) == ["comments.md", "findings.json"]
     bad = CliRunner().invoke(app, ["run", str(EXAMPLE), "-o", str(tmp_path / "p"), "--formats", "docx"])
     assert bad.exit_code == 2 and not (tmp_path / "p").exists()
+
+
+def test_provenance_lists_only_the_options_that_apply():
+    """A summaries audit has no participant data to blind, withhold or list: those options are not recorded."""
+    from auditor.render.view import audit_view
+    from auditor.summaries.audit import SUMMARY_OPTIONS
+
+    a = audit_summaries(load_summary_study(EXAMPLE), AuditOptions(quick=True, seed=5))
+    assert sorted(a.provenance.options) == sorted([*SUMMARY_OPTIONS, "source"])
+    assert a.provenance.options["seed"] == 5 and a.provenance.options["source"] == "summaries"
+    shown = dict(audit_view(a)["provenance"]["options"])
+    for name in ("blinded", "withhold_pooled", "list_left_out"):
+        assert name not in a.provenance.options and name not in shown
+    # the data audit still records them
+    assert {"blinded", "withhold_pooled", "list_left_out"} <= set(AuditOptions().as_record())
+
+
+def test_unblinded_and_pooled_options_refused_for_summaries(tmp_path):
+    out = tmp_path / "o"
+    res = CliRunner().invoke(app, ["run", str(EXAMPLE), "-o", str(out), "--unblinded", "--show-pooled"])
+    assert res.exit_code == 2 and "--unblinded:" in res.output and "--show-pooled:" in res.output
+    res = CliRunner().invoke(app, ["run", str(EXAMPLE), "-o", str(out), "--withhold-pooled"])
+    assert res.exit_code == 2 and "--withhold-pooled:" in res.output
+    assert not out.exists()

@@ -84,3 +84,36 @@ def test_rtm_sound_when_selection_removes_almost_no_one(tmp_path):
     toml = CHANGE + 'entry_criterion = { lower = 10, assumed_mean = [50], assumed_sd = 10, reliability = [0.7] }\n'
     res, _ = _audit(tmp_path, toml, ["Y,A,60,50,10,48,10,6,,,,,", "Y,B,60,50,10,45,10,6,,,,,"])
     assert res["summary-rtm"].verdict is Verdict.SOUND
+
+
+PERCENT = 'scale = "continuous"\nbounds = [0, inf]\nreported_analysis = "percent-change"\n'
+
+
+def test_percent_change_of_the_means_carries_its_interval_where_r_is_known(tmp_path):
+    # Arm A reports r = 0.6; arm B gives no correlation and no SD of change, so none is implied.
+    # Arm A's SE by hand: k = 40/50 = 0.8, (100/50) sqrt((8^2 + 0.64 x 10^2 - 2 x 0.8 x 0.6 x 10 x 8) / 100)
+    # = 2 sqrt((64 + 64 - 76.8) / 100) = 2 sqrt(0.512) = 1.43108; interval -20 -/+ 1.959964 x 1.43108.
+    rows = ["Y,A,100,50,10,40,8,,0.6,,,,", "Y,B,100,50,10,45,9,,,,,,"]
+    res, _ = _audit(tmp_path, PERCENT, rows)
+    est = {e.key: e for e in res["summary-shape"].estimates}
+    a = est["summary-shape.percent-change-of-means.arm-1"]
+    assert a.value == pytest.approx(-20.0)
+    assert (a.lower, a.upper) == pytest.approx((-20 - 1.959964 * 1.43108, -20 + 1.959964 * 1.43108), abs=1e-4)
+    assert "r = 0.60 (reported)" in a.note
+    b = est["summary-shape.percent-change-of-means.arm-2"]
+    assert b.value == pytest.approx(-10.0) and b.lower is None and b.upper is None
+    assert b.note.startswith("no interval") and "correlation" in b.note
+    # the mean of the percent changes needs r too: given for arm A only
+    assert "summary-shape.mean-percent-change.arm-1" in est and "summary-shape.mean-percent-change.arm-2" not in est
+    assert "delta-method 95% interval" in res["summary-shape"].method
+
+
+def test_percent_change_interval_follows_the_level(tmp_path):
+    rows = ["Y,A,100,50,10,40,8,,0.6,,,,", "Y,B,100,50,10,45,9,,0.6,,,,"]
+    d = tmp_path / "s"
+    _audit(tmp_path, PERCENT, rows)
+    a = audit_summaries(load_summary_study(d), AuditOptions(quick=True, level=0.9))
+    est = next(e for r in a.results if r.check_id == "summary-shape" for e in r.estimates
+               if e.key == "summary-shape.percent-change-of-means.arm-1")
+    # 1.644854: the normal 0.95 quantile (scipy.stats.norm.ppf; from memory to 6 decimals)
+    assert est.upper - est.value == pytest.approx(1.644854 * 1.43108, abs=1e-4)
