@@ -492,7 +492,7 @@ def compare(
         log.raise_if_errors("in the findings files")
         forced = _refuse_incomparable(comparability_problems(a, b), old, new, force)
         cmp = compare_findings(a, b, tolerance)
-        _print_comparison(cmp)
+        _print_comparison(cmp, a, b)
         _write_comparison(cmp, a, b, forced, html, json_path, force, [old, new])
 
     _guard(body)
@@ -513,10 +513,10 @@ def _refuse_incomparable(problems, old: Path, new: Path, force: bool) -> list[st
     return [why for _, why in problems]
 
 
-def _print_comparison(cmp) -> None:
-    """The comparison on the terminal: a plain sentence when nothing changed, else every change."""
-    from .compare import subfinding_text, unchanged_sentence
-    from .render.view import number
+def _print_comparison(cmp, old: dict, new: dict) -> None:
+    """The comparison on the terminal: a plain sentence when nothing changed, else every change, each
+    outcome, check id and estimate key whole whatever the terminal's width."""
+    from .compare import estimate_rows, moved_number_lines, subfinding_text, unchanged_sentence
 
     if cmp.unchanged:
         out.print(unchanged_sentence(cmp), markup=False)
@@ -535,8 +535,9 @@ def _print_comparison(cmp) -> None:
             out.print(f"{label}: {e.outcome} / {e.check_id} / {e.key or e.name}", markup=False)
     if cmp.verdicts_moved:
         t = Table(title="verdicts that moved")
-        for col in ("Outcome", "Check", "Before", "After", "Moved by"):
-            t.add_column(col)
+        widest_check = max(len(c) for _, c, _, _ in cmp.verdicts_moved)
+        for col in ("Outcome", "Check", "Before", "After", "Moved by"):  # folded, never cut short
+            t.add_column(col, overflow="fold", min_width=widest_check if col == "Check" else None)
         for o, c, a, b in cmp.verdicts_moved:
             t.add_row(*_cells(o, c, a, b, subfinding_text(cmp.subfindings_of(o, c))))
         out.print(t)
@@ -545,12 +546,9 @@ def _print_comparison(cmp) -> None:
         if (m.outcome, m.check_id) not in moved:
             out.print(f"sub-finding moved: {m.outcome} / {m.check_id} / {m.id}: {m.old} -> {m.new}", markup=False)
     if cmp.numbers_moved:
-        t = Table(title=f"numbers that moved (relative tolerance {cmp.tolerance:g})")
-        for col in ("Outcome", "Check", "Quantity", "Part", "Before", "After"):
-            t.add_column(col)
-        for m in cmp.numbers_moved:
-            t.add_row(*_cells(m.outcome, m.check_id, m.key or m.name, m.field, number(m.old), number(m.new)))
-        out.print(t)
+        out.print(f"numbers that moved (relative tolerance {cmp.tolerance:g})", markup=False)
+        for line in moved_number_lines(estimate_rows(cmp, old, new), out.width):
+            out.print(line, markup=False)
 
 
 def _write_comparison(cmp, a, b, forced, html, json_path, force, inputs) -> None:

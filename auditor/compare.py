@@ -402,6 +402,29 @@ def estimate_rows(cmp: Comparison, old: dict | None = None, new: dict | None = N
              "moved": moved_text(r["moved"])} for r in rows.values()]
 
 
+def moved_number_lines(rows: list[dict], width: int = 80) -> list[str]:
+    """The numbers that moved as terminal lines no wider than ``width`` where the text allows, every
+    key whole (a key is what a pipeline matches on, so it is never cut short).
+
+    ``rows`` are :func:`estimate_rows`. Under a heading line per outcome and check, each estimate
+    takes one line, ``key: before -> after (what moved)``, when that fits in ``width``; otherwise
+    its key has a line of its own and the numbers follow on the next, indented. A key longer than
+    the width is still printed whole, on its own line. Without keys (an earlier schema) the display
+    name stands in for the key."""
+    from .errors import one_line_text
+
+    lines, heading = [], None
+    for r in rows:
+        if (r["outcome"], r["check_id"]) != heading:
+            heading = (r["outcome"], r["check_id"])
+            lines.append(one_line_text(f"{r['outcome']} / {r['check_id']}", 10_000))
+        label = one_line_text(r["key"] or r["name"], 10_000)
+        numbers = f"{r['before']} -> {r['after']} ({r['moved']} moved)"
+        one = f"  {label}: {numbers}"
+        lines += [one] if len(one) <= width else [f"  {label}", f"      {numbers}"]
+    return lines
+
+
 def value_change(old, new, number) -> str:
     """The value's change (later minus earlier) with its sign; a dash when either side has none."""
     if not (_is_number(old) and _is_number(new)) or not (math.isfinite(old) and math.isfinite(new)):
