@@ -325,8 +325,9 @@ class RecordRules(_Strict):
 
 
 class ScaleFacts:
-    """What an outcome's declaration says about its name and range, shared by the data and the
-    summaries schemas (each has ``param``, ``label``, ``levels`` and ``bounds``)."""
+    """What an outcome's declaration says about its name and range, and the rules its scale and
+    analysis obey, shared by the data and the summaries schemas (each has ``param``, ``label``,
+    ``scale``, ``levels``, ``bounds`` and ``responder``)."""
 
     @property
     def display_name(self) -> str:
@@ -345,6 +346,33 @@ class ScaleFacts:
         if self.bounds is not None and self.bounds[1] is not None and math.isfinite(self.bounds[1]):
             return self.bounds[1]
         return self.levels[-1] if self.levels else None
+
+    def _check_scale_and_analysis(self, analysis_key: str, responder_rule: str) -> None:
+        """The rules both schemas hold for an outcome (a ValueError, worded for the schema, at the first
+        broken): an ordinal scale lists its levels, bounds are [lower, upper] with lower < upper, and a
+        responder analysis gives its rule. ``analysis_key`` is the schema's key for the analysis
+        (``planned_analysis``, ``reported_analysis``); ``responder_rule`` names the rule as its
+        messages do."""
+        if self.scale == "ordinal" and self.levels is None:
+            raise ValueError("an ordinal outcome needs 'levels' (its ordered codes)")
+        if self.bounds is not None:
+            lo, hi = self.bounds
+            if lo is not None and hi is not None and lo >= hi:
+                raise ValueError("bounds must be [lower, upper] with lower < upper")
+        if getattr(self, analysis_key) == "responder" and self.responder is None:
+            raise ValueError(f"{analysis_key} 'responder' needs {responder_rule}")
+
+
+def ordered_levels(levels, too_few: str, unordered: str):
+    """``levels`` unchanged when they are two or more distinct codes in increasing order, else a
+    ValueError: ``too_few`` for fewer than two, ``unordered`` for repeated or out-of-order codes (the
+    data and summaries schemas word these differently)."""
+    if levels is not None:
+        if len(levels) < 2:
+            raise ValueError(too_few)
+        if sorted(set(levels)) != list(levels):
+            raise ValueError(unordered)
+    return levels
 
 
 class OutcomeSpec(_Strict, ScaleFacts):
@@ -391,23 +419,12 @@ class OutcomeSpec(_Strict, ScaleFacts):
     @field_validator("levels")
     @classmethod
     def _levels_sorted(cls, v):
-        if v is not None:
-            if len(v) < 2:
-                raise ValueError("an ordinal scale needs at least two levels")
-            if sorted(v) != list(v) or len(set(v)) != len(v):
-                raise ValueError("levels must be distinct and listed in increasing order")
-        return v
+        return ordered_levels(v, "an ordinal scale needs at least two levels",
+                              "levels must be distinct and listed in increasing order")
 
     @model_validator(mode="after")
     def _consistent(self):
-        if self.scale == "ordinal" and self.levels is None:
-            raise ValueError("an ordinal outcome needs 'levels' (its ordered codes)")
-        if self.bounds is not None:
-            lo, hi = self.bounds
-            if lo is not None and hi is not None and lo >= hi:
-                raise ValueError("bounds must be [lower, upper] with lower < upper")
-        if self.planned_analysis == "responder" and self.responder is None:
-            raise ValueError("planned_analysis 'responder' needs a [outcomes.responder] rule")
+        self._check_scale_and_analysis("planned_analysis", "a [outcomes.responder] rule")
         if self.planned_analysis in ("change", "percent-change", "follow-up-adjusted",
                                      "responder", "repeated-with-baseline-response") \
                 and self.baseline_visit is None:

@@ -17,7 +17,7 @@ from pydantic import Field, StrictBool, ValidationError, field_validator, model_
 
 from ..errors import ProblemLog
 from ..metadata import (METADATA_FILE, Bound, Finite, Name, ResponderRule, Scale, ScaleFacts, StudyInfo, _fix_for,
-                        _location_text, _Strict, _toml_line, tomllib)
+                        _location_text, _Strict, _toml_line, ordered_levels, tomllib)
 
 ReportedAnalysis = Literal["change", "percent-change", "follow-up-adjusted", "follow-up-only", "responder"]
 """The analysis the paper reports (``follow-up-adjusted`` is ANCOVA of follow-up on baseline)."""
@@ -86,20 +86,12 @@ class SummaryOutcome(_Strict, ScaleFacts):
     @field_validator("levels")
     @classmethod
     def _levels_sorted(cls, v):
-        if v is not None and (len(v) < 2 or sorted(set(v)) != list(v)):
-            raise ValueError("levels must be two or more distinct codes in increasing order")
-        return v
+        wording = "levels must be two or more distinct codes in increasing order"
+        return ordered_levels(v, wording, wording)
 
     @model_validator(mode="after")
     def _consistent(self):
-        if self.scale == "ordinal" and self.levels is None:
-            raise ValueError("an ordinal outcome needs 'levels' (its ordered codes)")
-        if self.bounds is not None:
-            lo, hi = self.bounds
-            if lo is not None and hi is not None and lo >= hi:
-                raise ValueError("bounds must be [lower, upper] with lower < upper")
-        if self.reported_analysis == "responder" and self.responder is None:
-            raise ValueError("reported_analysis 'responder' needs a responder rule")
+        self._check_scale_and_analysis("reported_analysis", "a responder rule")
         return self
 
 
