@@ -13,7 +13,7 @@ import re
 import string
 import sys
 from pathlib import Path
-from typing import Annotated, Literal, Optional, Union
+from typing import Annotated, ClassVar, Literal, Optional, Union
 
 from pydantic import (BaseModel, ConfigDict, Field, PlainValidator, StrictBool, StrictFloat, StrictInt, StrictStr,
                       ValidationError, field_validator, model_validator)
@@ -324,10 +324,34 @@ class RecordRules(_Strict):
     participants flagged Y are analysed."""
 
 
-class ScaleFacts:
-    """What an outcome's declaration says about its name and range, and the rules its scale and
-    analysis obey, shared by the data and the summaries schemas (each has ``param``, ``label``,
-    ``scale``, ``levels``, ``bounds`` and ``responder``)."""
+class OutcomeDeclaration(_Strict):
+    """The keys an outcome declares in both schemas, the data's (:class:`OutcomeSpec`) and the
+    published summaries' (``SummaryOutcome``), what they say about its name and range, and the rules
+    its scale and analysis obey. Each schema words the levels rule its own way (the two class
+    variables) and adds its analysis key and ``responder`` rule."""
+
+    param: Name
+    label: StrictStr = Field(default="", max_length=2000)
+    scale: Scale
+    levels: Optional[list[Finite]] = None
+    bounds: Optional[tuple[Bound, Bound]] = None
+    unit: StrictStr = Field(default="", max_length=100)
+
+    LEVELS_TOO_FEW: ClassVar[str] = "an ordinal scale needs at least two levels"
+    """The problem of fewer than two levels, in this schema's words."""
+    LEVELS_UNORDERED: ClassVar[str] = "levels must be distinct and listed in increasing order"
+    """The problem of repeated or out-of-order levels, in this schema's words."""
+
+    @field_validator("levels")
+    @classmethod
+    def _levels_sorted(cls, v):
+        """Two or more distinct codes in increasing order."""
+        if v is not None:
+            if len(v) < 2:
+                raise ValueError(cls.LEVELS_TOO_FEW)
+            if sorted(set(v)) != list(v):
+                raise ValueError(cls.LEVELS_UNORDERED)
+        return v
 
     @property
     def display_name(self) -> str:
@@ -363,25 +387,7 @@ class ScaleFacts:
             raise ValueError(f"{analysis_key} 'responder' needs {responder_rule}")
 
 
-def ordered_levels(levels, too_few: str, unordered: str):
-    """``levels`` unchanged when they are two or more distinct codes in increasing order, else a
-    ValueError: ``too_few`` for fewer than two, ``unordered`` for repeated or out-of-order codes (the
-    data and summaries schemas word these differently)."""
-    if levels is not None:
-        if len(levels) < 2:
-            raise ValueError(too_few)
-        if sorted(set(levels)) != list(levels):
-            raise ValueError(unordered)
-    return levels
-
-
-class OutcomeSpec(_Strict, ScaleFacts):
-    param: Name
-    label: StrictStr = Field(default="", max_length=2000)
-    scale: Scale
-    levels: Optional[list[Finite]] = None
-    bounds: Optional[tuple[Bound, Bound]] = None
-    unit: StrictStr = Field(default="", max_length=100)
+class OutcomeSpec(OutcomeDeclaration):
     baseline_visit: Optional[VisitName] = None
     screening_visit: Optional[VisitName] = None
     followup_visits: list[VisitName] = Field(min_length=1)
@@ -415,12 +421,6 @@ class OutcomeSpec(_Strict, ScaleFacts):
     effect_basis: Literal["between-arm", "within-arm-change"] = "between-arm"
     """What the trial reports as the treatment effect: the contrast between arms (default) or the
     change within an arm from baseline (a before-after claim, which regression to the mean biases)."""
-
-    @field_validator("levels")
-    @classmethod
-    def _levels_sorted(cls, v):
-        return ordered_levels(v, "an ordinal scale needs at least two levels",
-                              "levels must be distinct and listed in increasing order")
 
     @model_validator(mode="after")
     def _consistent(self):

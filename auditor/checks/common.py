@@ -3,13 +3,33 @@
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
 
-from ..results import CheckResult, Estimate, Verdict
+from ..results import CheckResult, Estimate, Figure, SubFinding, Table, Verdict
 from ..study import OutcomeData
 from .registry import CheckContext, NotAssessable
+
+
+@dataclass
+class Sections:
+    """What the sections of a check accumulate, in report order, before its result is composed."""
+
+    subfindings: list[SubFinding] = field(default_factory=list)
+    estimates: list[Estimate] = field(default_factory=list)
+    tables: list[Table] = field(default_factory=list)
+    figures: list[Figure] = field(default_factory=list)
+    caveats: list[str] = field(default_factory=list)
+    references: list[str] = field(default_factory=list)
+
+    def sub(self, id_, question, verdict, evidence, by_arm=False) -> None:
+        self.subfindings.append(SubFinding(id_, question, verdict, evidence, by_arm))
+
+    def cite(self, *keys: str) -> None:
+        """Add reference keys not yet cited, in the order first cited."""
+        self.references += [k for k in keys if k not in self.references]
 
 
 def fmt(x: float | None, digits: int = 2) -> str:

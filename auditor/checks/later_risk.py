@@ -772,31 +772,33 @@ class _View:
         return SubFinding("same-value", q, self.verdicts["same-value"], text, by_arm=self.arm)
 
     def _information_finding(self, d: DerivedTest) -> SubFinding:
-        v = self.verdicts[f"{_key(d)}-information"]
         label = d.definition.label
         ev = (f"the model in the {label} alone against the model of both values it is nested in: "
               f"{self.chi(d.information)}; AIC {fmt(d.fit.aic - d.encompassing.aic, 1)} against it")
-        text = (f"It loses information: {ev}" if d.information.p_value < ALPHA
-                else f"No evidence that it loses information: {ev}")
-        if d is not self.an.judged:
-            text += self._for_information()
-        return SubFinding(f"{_key(d)}-information",
-                          f"Does a {label}-based definition keep the risk information in the two values?",
-                          v, text, by_arm=self.arm)
+        return self._definition_finding(d, "information", d.information, ev,
+                                        f"Does a {label}-based definition keep the risk information in the two values?",
+                                        "It loses information", "No evidence that it loses information")
 
     def _weights_finding(self, d: DerivedTest) -> SubFinding:
-        v = self.verdicts[f"{_key(d)}-weights"]
         r, lo, hi = d.weight_ratio
         scale = "logs of the values" if d.definition.log else "values"
         ev = (f"weight of the earlier value relative to the latest {fmt(r)} (CI {fmt(lo)} to {fmt(hi)}; "
               f"a {d.definition.label} fixes it at -1), models linear in the {scale}: {self.chi(d.weights)}")
-        text = (f"The weights differ: {ev}" if d.weights.p_value < ALPHA
-                else f"No evidence against equal and opposite weights: {ev}")
+        return self._definition_finding(d, "weights", d.weights, ev,
+                                        f"Do the two values carry equal and opposite weights, as a "
+                                        f"{d.definition.label} assumes?",
+                                        "The weights differ", "No evidence against equal and opposite weights")
+
+    def _definition_finding(self, d: DerivedTest, part: str, test, ev: str, question: str, rejected: str,
+                            kept: str) -> SubFinding:
+        """The sub-finding ``<definition>-<part>`` on one derived definition: the evidence ``ev`` led by
+        ``rejected`` when ``test`` rejects at ALPHA, else by ``kept``, with the for-information note
+        when the definition is not the one judged."""
+        text = f"{rejected if test.p_value < ALPHA else kept}: {ev}"
         if d is not self.an.judged:
             text += self._for_information()
-        return SubFinding(f"{_key(d)}-weights",
-                          f"Do the two values carry equal and opposite weights, as a {d.definition.label} assumes?",
-                          v, text, by_arm=self.arm)
+        sid = f"{_key(d)}-{part}"
+        return SubFinding(sid, question, self.verdicts[sid], text, by_arm=self.arm)
 
     # -- headline
 

@@ -22,11 +22,11 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..references import REFERENCES, add_reference, cite
-from ..results import Estimate, Figure, SubFinding, Table, Verdict, level_label
+from ..results import Figure, Table, Verdict, level_label
 from ..stats import relative_change as rc
 from ..stats.correlation import spearman
 from ..stats.linear import arm_indicators
-from .common import arms_present, estimate, fmt, fmt_ci, result
+from .common import Sections, arms_present, estimate, fmt, fmt_ci, result
 from .registry import CheckContext, NotAssessable, register
 
 CHECK_ID = "percent-change"
@@ -85,23 +85,11 @@ def _worst(*verdicts: Verdict) -> Verdict:
 
 
 @dataclass
-class _Collect:
-    """What the sections of the check accumulate."""
+class _Collect(Sections):
+    """What the sections of the check accumulate, and the headline phrases they contribute."""
 
-    subfindings: list[SubFinding] = field(default_factory=list)
-    estimates: list[Estimate] = field(default_factory=list)
-    tables: list[Table] = field(default_factory=list)
-    figures: list[Figure] = field(default_factory=list)
-    caveats: list[str] = field(default_factory=list)
     clauses: dict[str, str] = field(default_factory=dict)
     """Headline phrases by section, composed at the end."""
-    references: list[str] = field(default_factory=list)
-
-    def cite(self, *keys: str) -> None:
-        self.references += [k for k in keys if k not in self.references]
-
-    def sub(self, id_, question, verdict, evidence, by_arm=False):
-        self.subfindings.append(SubFinding(id_, question, verdict, evidence, by_arm))
 
 
 @dataclass(frozen=True)

@@ -14,19 +14,19 @@ module constants documented in docs/methods/regression-to-mean.md.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 from scipy import stats
 
 from ..references import REFERENCES, add_reference, cite
-from ..results import Estimate, Figure, SubFinding, Verdict, level_label
+from ..results import Figure, Verdict, level_label
 from ..stats.linear import mean_t_interval, slope_with_se
 from ..stats.rtm import (bias_after_second_baseline, expected_rtm, fit_truncated_normal, icc_oneway,
                          edge_test_scale, rtm_with_ci, shrunk_values, truncation_edge_test)
 from ..stats.rtm import (fit_window_normal, product_interval, rtm_window_with_ci, selection_shift_with_se,
                          window_mean_shift)
-from .common import estimate, fmt, fmt_p, result
+from .common import Sections, estimate, fmt, fmt_p, result
 from .registry import CheckContext, NotAssessable, register
 
 CHECK_ID = "regression-to-mean"
@@ -248,19 +248,6 @@ class Group:
     rows: np.ndarray
     where: str
     by_arm: bool
-
-
-@dataclass
-class Out:
-    """What the sections of the check accumulate."""
-
-    subfindings: list[SubFinding] = field(default_factory=list)
-    estimates: list[Estimate] = field(default_factory=list)
-    figures: list[Figure] = field(default_factory=list)
-    caveats: list[str] = field(default_factory=list)
-
-    def sub(self, id_, question, verdict, evidence, by_arm=False):
-        self.subfindings.append(SubFinding(id_, question, verdict, evidence, by_arm))
 
 
 # ----------------------------------------------------------------------------- selection
@@ -521,7 +508,7 @@ def choose_reliability(data, ctx, rd, scale, sel) -> Reliability:
     return rel
 
 
-def _capped(rel: Reliability, out: Out) -> float:
+def _capped(rel: Reliability, out: Sections) -> float:
     if rel.value > RHO_CAP:
         out.caveats.append(f"The reliability estimate {fmt(rel.value, 3)} was capped at {RHO_CAP} for the "
                            f"expected change and its interval.")
@@ -548,7 +535,7 @@ def expected_window_change(fit, rho: float, rho_se: float | None, ctx):
                               seed=ctx.seed)
 
 
-def further_conditions_caveat(spec, out: Out) -> None:
+def further_conditions_caveat(spec, out: Sections) -> None:
     """Further entry conditions (``entry_criterion.also``) are not used in sizing this outcome's
     regression to the mean: a condition on another parameter selects on a correlated variable, whose
     effect on this outcome depends on a correlation the audit does not model; one on this parameter
@@ -622,7 +609,7 @@ def residual_bias(data, ctx, rd, scale, sel) -> tuple[Interval, Group]:
     return Interval(bias, lower, upper), group
 
 
-def second_baseline_share(data, ctx, rd, scale, sel, rel, rho, out: Out) -> float | None:
+def second_baseline_share(data, ctx, rd, scale, sel, rel, rho, out: Sections) -> float | None:
     """Share of the RTM bias a second, later baseline would remove (bias_after_second_baseline): all of
     it under stable true levels; ``(1 - rho) / (1 - rho_BF)`` when the follow-up correlates less with
     the entry reading than a repeat reading does (rho_BF: slope of follow-up on it in the comparison
@@ -702,7 +689,7 @@ def _unit_label(spec, visit) -> str:
 # ----------------------------------------------------------------------------- sections
 
 
-def selection_section(sel, finds, n_kept, n_excluded, out: Out, share_out: float | None = None) -> None:
+def selection_section(sel, finds, n_kept, n_excluded, out: Sections, share_out: float | None = None) -> None:
     """The selection sub-finding (and the criterion-honoured one); ``share_out`` is the fitted
     population share on the excluded side of the cutoff, when known."""
     q = "Were participants selected on this outcome?"
@@ -743,7 +730,7 @@ def selection_section(sel, finds, n_kept, n_excluded, out: Out, share_out: float
                 f"out of this check")
 
 
-def population_section(spec, scale, sel, out: Out, level: float = 0.95) -> None:
+def population_section(spec, scale, sel, out: Sections, level: float = 0.95) -> None:
     fit = scale.fit
     q = stats.norm.ppf(0.5 + level / 2)
     lo, hi = fit.mu - q * fit.se_mu, fit.mu + q * fit.se_mu
@@ -768,7 +755,7 @@ def population_section(spec, scale, sel, out: Out, level: float = 0.95) -> None:
             f"{'log' if scale.log else 'raw'} scale: {scale.reason}")
 
 
-def reliability_section(spec, rel: Reliability, out: Out) -> None:
+def reliability_section(spec, rel: Reliability, out: Sections) -> None:
     out.estimates.append(estimate(f"Reliability of one reading used ({rel.source})", rel.value, rel.lower,
                                   rel.upper, note="a lower bound" if rel.lower_bound else "", by_arm=rel.by_arm,
                                   key="regression-to-mean.reliability"))
@@ -784,7 +771,7 @@ def reliability_section(spec, rel: Reliability, out: Out) -> None:
             rel.evidence, by_arm=rel.by_arm)
 
 
-def expected_section(spec, scale, rtm, rel, sel, out: Out) -> None:
+def expected_section(spec, scale, rtm, rel, sel, out: Sections) -> None:
     unit = "" if scale.log else spec.unit
     out.estimates.append(estimate(f"Expected change from regression to the mean "
                                   f"({'log scale' if scale.log else 'analysis scale'})", rtm.estimate, rtm.lower,
@@ -808,7 +795,7 @@ def expected_section(spec, scale, rtm, rel, sel, out: Out) -> None:
                                       alt, unit=unit, key="regression-to-mean.expected-change-declared-reliability"))
 
 
-def shrinkage_section(spec, rd, scale, rho, sel, rel, out: Out) -> None:
+def shrinkage_section(spec, rd, scale, rho, sel, rel, out: Sections) -> None:
     """Shrunk entry readings ``mu + rho (x - mu)`` (Kelley 1947); their mean shift is the expected RTM."""
     x = np.sort(scale.to(rd.present(sel.column)))
     shrunk = shrunk_values(x, scale.fit.mu, rho)
@@ -897,7 +884,7 @@ def figure_rows(sel, rtm, target, obs, pre) -> list[dict]:
     return rows
 
 
-def observed_section(spec, scale, target: Interval, obs: Change, pre, by_arm, ctx, out: Out) -> None:
+def observed_section(spec, scale, target: Interval, obs: Change, pre, by_arm, ctx, out: Sections) -> None:
     """The observed mean change beside the change expected in it, their difference and the share."""
     what = "pooled over arms (blinded)" if ctx.blinded and obs.where == "in both arms pooled" else obs.where
     unit = "" if scale.log else spec.unit
@@ -931,7 +918,7 @@ def observed_section(spec, scale, target: Interval, obs: Change, pre, by_arm, ct
             f"{'inside' if within else 'outside'} that interval", by_arm=by_arm)
 
 
-def model_check_sub(spec, scale, rtm, pre: Change | None, out: Out) -> None:
+def model_check_sub(spec, scale, rtm, pre: Change | None, out: Sections) -> None:
     """Set the change between the two pre-treatment readings (no treatment possible) beside the
     expected RTM: a direct check of the normal model and of the fitted population mean."""
     if pre is None:
@@ -948,7 +935,7 @@ def model_check_sub(spec, scale, rtm, pre: Change | None, out: Out) -> None:
             + ("" if inside else "; outside it, so the fitted population mean or the normal model is doubtful"))
 
 
-def expected_in_change(data, ctx, rd, scale, sel, rtm, rel, out: Out) -> tuple[Interval, bool]:
+def expected_in_change(data, ctx, rd, scale, sel, rtm, rel, out: Sections) -> tuple[Interval, bool]:
     """The change expected in the analysed change from baseline: the whole RTM when baseline decided
     entry, else the residual bias of the later baseline."""
     if sel.column == "baseline":
@@ -1012,7 +999,7 @@ def material_rule(design, material_sd: float = MATERIAL_SD) -> str:
 
 
 def bias_sub(spec, design, sel, target: Interval, sigma: float, scale, material: bool, verdict: Verdict,
-             by_arm: bool, out: Out, material_sd: float = MATERIAL_SD) -> None:
+             by_arm: bool, out: Sections, material_sd: float = MATERIAL_SD) -> None:
     def t(v):
         return value_text(v, scale, spec.unit)
 
@@ -1129,7 +1116,7 @@ def headline(spec, design, sel, finds, scale, rtm, target, obs, second, ctx, sig
             f"{evidence(spec, design, sel, finds, scale, rtm, target, obs, second, ctx)}")
 
 
-def caveats(ctx, rel, out: Out) -> None:
+def caveats(ctx, rel, out: Sections) -> None:
     if ctx.blinded:
         out.caveats.append("Blinded audit: the observed change is pooled over arms, so it includes any treatment "
                            "effect; the share attributed to regression to the mean is a share of that pooled change.")
@@ -1151,7 +1138,7 @@ _METHOD = ("Selection: the declared entry criterion, else a truncation-edge like
 # ----------------------------------------------------------------------------- the check
 
 
-def no_selection_result(check, data, finds, out: Out):
+def no_selection_result(check, data, finds, out: Sections):
     tested = ", ".join(f"{f.visit} {fmt_p(f.test.p_value)}" for f in finds)
     why = (f"no entry criterion declared; no truncation edge: {tested}" if finds else
            "no entry criterion declared; too few distinct values to look for a truncation edge")
@@ -1172,7 +1159,7 @@ def run(data, ctx: CheckContext):
     spec = data.spec
     if "baseline" not in data.frame.columns:
         raise NotAssessable("the outcome has no baseline visit")
-    out = Out()
+    out = Sections()
     everyone = Readings.of(data, ctx)
     sel, finds = find_selection(spec, everyone, ctx)
     if sel is None:

@@ -11,13 +11,13 @@ from __future__ import annotations
 
 import hashlib
 from pathlib import Path
-from typing import Literal, Optional
+from typing import ClassVar, Literal, Optional
 
 from pydantic import Field, StrictBool, ValidationError, field_validator, model_validator
 
 from ..errors import ProblemLog
-from ..metadata import (METADATA_FILE, Bound, Finite, Name, ResponderRule, Scale, ScaleFacts, StudyInfo, _fix_for,
-                        _location_text, _Strict, _toml_line, ordered_levels, tomllib)
+from ..metadata import (METADATA_FILE, Finite, Name, OutcomeDeclaration, ResponderRule, StudyInfo, _fix_for,
+                        _location_text, _Strict, _toml_line, tomllib)
 
 ReportedAnalysis = Literal["change", "percent-change", "follow-up-adjusted", "follow-up-only", "responder"]
 """The analysis the paper reports (``follow-up-adjusted`` is ANCOVA of follow-up on baseline)."""
@@ -68,13 +68,7 @@ class EntryWindow(_Strict):
         return f"baseline at most {self.upper:g}"
 
 
-class SummaryOutcome(_Strict, ScaleFacts):
-    param: Name
-    label: str = Field(default="", max_length=2000)
-    scale: Scale
-    levels: Optional[list[Finite]] = None
-    bounds: Optional[tuple[Bound, Bound]] = None
-    unit: str = Field(default="", max_length=100)
+class SummaryOutcome(OutcomeDeclaration):
     reported_analysis: ReportedAnalysis
     responder: Optional[ResponderRule] = None
     entry_criterion: Optional[EntryWindow] = None
@@ -83,11 +77,8 @@ class SummaryOutcome(_Strict, ScaleFacts):
     timepoint: str = Field(default="", max_length=200)
     """The follow-up the summaries describe (e.g. "week 12"), printed in the report."""
 
-    @field_validator("levels")
-    @classmethod
-    def _levels_sorted(cls, v):
-        wording = "levels must be two or more distinct codes in increasing order"
-        return ordered_levels(v, wording, wording)
+    LEVELS_TOO_FEW: ClassVar[str] = "levels must be two or more distinct codes in increasing order"
+    LEVELS_UNORDERED: ClassVar[str] = LEVELS_TOO_FEW
 
     @model_validator(mode="after")
     def _consistent(self):

@@ -64,12 +64,18 @@ def test_multiplicative_data_without_small_baselines_are_sound():
     assert res.headline.startswith("Percent change is harmless here")
 
 
-def test_additive_data_with_small_baselines_are_unsupported():
+def _additive_with_small_baselines():
+    """300 participants, baselines uniform on 0.5 to 30, an additive effect of -3 in arm T (seed 0)."""
     rng = np.random.default_rng(0)
     n = 300
     arm = _arms(n)
     b = rng.uniform(0.5, 30, n)
     f = b - 3 * (arm == "T") + rng.normal(0, 2, n)
+    return b, f, arm
+
+
+def test_additive_data_with_small_baselines_are_unsupported():
+    b, f, arm = _additive_with_small_baselines()
     res = run(_data(b, f, arm), UNBLINDED)
     assert res.verdict.value == "unsupported"
     near = _est(res, "Baselines below 5%").value
@@ -276,12 +282,7 @@ def test_changed_sample_size_threshold_changes_the_percent_change_verdict():
     # threshold of 10 times the participants (sample_size_ratio 10) the same data are a caution.
     from auditor.metadata import Thresholds
 
-    rng = np.random.default_rng(0)
-    n = 300
-    arm = _arms(n)
-    b = rng.uniform(0.5, 30, n)
-    f = b - 3 * (arm == "T") + rng.normal(0, 2, n)
-    data = _data(b, f, arm)
+    data = _data(*_additive_with_small_baselines())
     default = run(data, UNBLINDED)
     loose = run(data, CheckContext(seed=7, blinded=False, quick=True, thresholds=Thresholds(sample_size_ratio=10)))
     assert default.verdict.value == "unsupported" and loose.verdict.value == "caution"

@@ -108,30 +108,28 @@ def test_seed_rule_matches_numpy_at_both_ends():
     assert MAX_SEED == 2**32 - 1
 
 
-def _validate_with_study_key(tmp_path, key, value):
-    """``auditor validate`` on a small study whose ``[study]`` table sets ``key`` to ``value``."""
+def _validate_with_study_key(tmp_path, key, value, ok: bool, refusal: str) -> None:
+    """``auditor validate`` on a small study whose ``[study]`` table sets ``key`` to ``value``: valid
+    when ``ok``, else refused with a problem matching ``refusal``."""
     s = Synthetic(params=("SBP",))
     s.meta["study"][key] = value
-    return runner.invoke(app, ["validate", str(s.write(tmp_path / "study"))])
+    res = runner.invoke(app, ["validate", str(s.write(tmp_path / "study"))])
+    if ok:
+        assert res.exit_code == 0, _stderr(res)
+    else:
+        assert_refused(res, [refusal])
 
 
 @pytest.mark.parametrize("seed,ok", [(-1, False), (MAX_SEED + 1, False), (0, True), (MAX_SEED, True)])
 def test_study_toml_seed_follows_the_same_rule(tmp_path, seed, ok):
-    res = _validate_with_study_key(tmp_path, "seed", seed)
-    if ok:
-        assert res.exit_code == 0, _stderr(res)
-    else:
-        assert_refused(res, [r"study\.toml: study\.seed"])
+    _validate_with_study_key(tmp_path, "seed", seed, ok, r"study\.toml: study\.seed")
 
 
 @pytest.mark.parametrize("value,ok", [("2026-13-45", False), ("20260102", False), (0, False),
                                       ("2026-01-02", True)])
 def test_study_toml_analysis_date_follows_the_date_rule(tmp_path, value, ok):
-    res = _validate_with_study_key(tmp_path, "analysis_date", value)
-    if ok:
-        assert res.exit_code == 0, _stderr(res)
-    else:
-        assert_refused(res, [r"study\.toml: study\.analysis_date .*is not a calendar date written YYYY-MM-DD"])
+    _validate_with_study_key(tmp_path, "analysis_date", value, ok,
+                             r"study\.toml: study\.analysis_date .*is not a calendar date written YYYY-MM-DD")
 
 
 def test_study_toml_analysis_date_as_a_toml_date_is_read(tmp_path):
