@@ -19,7 +19,6 @@ from dataclasses import dataclass
 from typing import Callable
 
 import numpy as np
-from scipy import stats
 
 from ..checks.registry import CheckContext
 from ..results import Verdict
@@ -64,33 +63,12 @@ def _prepost(rng, n, ctx):
 def _rtm(selected: bool):
     """No selection (null), or entry at baseline >= its 70th percentile with reliability 0.6 in a
     trial that reports within-arm change as the effect (violation: expected shift -0.46 SD, Barnett
-    et al. 2005)."""
+    et al. 2005); :func:`auditor.validation.rtm_cases.entry_trial`, change planned."""
     def run(rng, n, ctx):
-        import pandas as pd
-
         from ..checks.regression_to_mean import run as check
-        from ..metadata import OutcomeSpec
-        from ..study import OutcomeData
+        from .rtm_cases import entry_trial
 
-        total, mu, sigma, rho = 2 * n, 50.0, 10.0, 0.6
-        cut = mu + sigma * stats.norm.ppf(0.7)
-        kept: list[tuple] = []
-        while len(kept) < total:
-            t = rng.normal(mu, math.sqrt(rho) * sigma, 4 * total)
-            s, b, f = (t + rng.normal(0, math.sqrt(1 - rho) * sigma, 4 * total) for _ in range(3))
-            keep = b >= cut if selected else np.ones(len(b), bool)
-            kept += list(zip(s[keep], b[keep], f[keep]))
-        s, b, f = np.array(kept[:total]).T
-        active = rng.permutation(np.arange(total) % 2)
-        f = f - 2.0 * active
-        spec = OutcomeSpec(param="SIM", scale="continuous", baseline_visit="B", screening_visit="S",
-                           followup_visits=["F"], planned_analysis="change",
-                           effect_basis="within-arm-change" if selected else "between-arm",
-                           entry_criterion={"visit": "B", "operator": ">=", "value": float(cut)} if selected else None)
-        frame = pd.DataFrame({"subject": [f"P{i:05d}" for i in range(total)],
-                              "arm": np.where(active == 1, "Active", "Control"), "screening": s, "baseline": b,
-                              "followup": f, "fu:F": f})
-        return check(OutcomeData(spec, frame, ["Control", "Active"], "Control", "parallel", []), ctx).verdict
+        return check(entry_trial(rng, 2 * n, selected, "change"), ctx).verdict
     return run
 
 

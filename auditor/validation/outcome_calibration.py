@@ -34,7 +34,6 @@ from typing import Callable
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from ..checks.registry import CheckContext
 from ..results import Verdict
@@ -122,28 +121,12 @@ def _rtm(selected: bool):
     Selected: entry at baseline >= its 70th percentile and within-arm change reported as the effect
     (``effect_basis = "within-arm-change"``), which regression to the mean biases in any design, so
     unsupported is the right answer (expected shift -0.46 SD, Barnett et al. 2005). Not selected:
-    the same trial without an entry criterion, between-arm effect."""
+    the same trial without an entry criterion, between-arm effect
+    (:func:`auditor.validation.rtm_cases.entry_trial`)."""
     def make(rng, n):
-        from ..metadata import OutcomeSpec
+        from .rtm_cases import entry_trial
 
-        total, mu, sigma, rho = 2 * n, 50.0, 10.0, 0.6
-        cut = mu + sigma * stats.norm.ppf(0.7)
-        kept: list[np.ndarray] = []
-        count = 0
-        while count < total:
-            t = rng.normal(mu, math.sqrt(rho) * sigma, 4 * total)
-            s, b, f = (t + rng.normal(0, math.sqrt(1 - rho) * sigma, 4 * total) for _ in range(3))
-            keep = b >= cut if selected else np.ones(len(b), bool)
-            kept.append(np.column_stack([s[keep], b[keep], f[keep]]))
-            count += int(keep.sum())
-        s, b, f = np.vstack(kept)[:total].T
-        active = rng.permutation(np.arange(total) % 2)
-        f = f - 2.0 * active
-        spec = OutcomeSpec(param="SIM", scale="continuous", baseline_visit="B", screening_visit="S",
-                           followup_visits=["F"], planned_analysis="follow-up-adjusted",
-                           effect_basis="within-arm-change" if selected else "between-arm",
-                           entry_criterion={"visit": "B", "operator": ">=", "value": float(cut)} if selected else None)
-        return _two_arm(b, f, active, spec, {"screening": s})
+        return entry_trial(rng, 2 * n, selected, "follow-up-adjusted")
     return make
 
 
