@@ -565,7 +565,8 @@ def shape(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
         asks.append("report a proportional-odds analysis of the follow-up score adjusted for baseline")
     verdict = _worst([s.verdict for s in subs])
     if problems:
-        headline = _sentence("; ".join(problems)) + " Means and SDs give no interval, so the grade is at most caution."
+        headline = (_sentence("; ".join(problems))
+                    + " None of these judgements has an interval, so the grade is at most caution.")
     else:
         headline = "No evidence of skew or of a floor or ceiling in the reported means, SDs and quartiles."
     res = _result(cid, spec, verdict, headline, subfindings=subs, estimates=ests, tables=[table],
