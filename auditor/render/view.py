@@ -116,8 +116,9 @@ TABLE_WIDTH_CH = 89
 """A report table's width in digit widths (CSS ``ch``) of its 8.8 pt type: 91 across the A4 text
 block (180 mm), 94 across Letter's, 89 across the screen page's 52 em; column widths are planned
 against the narrowest."""
-CELL_PADDING_CH = 1.5
-"""A cell's left and right padding (5 px each), in ``ch``."""
+CELL_PADDING_CH = 2.0
+"""A cell's left and right padding (5 px each, 1.34 ch) and a margin for the rounding of the widths
+and for a browser's own glyph positioning, in ``ch``."""
 HEADER_WIDEN = 1.1
 """How much wider a header prints than body text: headers are bold (the bold face's digit is 1.09
 times the regular one's, its letters in about the same proportion)."""
