@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import base64
 import math
+import re
 
 from ..references import REFERENCES
 from ..results import Audit, CheckResult, SummaryAudit, Verdict, level_label
@@ -101,12 +102,105 @@ def _is_p_column(name: str) -> bool:
 
 
 def table_view(t) -> dict:
-    """A table's cells as display strings; columns headed p are shown as p-values."""
+    """A table's cells as display strings, with its column widths; columns headed p are shown as
+    p-values."""
     fmt = [p_text if _is_p_column(c) else number for c in t.columns]
     rows = [[fmt[i](c) if i < len(fmt) and _is_number(c) else number(c)
              for i, c in enumerate(row)] for row in t.rows]
     numeric = [_numeric_column(t.rows, i) for i in range(len(t.columns))]
-    return {"title": t.title, "columns": t.columns, "numeric": numeric, "note": t.note, "rows": rows}
+    return {"title": t.title, "columns": t.columns, "numeric": numeric, "note": t.note, "rows": rows,
+            "widths": column_widths(t.columns, rows, numeric)}
+
+
+TABLE_WIDTH_CH = 89
+"""A report table's width in digit widths (CSS ``ch``) of its 8.8 pt type: 91 across the A4 text
+block (180 mm), 94 across Letter's, 89 across the screen page's 52 em; column widths are planned
+against the narrowest."""
+CELL_PADDING_CH = 2.0
+"""A cell's left and right padding (5 px each, 1.34 ch) and a margin for the rounding of the widths
+and for a browser's own glyph positioning, in ``ch``."""
+HEADER_WIDEN = 1.1
+"""How much wider a header prints than body text: headers are bold (the bold face's digit is 1.09
+times the regular one's, its letters in about the same proportion)."""
+TEXT_COLUMN_CAP_CH = 26
+"""A text column needs room for its longest word up to this width; a longer word breaks."""
+_ASCII_WIDTHS = (
+    ("'IJijl", 0.45),
+    (' ,.', 0.5),
+    ('-/:;\\f|', 0.55),
+    ('()[]t', 0.6),
+    ('!r', 0.65),
+    ('"', 0.7),
+    ('*_`s', 0.8),
+    ('?cz', 0.85),
+    ('FLk', 0.9),
+    ('PTYaeovxy', 0.95),
+    ('$0123456789ESbdghnpqu{}', 1.0),
+    ('K', 1.05),
+    ('ABCRVXZ', 1.1),
+    ('U', 1.15),
+    ('DGHN', 1.2),
+    ('&OQ', 1.25),
+    ('#+<=>^w~', 1.3),
+    ('M', 1.35),
+    ('%', 1.5),
+    ('@Wm', 1.55),
+)
+"""The printable ASCII characters by advance width in the report's face (DejaVu Sans, regular), in
+widths of its digit zero, to the nearest 0.05: read from the font's horizontal metrics (hmtx)."""
+CHAR_WIDTH_CH = {c: w for chars, w in _ASCII_WIDTHS for c in chars}
+_ZERO_WIDTH = frozenset("\u200b\u2066\u2067\u2068\u2069")
+"""The soft breaks and bidirectional isolates the renderer adds: they print nothing."""
+_WORD_BREAK = re.compile("[\\s\u200b]+")
+
+
+def text_width_ch(text: str) -> float:
+    """About how wide ``text`` prints in body type, in widths of the digit zero (CSS ``ch``): each
+    ASCII character at its width in the report's face (CHAR_WIDTH_CH), anything else as wide as a
+    digit, the renderer's invisible marks as nothing."""
+    return sum(0.0 if c in _ZERO_WIDTH else CHAR_WIDTH_CH.get(c, 1.0) for c in text)
+
+
+def _longest_word(text: str) -> float:
+    return max((text_width_ch(w) for w in _WORD_BREAK.split(text)), default=0.0)
+
+
+def column_widths(columns: list[str], rows: list[list[str]], numeric: list[bool]) -> list[str] | None:
+    """Each column's share of the table width ("31.8%"), so that the PDF engine can lay the table out
+    with fixed column widths instead of measuring every cell's narrowest and widest size (automatic
+    layout); None when the columns cannot all fit, and the table is then laid out automatically.
+
+    Sizes are estimated from the characters (:func:`text_width_ch`; headers are bold, HEADER_WIDEN
+    wider). A column needs its longest word (at most TEXT_COLUMN_CAP_CH: a longer word breaks, as it
+    would anyway), and a numeric column, never wrapped, its longest value in full; it would like its
+    longest cell and its header on one line. This is how automatic layout shares a table's width
+    (CSS 2.1, 17.5.2.2): when every column gets what it would like, the space left over goes to all
+    columns in proportion to it; otherwise each gets what it needs and the rest is shared in
+    proportion to how much more each would like. The result depends only on the strings, so it is
+    the same for the HTML and the PDF and from run to run."""
+    n = len(columns)
+    if n == 0 or any(len(row) != n for row in rows):
+        return None
+    needs, likes = [], []
+    for i in range(n):
+        head, body = str(columns[i]), [row[i] for row in rows]
+        word = max([HEADER_WIDEN * _longest_word(head)] + [_longest_word(c) for c in body])
+        need = min(word, TEXT_COLUMN_CAP_CH)
+        if numeric[i]:
+            need = max([need] + [text_width_ch(c) for c in body])
+        like = max([need, HEADER_WIDEN * text_width_ch(head)] + [text_width_ch(c) for c in body])
+        needs.append(need + CELL_PADDING_CH)
+        likes.append(like + CELL_PADDING_CH)
+    if sum(likes) <= TABLE_WIDTH_CH:
+        widths = likes
+    else:
+        spare = TABLE_WIDTH_CH - sum(needs)
+        if spare < 0:
+            return None
+        extra = sum(likes) - sum(needs)
+        widths = [need + spare * (like - need) / extra for need, like in zip(needs, likes)]
+    total = sum(widths)
+    return [f"{100 * w / total:.1f}%" for w in widths]
 
 
 def _is_number(c) -> bool:
@@ -152,6 +246,21 @@ def _png_width(png: bytes) -> str:
     return f"{png_size(png)[0] / PNG_DPI:.3f}in"
 
 
+SUBFINDING_COLUMNS = ("Question", "Answer", "Evidence")
+"""The headers of a finding's table of questions, for its column widths."""
+ESTIMATE_COLUMNS = ("Quantity", "Estimate", "95% interval", "p")
+"""The estimates table's headers as far as its widths go (the interval's heading names its level)."""
+
+
+def estimate_widths(estimates: list[dict]) -> list[str] | None:
+    """The column widths of a finding's estimates table (:func:`column_widths`): the quantity, with
+    its unit, is text, and so is its note, on a line of its own (a row of its own here); the estimate,
+    interval and p are numbers."""
+    rows = [[text, e["value"], e["ci"], e["p"]] for e in estimates
+            for text in (e["name"] + (f" ({e['unit']})" if e["unit"] else ""), e["note"] or "")]
+    return column_widths(list(ESTIMATE_COLUMNS), rows, [False, True, True, True])
+
+
 def result_view(r: CheckResult, figure_no: list[int]) -> dict:
     figs = []
     for f in r.figures:
@@ -160,6 +269,10 @@ def result_view(r: CheckResult, figure_no: list[int]) -> dict:
         caption = f.caption if src else f"This figure could not be drawn: {f.problem or 'drawing failed'}."
         figs.append({"number": figure_no[0], "title": f.title, "caption": caption,
                      "src": src or _svg_data_uri(UNDRAWN_SVG), "width": width})
+    subfindings = [{"question": s.question, "verdict": s.verdict.value,
+                    "verdict_class": VERDICT_CLASS[s.verdict], "evidence": s.evidence} for s in r.subfindings]
+    estimates = [{"name": e.name, "value": number(e.value), "ci": _ci(e.lower, e.upper),
+                  "p": p_text(e.p_value), "unit": e.unit, "note": e.note} for e in r.estimates]
     return {
         "check_id": r.check_id,
         "check_title": r.check_title,
@@ -169,11 +282,12 @@ def result_view(r: CheckResult, figure_no: list[int]) -> dict:
         "reason": r.reason,
         "recommendation": r.recommendation,
         "method": r.method,
-        "subfindings": [{"question": s.question, "verdict": s.verdict.value,
-                         "verdict_class": VERDICT_CLASS[s.verdict], "evidence": s.evidence}
-                        for s in r.subfindings],
-        "estimates": [{"name": e.name, "value": number(e.value), "ci": _ci(e.lower, e.upper),
-                       "p": p_text(e.p_value), "unit": e.unit, "note": e.note} for e in r.estimates],
+        "subfindings": subfindings,
+        "subfinding_widths": column_widths(list(SUBFINDING_COLUMNS),
+                                           [[s["question"], s["verdict"], s["evidence"]] for s in subfindings],
+                                           [False, False, False]),
+        "estimates": estimates,
+        "estimate_widths": estimate_widths(estimates),
         "tables": [table_view(t) for t in r.tables],
         "figures": figs,
         "caveats": r.caveats,
