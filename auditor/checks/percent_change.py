@@ -545,11 +545,7 @@ def _rate_cost(fits: _Fits, cost: _Cost, inp: _Inputs, out: _Collect,
                 f"efficiency {fmt(eff)} is not informative", by_arm=True)
         return None
     verdict = _efficiency_verdict(eff, cost.interval, ratio)
-    judged = {Verdict.UNSUPPORTED: f"wholly above the {100 * (ratio - 1):.0f}% threshold of materiality",
-              Verdict.CAUTION: (f"above the {100 * (ratio - 1):.0f}% threshold of materiality at its estimate, but "
-                                "its interval reaches below it" if eff < 1 / ratio else
-                                f"a detectable loss, below the {100 * (ratio - 1):.0f}% threshold of materiality"),
-              Verdict.SOUND: f"no evidence of a cost above the {100 * (ratio - 1):.0f}% threshold"}[verdict]
+    judged = _cost_judgement(verdict, cost.interval, ratio)
     out.sub("efficiency", question, verdict,
             f"percent change needs {_cost_text(eff, cost.interval)} than the {ref_name}, {judged}: efficiency "
             f"{fmt(eff)} (bootstrap {fmt(cost.interval.lower)} to {fmt(cost.interval.upper)}), "
@@ -561,15 +557,31 @@ def _rate_cost(fits: _Fits, cost: _Cost, inp: _Inputs, out: _Collect,
 
 
 def _efficiency_verdict(eff: float, interval: rc.EfficiencyInterval, ratio: float = MATERIAL_SAMPLE_RATIO) -> Verdict:
-    """Unsupported when the whole interval of the sample-size cost 1/efficiency lies above ``ratio``
-    (the efficiency's upper bound below 1/ratio); caution when the cost is above ``ratio`` at its
-    estimate or a loss is detectable (the efficiency's interval below 1); sound otherwise."""
+    """The rule the change-score efficiency sub-finding uses, on the sample-size cost 1/efficiency:
+    unsupported when the cost's whole interval lies above ``ratio`` (the efficiency's upper bound below
+    1/ratio); caution when the cost is above ``ratio`` at its estimate (efficiency below 1/ratio);
+    sound otherwise. A loss that is detectable (the efficiency's interval wholly below 1) but whose
+    estimate is under the threshold is immaterial and stays sound; the evidence says so
+    (:func:`_cost_judgement`)."""
     upper = interval.upper
     if math.isfinite(upper) and upper < 1 / ratio:
         return Verdict.UNSUPPORTED
-    if eff < 1 / ratio or (math.isfinite(upper) and upper < 1):
+    if eff < 1 / ratio:
         return Verdict.CAUTION
     return Verdict.SOUND
+
+
+def _cost_judgement(verdict: Verdict, interval: rc.EfficiencyInterval, ratio: float) -> str:
+    """The words beside the cost: where it lies against the threshold of materiality, and, for a sound
+    verdict, whether a loss is detectable at all (the efficiency's interval wholly below 1)."""
+    threshold = f"{100 * (ratio - 1):.0f}% threshold of materiality"
+    if verdict is Verdict.UNSUPPORTED:
+        return f"wholly above the {threshold}"
+    if verdict is Verdict.CAUTION:
+        return f"above the {threshold} at its estimate, but its interval reaches below it"
+    if math.isfinite(interval.upper) and interval.upper < 1:
+        return f"a detectable loss, but below the {threshold}, so immaterial"
+    return f"no evidence of a cost above the {threshold.removesuffix(' of materiality')}"
 
 
 _EFFECT_NAMES = {

@@ -289,7 +289,9 @@ def test_changed_sample_size_threshold_changes_the_percent_change_verdict():
     assert eff.upper < 1 / 1.1
     assert default.headline.startswith("Percent change is unsupported here: it needs")
     assert "wholly above the 10% threshold of materiality" in default.headline
-    assert "a detectable loss, below the 900% threshold of materiality" in _sub(loose, "efficiency").evidence
+    loose_eff = _sub(loose, "efficiency")
+    assert loose_eff.verdict.value == "sound"  # detectable (interval below 1) but far under a 900% threshold
+    assert "a detectable loss, but below the 900% threshold of materiality, so immaterial" in loose_eff.evidence
     assert "above 10 (sample_size_ratio" in loose.method
 
 
@@ -300,3 +302,18 @@ def test_no_evidence_wording_for_a_baseline_dependence_that_is_not_there():
     assert base.verdict.value == "sound"
     low, high = _est(res, "Spearman correlation of percent change").lower, _est(res, "Spearman correlation").upper
     assert base.evidence.startswith("no evidence that percent change depends on baseline") == (low <= 0 <= high)
+
+
+@pytest.mark.parametrize("eff, lower, upper, expected", [
+    (0.80, 0.70, 0.88, "unsupported"),  # cost 25% (14% to 43%): whole interval above 10%
+    (0.85, 0.75, 0.95, "caution"),      # cost 18% at its estimate, interval reaches 5%
+    (0.95, 0.92, 0.98, "sound"),        # detectable (interval below 1) but 5% at its estimate: immaterial
+    (1.00, 0.90, 1.10, "sound"),        # no detectable loss
+])
+def test_efficiency_rule_matches_the_change_score_rule(eff, lower, upper, expected):
+    # The rule is the change-score efficiency rule on the cost 1/E (thresholds a convention of this tool,
+    # no source): unsupported when 1/E_upper > 1.1, caution when 1/E > 1.1, sound otherwise.
+    from auditor.checks.percent_change import _efficiency_verdict
+    from auditor.stats import relative_change as rc
+    interval = rc.EfficiencyInterval(lower, upper, 200, 0)
+    assert _efficiency_verdict(eff, interval, 1.1).value == expected
