@@ -575,23 +575,28 @@ def selfcheck(
     date: Optional[str] = typer.Option(None, "--date", help="Date printed on the report (default: today)."),
     only: str = typer.Option("", "--only", help="Run only the cases whose id starts with this."),
     force: bool = typer.Option(False, "--force", help="Replace a report already in the output folder."),
+    jobs: int = typer.Option(1, "--jobs", "-j", help="Processes across cases (0: the number of cores); the "
+                             "report is the same at any number."),
 ):
     """Run the validation suite on the installed tool: validation.html, validation.pdf, validation.json."""
     from .render.html import render_view
     from .render.pdf import html_to_pdf
-    from .options import date_problems, only_problems, refuse_if_any, seed_problems
+    from .options import date_problems, jobs_problems, only_problems, refuse_if_any, seed_problems
     from .selfcheck import case_ids, run_selfcheck, selfcheck_view
     from .writeguard import refuse_existing, refuse_unsafe_folder, write_file_set
 
     names = ("validation.html", "validation.pdf", "validation.json")
 
     def body():
-        refuse_if_any(seed_problems(seed), date_problems(date, "--date"), only_problems(only, case_ids()))
+        refuse_if_any(seed_problems(seed), date_problems(date, "--date"), only_problems(only, case_ids()),
+                      jobs_problems(jobs))
         target = refuse_unsafe_folder(output)
         if target.is_dir():
             refuse_existing(target, names, force, "a validation report")
         with err.status("running validation cases") as status:
-            rep = run_selfcheck(full=full, seed=seed, date=date, only=only,
+            from .batch import default_jobs
+
+            rep = run_selfcheck(full=full, seed=seed, date=date, only=only, jobs=jobs or default_jobs(),
                                 progress=lambda cid: status.update(f"done: {cid}"))
         html = render_view("selfcheck.html.j2", selfcheck_view(rep))
         files = dict(zip(names, (html.encode("utf-8"), html_to_pdf(html), rep.to_json().encode("utf-8"))))

@@ -63,27 +63,78 @@ def case_ids() -> list[str]:
 
 
 def run_selfcheck(full: bool = False, seed: int = 20261201, date: str | None = None, only: str = "",
-                  progress=None) -> SelfcheckReport:
+                  progress=None, jobs: int = 1) -> SelfcheckReport:
     """Run every reference case, every simulation case and the per-outcome verdict calibration
-    (quick: few replicates; full: >= 200, 40 for the 2,000-per-arm case)."""
-    ref = []
-    for case in reference_cases():
-        if only and not case.id.startswith(only):
-            continue
-        ref.append(run_reference(case))
-        if progress:
-            progress(case.id)
-    sim = []
-    for case in simulation_cases():
-        if only and not case.id.startswith(only):
-            continue
-        sim.append(run_simulation(case, full, case_seed(seed, case.id)))
-        if progress:
-            progress(case.id)
-    cal = outcome_calibration.calibrate(full, seed, only, progress=progress)
+    (quick: few replicates; full: >= 200, 40 for the 2,000-per-arm case), across ``jobs`` processes.
+
+    Every case draws from a generator seeded by its own id (:func:`case_seed`,
+    :func:`outcome_calibration.row_seed`) and the results are put back in the order of the cases, so
+    the report is the same at any number of jobs (the wall time of each calibration row aside)."""
+    tasks = selfcheck_tasks(full, seed, only)
+    results = run_tasks(tasks, jobs, progress)
+    ref = [r for (kind, _), r in zip(tasks, results) if kind == "reference"]
+    sim = [r for (kind, _), r in zip(tasks, results) if kind == "simulation"]
+    cal = [r for (kind, _), r in zip(tasks, results) if kind == "calibration"]
     return SelfcheckReport("full" if full else "quick", date or dt.date.today().isoformat(), __version__,
                            f"{platform.platform()}; Python {platform.python_version()}", library_versions(), seed,
                            ref, sim, calibration=cal)
+
+
+def selfcheck_tasks(full: bool, seed: int, only: str) -> list[tuple[str, tuple]]:
+    """The cases of one run as (kind, picklable arguments of :func:`run_task`), in report order:
+    reference cases, simulation cases, then the calibration rows."""
+    tasks: list[tuple[str, tuple]] = [("reference", (c.id,)) for c in reference_cases()
+                                      if not only or c.id.startswith(only)]
+    tasks += [("simulation", (c.id, full, case_seed(seed, c.id))) for c in simulation_cases()
+              if not only or c.id.startswith(only)]
+    tasks += [("calibration", (sc_id, n, reps, seed)) for sc_id, n, reps in
+              outcome_calibration.row_plan(full, only)]
+    return tasks
+
+
+def run_task(task: tuple[str, tuple]):
+    """Run one case from its kind and arguments (looked up by id, so a worker process needs nothing
+    but the task)."""
+    kind, args = task
+    if kind == "reference":
+        return run_reference(next(c for c in reference_cases() if c.id == args[0]))
+    if kind == "simulation":
+        case_id, full, case_seed_ = args
+        return run_simulation(next(c for c in simulation_cases() if c.id == case_id), full, case_seed_)
+    sc_id, n, reps, seed = args
+    return outcome_calibration.run_row(outcome_calibration.scenario(sc_id), n, reps, seed)
+
+
+def task_id(task: tuple[str, tuple]) -> str:
+    kind, args = task
+    return f"calibration/{args[0]}/n{args[1]}" if kind == "calibration" else args[0]
+
+
+def run_tasks(tasks: list[tuple[str, tuple]], jobs: int, progress=None) -> list:
+    """Results in the order of ``tasks`` whatever the number of jobs. With several jobs the
+    calibration rows (the slow part) are handed out first, so the processes finish close together."""
+    results: list = [None] * len(tasks)
+    if jobs <= 1 or len(tasks) <= 1:
+        for i, t in enumerate(tasks):
+            results[i] = run_task(t)
+            if progress:
+                progress(task_id(t))
+        return results
+    import warnings
+    from concurrent.futures import ProcessPoolExecutor, as_completed
+
+    from .batch import _use_warning_filters
+
+    order = sorted(range(len(tasks)), key=lambda i: tasks[i][0] != "calibration")
+    with ProcessPoolExecutor(max_workers=min(jobs, len(tasks)), initializer=_use_warning_filters,
+                             initargs=(list(warnings.filters),)) as pool:
+        futures = {pool.submit(run_task, tasks[i]): i for i in order}
+        for fut in as_completed(futures):
+            i = futures[fut]
+            results[i] = fut.result()
+            if progress:
+                progress(task_id(tasks[i]))
+    return results
 
 
 def selfcheck_view(rep: SelfcheckReport) -> dict:

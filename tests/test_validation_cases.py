@@ -70,3 +70,25 @@ def test_pass_rule_fails_a_clearly_broken_case():
     # 9 detections in 20 against a minimum power of 0.80: P(X <= 9) = 0.00056 < 0.001.
     assert not binomial_pass_rule("detection", 0.80, 9, 20).passed
     assert binomial_pass_rule("detection", 0.80, 10, 20).passed
+
+
+@pytest.mark.parametrize("only", ["percent-change/", "housing-cut"])
+def test_selfcheck_report_is_the_same_at_any_number_of_jobs(tmp_path, only):
+    # Every case is seeded by its own id, and results go back in case order: --jobs 2 must give the
+    # bytes of --jobs 1 (same date, seed and installation).
+    paths = []
+    for jobs in ("1", "2"):
+        out = tmp_path / f"j{jobs}"
+        res = CliRunner().invoke(app, ["selfcheck", "-o", str(out), "--date", "2026-01-01", "--only", only,
+                                       "--jobs", jobs])
+        assert res.exit_code == 0, res.output
+        paths.append(out / "validation.json")
+    one, two = (p.read_bytes() for p in paths)
+    assert one == two
+    assert len(json.loads(one)["simulation"] + json.loads(one)["reference"]) >= 2
+
+
+def test_selfcheck_refuses_a_negative_number_of_jobs(tmp_path):
+    res = CliRunner().invoke(app, ["selfcheck", "-o", str(tmp_path / "v"), "--jobs", "-1"])
+    assert res.exit_code == 2 and "--jobs: -1 is not a number of processes" in res.output
+    assert not (tmp_path / "v").exists()

@@ -396,7 +396,7 @@ class _Fits:
     """Every analysis of the treatment effect, fitted on the trial's data."""
 
     planned_design: rc.OlsDesign
-    reference_design: rc.OlsDesign
+    reference_design: rc.OlsDesign | rc.OrdinalDesign
     planned: list[rc.Effect]
     reference: list[rc.Effect]
     others: list[list[rc.Effect]]
@@ -416,7 +416,10 @@ class _Cost:
 
 
 def _designs(inp: _Inputs, spec, responder: np.ndarray | None):
-    """(planned design, reference design, other designs) for the effect comparison."""
+    """(planned design, least-squares reference design, other designs) for the effect comparison.
+    The reference of an ordinal outcome is the proportional-odds ANCOVA (:func:`_ordinal_reference`),
+    tried in :func:`_fit_analyses`; the least-squares reference here stands in when it cannot be
+    fitted."""
     cols = inp.arm_columns
     positive = bool(np.all(inp.b > 0) and np.all(inp.f > 0))
     log_d = rc.log_ancova_design(inp.b, inp.f, cols) if positive else None
@@ -431,6 +434,15 @@ def _designs(inp: _Inputs, spec, responder: np.ndarray | None):
         reference = log_d or raw_d
         others = [d for d in (log_d, raw_d) if d is not None and d is not reference]
     return planned, reference, others
+
+
+def _ordinal_reference(inp: _Inputs, spec, level: float):
+    """(design, effects) of the proportional-odds ANCOVA, the reference analysis of an outcome
+    declared ordinal: it uses only the order of the follow-up levels, which is all an ordinal scale
+    gives. Baseline enters as categories when the levels are declared, else as a spline. Raises the
+    fitter's OrdinalFitError when the model cannot be fitted."""
+    design = rc.ordinal_ancova_design(inp.b, inp.f, inp.arm_columns, categorical_baseline=bool(spec.levels))
+    return design, rc.ordinal_effects(design, level)
 
 
 def _po_reason() -> str | None:
@@ -451,10 +463,17 @@ def _fit_analyses(inp: _Inputs, spec, ctx: CheckContext, responder, out: _Collec
         from ..stats.ordinal import OrdinalFitError
 
         try:
+            if spec.scale == "ordinal":
+                po_d, po_effects = _ordinal_reference(inp, spec, ctx.level)
+                others.insert(0, rc.ols_effects(ref_d, ctx.level))
+                out.cite("mccullagh-1980")
+                return _Fits(planned_d, po_d, rc.ols_effects(planned_d, ctx.level), po_effects, others, "")
             others.append(rc.proportional_odds_effects(inp.b, inp.f, inp.arm_columns, ctx.level))
             out.cite("mccullagh-1980")
         except (OrdinalFitError, ValueError, ArithmeticError, np.linalg.LinAlgError) as exc:
             note = f"The proportional-odds ANCOVA could not be fitted: {getattr(exc, 'reason', exc)}"
+            if spec.scale == "ordinal":
+                note += f"; the {ref_d.analysis} is the reference instead."
     else:
         note = f"The proportional-odds ANCOVA is left out: {reason}."
     return _Fits(planned_d, ref_d, rc.ols_effects(planned_d, ctx.level), rc.ols_effects(ref_d, ctx.level),
@@ -468,7 +487,8 @@ def _measure_cost(fits: _Fits, inp: _Inputs, ctx: CheckContext) -> _Cost:
     j = fits.planned_design.arm_names.index(column)
 
     def statistics(rows):
-        return (rc.t_statistics(fits.planned_design, rows)[j], rc.t_statistics(fits.reference_design, rows)[j])
+        return (rc.t_statistics(fits.planned_design, rows)[j],
+                rc.design_statistics(fits.reference_design, rows)[j])
 
     n_boot = BOOT_QUICK if ctx.quick else BOOT_FULL
     interval = rc.bootstrap_efficiency(statistics, inp.arm, n_boot, ctx.seed, ctx.level)
@@ -496,6 +516,12 @@ def _report_effects(fits: _Fits, cost: _Cost, inp: _Inputs, spec, out: _Collect)
             out.estimates.append(estimate(f"Ratio of geometric means, {label} (log-scale ANCOVA)", r, lo, hi,
                                           e.p_value, by_arm=True,
                                           key=f"percent-change.reference-ratio.contrast-{i}", arm=label))
+        elif ref_name == "proportional-odds ANCOVA":
+            r, lo, hi = e.exp()
+            out.estimates.append(estimate(f"Odds ratio of a higher follow-up, {label} (proportional-odds ANCOVA, "
+                                          f"baseline as {fits.reference_design.baseline_terms})", r, lo, hi,
+                                          e.p_value, by_arm=True,
+                                          key=f"percent-change.reference-odds-ratio.contrast-{i}", arm=label))
         else:
             out.estimates.append(estimate(f"Difference in follow-up, {label} ({ref_name})", e.estimate, e.lower,
                                           e.upper, e.p_value, unit=spec.unit, by_arm=True,
@@ -533,31 +559,44 @@ def _rate_cost(fits: _Fits, cost: _Cost, inp: _Inputs, out: _Collect,
                 f"efficiency {fmt(eff)} is not informative", by_arm=True)
         return None
     verdict = _efficiency_verdict(eff, cost.interval, ratio)
-    judged = {Verdict.UNSUPPORTED: f"wholly above the {100 * (ratio - 1):.0f}% threshold of materiality",
-              Verdict.CAUTION: (f"above the {100 * (ratio - 1):.0f}% threshold of materiality at its estimate, but "
-                                "its interval reaches below it" if eff < 1 / ratio else
-                                f"a detectable loss, below the {100 * (ratio - 1):.0f}% threshold of materiality"),
-              Verdict.SOUND: f"no evidence of a cost above the {100 * (ratio - 1):.0f}% threshold"}[verdict]
+    judged = _cost_judgement(verdict, cost.interval, ratio)
     out.sub("efficiency", question, verdict,
             f"percent change needs {_cost_text(eff, cost.interval)} than the {ref_name}, {judged}: efficiency "
             f"{fmt(eff)} (bootstrap {fmt(cost.interval.lower)} to {fmt(cost.interval.upper)}), "
             f"{_contrast_label(cost.contrast, inp.control)}", by_arm=True)
     effect = (f"whose ratio of geometric means is {fmt_ci(*cost.reference.exp())}" if ref_name == "log-scale ANCOVA"
-              else "of follow-up on baseline")
+              else f"whose odds ratio of a higher follow-up is {fmt_ci(*cost.reference.exp())}"
+              if ref_name == "proportional-odds ANCOVA" else "of follow-up on baseline")
     out.clauses["cost"] = f"it needs {_cost_text(eff, cost.interval)} than the {ref_name} {effect}, {judged}"
     return verdict
 
 
 def _efficiency_verdict(eff: float, interval: rc.EfficiencyInterval, ratio: float = MATERIAL_SAMPLE_RATIO) -> Verdict:
-    """Unsupported when the whole interval of the sample-size cost 1/efficiency lies above ``ratio``
-    (the efficiency's upper bound below 1/ratio); caution when the cost is above ``ratio`` at its
-    estimate or a loss is detectable (the efficiency's interval below 1); sound otherwise."""
+    """The rule the change-score efficiency sub-finding uses, on the sample-size cost 1/efficiency:
+    unsupported when the cost's whole interval lies above ``ratio`` (the efficiency's upper bound below
+    1/ratio); caution when the cost is above ``ratio`` at its estimate (efficiency below 1/ratio);
+    sound otherwise. A loss that is detectable (the efficiency's interval wholly below 1) but whose
+    estimate is under the threshold is immaterial and stays sound; the evidence says so
+    (:func:`_cost_judgement`)."""
     upper = interval.upper
     if math.isfinite(upper) and upper < 1 / ratio:
         return Verdict.UNSUPPORTED
-    if eff < 1 / ratio or (math.isfinite(upper) and upper < 1):
+    if eff < 1 / ratio:
         return Verdict.CAUTION
     return Verdict.SOUND
+
+
+def _cost_judgement(verdict: Verdict, interval: rc.EfficiencyInterval, ratio: float) -> str:
+    """The words beside the cost: where it lies against the threshold of materiality, and, for a sound
+    verdict, whether a loss is detectable at all (the efficiency's interval wholly below 1)."""
+    threshold = f"{100 * (ratio - 1):.0f}% threshold of materiality"
+    if verdict is Verdict.UNSUPPORTED:
+        return f"wholly above the {threshold}"
+    if verdict is Verdict.CAUTION:
+        return f"above the {threshold} at its estimate, but its interval reaches below it"
+    if math.isfinite(interval.upper) and interval.upper < 1:
+        return f"a detectable loss, but below the {threshold}, so immaterial"
+    return f"no evidence of a cost above the {threshold.removesuffix(' of materiality')}"
 
 
 _EFFECT_NAMES = {
@@ -623,7 +662,7 @@ def _responder(inp: _Inputs, spec, ctx: CheckContext, resp: np.ndarray, cost: _C
                      f"{fmt(empirical.interval.lower)} to {fmt(empirical.interval.upper)})")
         if empirical.efficiency > 0:
             clause = (f"the responder rule ({rule_text}) needs {_cost_text(empirical.efficiency, empirical.interval)} "
-                      f"than the {'continuous ANCOVA' if c.scale == 'change' else comparator.removeprefix('the ')} "
+                      f"than the {_empirical_comparator(empirical)} "
                       f"in the trial's own data"
                       + (f", wholly above the {100 * (ratio - 1):.0f}% threshold of materiality"
                          if verdict is Verdict.UNSUPPORTED else "")
@@ -635,6 +674,12 @@ def _responder(inp: _Inputs, spec, ctx: CheckContext, resp: np.ndarray, cost: _C
             f"{ratio:g} against ANCOVA)?", verdict, evidence, by_arm=empirical is not None)
     out.clauses["dichotomy"] = clause
     return _worst(verdict, _responder_baseline(inp, spec, ctx, resp, out))
+
+
+def _empirical_comparator(cost: _Cost) -> str:
+    """The name of the analysis the responder rule was measured against in the trial's own data."""
+    name = cost.reference.analysis
+    return "continuous ANCOVA" if name == "ANCOVA" else name
 
 
 def _dichotomy_verdict(inflation: float, normal_ok: bool, empirical: _Cost | None,
@@ -751,7 +796,9 @@ def run(data, ctx: CheckContext):
                   method="Percent change 100(f - b)/b and log ratio log(f/b) per participant; near zero: baseline "
                          "below 5% of the median. Effects: percent change on arm; ANCOVA of log follow-up on a "
                          "restricted cubic spline of log baseline plus arm, back-transformed to a ratio of "
-                         "geometric means; proportional-odds ANCOVA on a spline of baseline plus arm; efficiency "
+                         "geometric means; proportional-odds ANCOVA on a spline of baseline plus arm (for an outcome "
+                         "declared ordinal the reference analysis, with baseline as categories when the levels are "
+                         "declared); efficiency "
                          "(z / z_ref)^2 with a stratified percentile bootstrap. Responder rules: normal-theory "
                          "inflation phi(z)^2/(Phi(z)(1-Phi(z))) times the efficiency of change against ANCOVA; "
                          "logistic regression of responder status on baseline. Unsupported only when the whole "

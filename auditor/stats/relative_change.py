@@ -337,6 +337,91 @@ def proportional_odds_effects(baseline, followup, arm_columns, level: float = 0.
     return out
 
 
+@dataclass(frozen=True)
+class OrdinalDesign:
+    """A proportional-odds ANCOVA laid out for refitting on resampled rows, like :class:`OlsDesign`:
+    ``X`` holds the baseline columns then the arm indicators (no constant: the cut-points are the
+    intercepts), full length, with ``valid`` marking the usable participants."""
+
+    analysis: str
+    y: np.ndarray
+    X: np.ndarray
+    names: tuple[str, ...]
+    arm_names: tuple[str, ...]
+    valid: np.ndarray
+    baseline_terms: str
+    """How baseline enters: ``categories`` (one indicator per observed value above the lowest) or
+    ``spline`` (a restricted cubic spline)."""
+
+
+def ordinal_ancova_design(baseline, followup, arm_columns, categorical_baseline: bool) -> OrdinalDesign:
+    """Proportional-odds ANCOVA logit P(F >= y_j | b, arm) = alpha_j + g(b) + sum_k c_k [arm = k]
+    (McCullagh 1980), the reference analysis of an ordinal outcome: it uses only the order of the
+    follow-up levels, so no coding of them matters. g(b) is one indicator per observed baseline value
+    above the lowest when ``categorical_baseline`` (a declared ordinal scale: no shape assumed for
+    the baseline), else a restricted cubic spline of baseline."""
+    b = np.asarray(baseline, dtype=float)
+    f = np.asarray(followup, dtype=float)
+    valid = np.isfinite(b) & np.isfinite(f)
+    if categorical_baseline:
+        values = np.unique(b[valid])
+        cols = {f"baseline = {v:g}": (b == v).astype(float) for v in values[1:]}
+        terms = "categories"
+    else:
+        cols = spline_columns(b, choose_knots(b[valid]), "baseline s")
+        terms = "spline"
+    cols.update({k: np.asarray(v, dtype=float) for k, v in arm_columns.items()})
+    X = np.column_stack(list(cols.values()))
+    valid &= np.all(np.isfinite(X), axis=1)
+    return OrdinalDesign("proportional-odds ANCOVA", f, X, tuple(cols), tuple(arm_columns), valid, terms)
+
+
+def _ordinal_fit(design: OrdinalDesign, idx: np.ndarray):
+    """Fit on the rows ``idx``, leaving out baseline columns that are constant there (a baseline
+    category that a resample happens to miss); an arm column must vary."""
+    from .ordinal import fit_proportional_odds
+
+    X = design.X[idx]
+    keep = [j for j, name in enumerate(design.names)
+            if name in design.arm_names or np.ptp(X[:, j]) > 0]
+    return fit_proportional_odds(design.y[idx], X[:, keep], names=[design.names[j] for j in keep])
+
+
+def ordinal_effects(design: OrdinalDesign, level: float = 0.95) -> list[Effect]:
+    """One Effect per arm column: the log odds ratio of a higher follow-up with its Wald interval.
+    Raises the fitter's OrdinalFitError when the model cannot be fitted."""
+    idx = np.flatnonzero(design.valid)
+    fit = _ordinal_fit(design, idx)
+    out = []
+    for name in design.arm_names:
+        w = fit.wald(name, level)
+        out.append(Effect(design.analysis, name, w.estimate, w.se, w.lower, w.upper, w.z, w.p_value, int(idx.size)))
+    return out
+
+
+def ordinal_z_statistics(design: OrdinalDesign, rows: np.ndarray | None = None) -> np.ndarray:
+    """Wald z of the arm columns refitted on the given rows (all valid rows by default); NaN where the
+    resampled model cannot be fitted (a level missing from an arm, separation), which the bootstrap
+    counts as a failed replicate."""
+    from .ordinal import OrdinalFitError
+
+    idx = np.flatnonzero(design.valid) if rows is None else rows[design.valid[rows]]
+    try:
+        fit = _ordinal_fit(design, idx)
+    except (OrdinalFitError, ArithmeticError, np.linalg.LinAlgError):
+        return np.full(len(design.arm_names), np.nan)
+    return np.array([fit.wald(name).z for name in design.arm_names])
+
+
+def design_statistics(design: OlsDesign | OrdinalDesign, rows: np.ndarray | None = None) -> np.ndarray:
+    """Standardised arm effects of either kind of design on the given rows."""
+    return ordinal_z_statistics(design, rows) if isinstance(design, OrdinalDesign) else t_statistics(design, rows)
+
+
+def design_effects(design: OlsDesign | OrdinalDesign, level: float = 0.95) -> list[Effect]:
+    return ordinal_effects(design, level) if isinstance(design, OrdinalDesign) else ols_effects(design, level)
+
+
 # --------------------------------------------------------------------------- efficiency
 
 

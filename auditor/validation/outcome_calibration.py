@@ -286,25 +286,37 @@ def row_ids() -> list[str]:
     return [f"calibration/{sc.id}/n{n}" for sc in SCENARIOS for n in sc.sizes]
 
 
-def calibrate(full: bool, seed: int = 20261201, only: str = "", reps: int | None = None,
-              sizes: tuple[int, ...] | None = None, progress=None) -> list[CalibrationRow]:
-    """Every scenario at its sizes (``sizes`` replaces 100 and 400 for all but the large trial).
+def row_plan(full: bool, only: str = "", reps: int | None = None,
+             sizes: tuple[int, ...] | None = None) -> list[tuple[str, int, int]]:
+    """The rows to run as (scenario id, participants per arm, replicates), in table order
+    (``sizes`` replaces 100 and 400 for all but the large trial).
 
     Quick: :data:`QUICK_REPLICATES` per row (1 for the large trial); full: :data:`FULL_REPLICATES`
     (:data:`LARGE_FULL_REPLICATES` for the 2,000-per-arm case, whose replicates each take seconds);
     ``reps`` overrides both."""
-    rows = []
+    plan = []
     for sc in SCENARIOS:
         large = sc.truth == "large-trial"
         for n in sc.sizes if (large or sizes is None) else sizes:
-            rid = f"calibration/{sc.id}/n{n}"
-            if only and not rid.startswith(only):
+            if only and not f"calibration/{sc.id}/n{n}".startswith(only):
                 continue
-            r = reps or ((LARGE_FULL_REPLICATES if full else LARGE_QUICK_REPLICATES) if large
-                         else (FULL_REPLICATES if full else QUICK_REPLICATES))
-            rows.append(run_row(sc, n, r, seed))
-            if progress:
-                progress(rid)
+            plan.append((sc.id, n, reps or ((LARGE_FULL_REPLICATES if full else LARGE_QUICK_REPLICATES) if large
+                                            else (FULL_REPLICATES if full else QUICK_REPLICATES))))
+    return plan
+
+
+def scenario(scenario_id: str) -> OutcomeScenario:
+    return next(sc for sc in SCENARIOS if sc.id == scenario_id)
+
+
+def calibrate(full: bool, seed: int = 20261201, only: str = "", reps: int | None = None,
+              sizes: tuple[int, ...] | None = None, progress=None) -> list[CalibrationRow]:
+    """Every row of :func:`row_plan`, run one after another."""
+    rows = []
+    for sc_id, n, r in row_plan(full, only, reps, sizes):
+        rows.append(run_row(scenario(sc_id), n, r, seed))
+        if progress:
+            progress(rows[-1].id)
     return rows
 
 

@@ -8,6 +8,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+import statsmodels.api as sm
 
 from auditor.checks.percent_change import run
 from auditor.checks.registry import CheckContext
@@ -290,7 +291,9 @@ def test_changed_sample_size_threshold_changes_the_percent_change_verdict():
     assert eff.upper < 1 / 1.1
     assert default.headline.startswith("Percent change is unsupported here: it needs")
     assert "wholly above the 10% threshold of materiality" in default.headline
-    assert "a detectable loss, below the 900% threshold of materiality" in _sub(loose, "efficiency").evidence
+    loose_eff = _sub(loose, "efficiency")
+    assert loose_eff.verdict.value == "sound"  # detectable (interval below 1) but far under a 900% threshold
+    assert "a detectable loss, but below the 900% threshold of materiality, so immaterial" in loose_eff.evidence
     assert "above 10 (sample_size_ratio" in loose.method
 
 
@@ -301,3 +304,60 @@ def test_no_evidence_wording_for_a_baseline_dependence_that_is_not_there():
     assert base.verdict.value == "sound"
     low, high = _est(res, "Spearman correlation of percent change").lower, _est(res, "Spearman correlation").upper
     assert base.evidence.startswith("no evidence that percent change depends on baseline") == (low <= 0 <= high)
+
+
+@pytest.mark.parametrize("eff, lower, upper, expected", [
+    (0.80, 0.70, 0.88, "unsupported"),  # cost 25% (14% to 43%): whole interval above 10%
+    (0.85, 0.75, 0.95, "caution"),      # cost 18% at its estimate, interval reaches 5%
+    (0.95, 0.92, 0.98, "sound"),        # detectable (interval below 1) but 5% at its estimate: immaterial
+    (1.00, 0.90, 1.10, "sound"),        # no detectable loss
+])
+def test_efficiency_rule_matches_the_change_score_rule(eff, lower, upper, expected):
+    # The rule is the change-score efficiency rule on the cost 1/E (thresholds a convention of this tool,
+    # no source): unsupported when 1/E_upper > 1.1, caution when 1/E > 1.1, sound otherwise.
+    from auditor.checks.percent_change import _efficiency_verdict
+    from auditor.stats import relative_change as rc
+    interval = rc.EfficiencyInterval(lower, upper, 200, 0)
+    assert _efficiency_verdict(eff, interval, 1.1).value == expected
+
+
+def _ordinal_trial(seed=3, n=300):
+    rng = np.random.default_rng(seed)
+    arm = _arms(n)
+    b = rng.integers(1, 6, n).astype(float)
+    f = np.clip(np.round(0.8 * b + 0.7 * (arm == "T") + rng.logistic(0, 1, n)), 1, 5).astype(float)
+    return b, f, arm
+
+
+def test_an_ordinal_outcome_is_judged_against_the_proportional_odds_ancova():
+    # Reference: statsmodels OrderedModel (logit link) on the same design, baseline as categories
+    # (indicators of baseline 2..5) plus the arm indicator. Its coefficients follow
+    # P(Y <= j) = F(cut_j - x'beta), so a positive beta favours higher follow-up, as in our model.
+    from statsmodels.miscmodels.ordinal_model import OrderedModel
+
+    b, f, arm = _ordinal_trial()
+    res = run(_data(b, f, arm, scale="ordinal", levels=[1, 2, 3, 4, 5]), UNBLINDED)
+    X = pd.DataFrame({**{f"b{v:g}": (b == v).astype(float) for v in (2, 3, 4, 5)},
+                      "T": (arm == "T").astype(float)})
+    ref = OrderedModel(pd.Series(f), X, distr="logit").fit(method="newton", disp=False, maxiter=200)
+    odds = _est(res, "Odds ratio of a higher follow-up, T vs C (proportional-odds ANCOVA, baseline as categories)")
+    assert abs(np.log(odds.value) - ref.params["T"]) < 1e-4
+    z_ref = ref.params["T"] / ref.bse["T"]
+    table = next(t for t in res.tables if t.id == "percent-change-effects")
+    po_row = next(r for r in table.rows if r[0] == "proportional-odds ANCOVA (reference)")
+    assert abs(po_row[6] - z_ref) < 1e-3 * abs(z_ref)
+    # The efficiency is (z_planned / z_ref)^2 with z_planned the t of percent change on arm (OLS).
+    pc = 100 * (f - b) / b
+    t_pc = sm.OLS(pc, sm.add_constant((arm == "T").astype(float))).fit().tvalues[1]
+    assert abs(_est(res, "Efficiency of percent change").value - (t_pc / z_ref) ** 2) < 1e-3
+    eff = _sub(res, "efficiency")
+    assert "than the proportional-odds ANCOVA" in eff.evidence
+    assert "Reference: proportional-odds ANCOVA" in table.note
+
+
+def test_a_continuous_outcome_keeps_the_log_scale_reference():
+    b, f, arm = _multiplicative()
+    res = run(_data(b, f, arm), UNBLINDED)
+    table = next(t for t in res.tables if t.id == "percent-change-effects")
+    assert "Reference: log-scale ANCOVA" in table.note
+    assert any(r[0] == "proportional-odds ANCOVA" for r in table.rows)

@@ -282,3 +282,31 @@ def test_responder_on_baseline_matches_statsmodels_and_recovers_a_known_slope():
 def test_recoding_shift_moves_codes_by_one():
     assert rc.recoding_shift([1, 2, 3, 4, 5]) == -1.0
     assert rc.recoding_shift([0, 1, 2, 3, 4]) == 1.0
+
+
+def test_ordinal_ancova_refit_on_rows_matches_orderedmodel():
+    # Reference: statsmodels OrderedModel (logit) fitted on the same rows and columns. The resample
+    # leaves out every participant with baseline 5, so that category's indicator is constant there
+    # and must be dropped, as the bootstrap does.
+    import pandas as pd
+    from statsmodels.miscmodels.ordinal_model import OrderedModel
+
+    from auditor.stats.relative_change import ordinal_ancova_design, ordinal_effects, ordinal_z_statistics
+
+    rng = np.random.default_rng(11)
+    n = 240
+    arm = (np.arange(n) % 2).astype(float)
+    b = rng.integers(1, 6, n).astype(float)
+    f = np.clip(np.round(0.7 * b + 0.6 * arm + rng.logistic(0, 1, n)), 1, 5)
+    design = ordinal_ancova_design(b, f, {"arm[T]": arm}, categorical_baseline=True)
+    assert design.names == ("baseline = 2", "baseline = 3", "baseline = 4", "baseline = 5", "arm[T]")
+    full = OrderedModel(pd.Series(f), design.X, distr="logit").fit(method="newton", disp=False, maxiter=200)
+    e = ordinal_effects(design)[0]
+    assert abs(e.estimate - full.params.iloc[4]) < 1e-5 and abs(e.se - full.bse.iloc[4]) < 1e-4
+    rows = np.flatnonzero(b < 5)
+    sub = OrderedModel(pd.Series(f[rows]), design.X[rows][:, [0, 1, 2, 4]], distr="logit").fit(
+        method="newton", disp=False, maxiter=200)
+    z = ordinal_z_statistics(design, rows)[0]
+    assert abs(z - sub.params.iloc[3] / sub.bse.iloc[3]) < 1e-3
+    spline = ordinal_ancova_design(b + rng.normal(0, 0.3, n), f, {"arm[T]": arm}, categorical_baseline=False)
+    assert spline.baseline_terms == "spline" and spline.names[-1] == "arm[T]"
