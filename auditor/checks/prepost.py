@@ -14,7 +14,6 @@ from __future__ import annotations
 import warnings
 
 import numpy as np
-from statsmodels.nonparametric.smoothers_lowess import lowess
 
 from ..references import cite
 from ..results import Figure, SubFinding, Table, Verdict, level_label
@@ -45,6 +44,8 @@ def baseline_slope(df, arms, control, level: float = 0.95) -> tuple[float, float
 
 def smooth_curve(x: np.ndarray, y: np.ndarray, points: int = 60) -> tuple[list[float], list[float]]:
     """A LOWESS smooth (Cleveland 1979, frac 2/3; 3 robustness iterations, none for very discrete x)."""
+    from statsmodels.nonparametric.smoothers_lowess import lowess  # deferred: only this smooth needs it
+
     grid = np.linspace(np.min(x), np.max(x), points)
     if len(np.unique(x)) < 4:
         return [], []

@@ -9,7 +9,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-import statsmodels.api as sm
 from scipy import stats
 
 
@@ -54,7 +53,9 @@ def fit_ols(y, columns: dict[str, np.ndarray], intercept: bool = True) -> Linear
         raise ValueError("the design matrix is singular (a covariate is constant or collinear)")
     if len(y) <= X.shape[1]:
         raise ValueError(f"{len(y)} observations are too few for {X.shape[1]} parameters")
-    res = sm.OLS(y, X).fit()
+    from statsmodels.regression.linear_model import OLS  # deferred: only fits need it
+
+    res = OLS(y, X).fit()
     return LinearFit(tuple(names), np.asarray(res.params), np.asarray(res.bse), float(res.df_resid),
                      float(res.ssr), len(y), np.asarray(res.fittedvalues), np.asarray(res.resid),
                      float(res.llf))

@@ -94,14 +94,15 @@ def fit_log_linear(y, columns: dict[str, np.ndarray], offset=None, level: float 
 
     Raises ``ArithmeticError`` when the fit does not converge or gives non-finite numbers; other
     warnings of the fitting routine are kept in ``notes``."""
-    import statsmodels.api as sm
+    from statsmodels.genmod.families import Poisson
+    from statsmodels.genmod.generalized_linear_model import GLM
 
     y = np.asarray(y, dtype=float)
     names = ["intercept", *columns]
     X = np.column_stack([np.ones(len(y)), *[np.asarray(c, dtype=float) for c in columns.values()]])
     with fit_notes() as notes:
-        res = sm.GLM(y, X, family=sm.families.Poisson(),
-                     offset=None if offset is None else np.asarray(offset, dtype=float)).fit(cov_type="HC0")
+        res = GLM(y, X, family=Poisson(),
+                  offset=None if offset is None else np.asarray(offset, dtype=float)).fit(cov_type="HC0")
     converged = bool(getattr(res, "converged", True))
     if not converged or not np.all(np.isfinite(res.params)) or not np.all(np.isfinite(res.bse)):
         raise ArithmeticError("the log-linear count model did not converge")
@@ -152,10 +153,11 @@ class RatioShift:
 def _poisson_scores(y, X, offset):
     """(coefficients, bread A = X' diag(mu) X, per-participant scores x_i (y_i - mu_i)) of a Poisson
     log-linear fit by maximum likelihood."""
-    import statsmodels.api as sm
+    from statsmodels.genmod.families import Poisson
+    from statsmodels.genmod.generalized_linear_model import GLM
 
     with fit_notes():
-        res = sm.GLM(y, X, family=sm.families.Poisson(), offset=offset).fit()
+        res = GLM(y, X, family=Poisson(), offset=offset).fit()
     if not bool(getattr(res, "converged", True)) or not np.all(np.isfinite(res.params)):
         raise ArithmeticError("the log-linear count model did not converge")
     eta = X @ res.params + (0.0 if offset is None else offset)

@@ -713,8 +713,9 @@ def responder_on_baseline(baseline, responder, level: float = 0.95, points: int 
     stays inside (0, 1). Raises ValueError when every participant has the same status or the fit
     separates perfectly.
     """
-    import statsmodels.api as sm
+    from statsmodels.discrete.discrete_model import Logit
     from statsmodels.tools.sm_exceptions import PerfectSeparationError
+    from statsmodels.tools.tools import add_constant
 
     x = np.asarray(baseline, dtype=float)
     r = np.asarray(responder, dtype=float)
@@ -724,9 +725,9 @@ def responder_on_baseline(baseline, responder, level: float = 0.95, points: int 
         raise ValueError("every participant has the same responder status")
     if np.ptp(x) == 0:
         raise ValueError("baseline is the same for every participant")
-    X = sm.add_constant(x)
+    X = add_constant(x)
     try:
-        res = sm.Logit(r, X).fit(disp=0, maxiter=100)
+        res = Logit(r, X).fit(disp=0, maxiter=100)
     except (PerfectSeparationError, np.linalg.LinAlgError) as exc:
         raise ValueError(f"the logistic fit failed ({exc})") from None
     if not res.mle_retvals.get("converged", False):

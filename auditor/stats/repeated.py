@@ -43,7 +43,7 @@ def fit_post_baseline_model(frame: pd.DataFrame, visit_columns: list[str], arms:
 
     Raises ``ArithmeticError`` when the REML fit does not converge or gives non-finite effects;
     other warnings of the fitting routine are kept in ``notes``."""
-    import statsmodels.api as sm
+    from statsmodels.regression.mixed_linear_model import MixedLM
 
     long = frame[["arm", "baseline", *visit_columns]].copy()
     long["pid"] = np.arange(len(long))
@@ -58,7 +58,7 @@ def fit_post_baseline_model(frame: pd.DataFrame, visit_columns: list[str], arms:
     names = list(cols)
     X = np.column_stack([cols[k] for k in names])
     with fit_notes() as notes:
-        res = sm.MixedLM(long["y"].to_numpy(dtype=float), X, groups=long["pid"].to_numpy()).fit(reml=True)
+        res = MixedLM(long["y"].to_numpy(dtype=float), X, groups=long["pid"].to_numpy()).fit(reml=True)
     params, bse = np.asarray(res.fe_params), np.asarray(res.bse_fe)
     if not bool(getattr(res, "converged", True)) or not (np.all(np.isfinite(params)) and np.all(np.isfinite(bse))):
         raise ArithmeticError("the longitudinal model (post-baseline visits as responses) did not converge")

@@ -77,9 +77,10 @@ def _boxcox_log_profile() -> float:
     prof = boxcox_profile(f, b, {}, grid=np.round(np.arange(-1, 2.0001, 0.01), 4))
     # scipy's MLE of the power for the ratio f/b (no regressor) is a different model; compare instead the
     # profile log-likelihood at lambda = 0 with an independent OLS computation on the log scale.
-    import statsmodels.api as sm
+    from statsmodels.regression.linear_model import OLS
+    from statsmodels.tools.tools import add_constant
 
-    res = sm.OLS(np.log(f), sm.add_constant(np.log(b))).fit()
+    res = OLS(np.log(f), add_constant(np.log(b))).fit()
     n = len(f)
     ll0 = -n / 2 * np.log(res.ssr / n) - np.sum(np.log(f))
     i = int(np.argmin(np.abs(np.asarray(prof.grid))))
@@ -208,11 +209,11 @@ for _z, _rho in ((0.0, 0.5), (1.0, 0.8), (-1.5, 0.3)):
 
 def _spector(name: str):
     def compute() -> float:
-        import statsmodels.api as sm
+        from statsmodels.datasets import spector
 
         from ..stats.logistic import fit_logistic
 
-        d = sm.datasets.spector.load_pandas()
+        d = spector.load_pandas()
         fit = fit_logistic(d.endog.to_numpy(), {c: d.exog[c].to_numpy() for c in ("GPA", "TUCE", "PSI")})
         return fit.loglik if name == "loglik" else float(fit.coef[fit.index(name) if name != "const" else 0])
     return compute

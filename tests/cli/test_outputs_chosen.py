@@ -13,7 +13,7 @@ import pytest
 
 import auditor.cli as cli
 from auditor.cli import app
-from auditor.figures import PNG_DPI, png_size, to_png
+from auditor.figures import PNG_DPI, encode_png, png_size, to_png
 from auditor.pipeline import AuditOptions, audit_study
 from auditor.render.jsonout import findings_json
 from auditor.results import Figure
@@ -140,6 +140,27 @@ def test_figure_png_is_reproducible_opaque_and_untagged():
     width, height = png_size(png)
     # Drawn at 5.2 x 3.4 inches and cropped to its content: at most that many pixels at PNG_DPI.
     assert 0.6 * 5.2 * PNG_DPI < width <= 5.2 * PNG_DPI + 2 and 0.6 * 3.4 * PNG_DPI < height <= 3.4 * PNG_DPI + 2
+
+
+def test_png_encoder_round_trips_through_an_independent_decoder():
+    import io
+    import zlib
+
+    import numpy as np
+    from PIL import Image
+
+    rgb = np.random.default_rng(5).integers(0, 256, size=(7, 11, 3), dtype=np.uint8)
+    rgb[2:5] = 255  # runs of white, as in a figure
+    png = encode_png(rgb)
+    with Image.open(io.BytesIO(png)) as im:  # Pillow's PNG decoder checks signature, chunk CRCs and zlib stream
+        im.load()
+        assert im.mode == "RGB" and im.size == (11, 7)
+        assert np.array_equal(np.asarray(im), rgb)
+    assert png_size(png) == (11, 7)
+    # one IDAT; each row starts with filter type 0 (PNG specification, section 9.2)
+    idat = png[png.index(b"IDAT") + 4:png.index(b"IEND") - 8]
+    rows = np.frombuffer(zlib.decompress(idat), np.uint8).reshape(7, 1 + 33)
+    assert (rows[:, 0] == 0).all()
 
 
 def test_validate_imports_no_renderer_or_model_library():
