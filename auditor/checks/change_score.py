@@ -24,7 +24,8 @@ from ..stats.diagnostics import (at_bound_tolerance, bound_shares, boxcox_lr_pva
                                  granularity,
                                  holm_adjust, share_at_bound, skewness, slope_test, spread_trend_test)
 from ..stats.efficiency import compare_with_ci, empirical_ratio, own_cost
-from ..stats.linear import arm_indicators, f_test, fit_ols
+from ..stats.effects import NO_ARMS, ArmCoding, arm_coding
+from ..stats.linear import f_test, fit_ols
 from ..stats.rtm import edge_test_scale, truncation_edge_test
 from ..stats.splines import choose_knots
 from .common import arms_present, complete_pairs, estimate, fmt, fmt_ci, fmt_p, result, thin
@@ -453,13 +454,13 @@ FLEXIBLE_ROWS = ("ANCOVA, spline baseline", "ANCOVA, baseline as categories")
 
 def analyses_table(df, arms, control, model: BaselineModel, level: float = 0.95):
     effects = _analyses(df, arms, control, model, level)
-    rows = [[e.analysis, e.contrast, e.estimate, e.se, e.lower, e.upper, e.p_value] for e in effects]
+    rows = [[e.analysis, e.arm, e.estimate, e.se, e.lower, e.upper, e.p_value] for e in effects]
     table = Table("analyses", "Treatment effect under each analysis, fitted on the same participants",
                   ["Analysis", "Arm vs control", "Effect", "SE", "lower", "upper", "p"], rows,
                   note="Effects on the outcome's scale (follow-up difference); ANCOVA with spline baseline is "
                        "the recommended reference.", by_arm=True)
-    se = {(e.analysis, e.contrast): e.se for e in effects}
-    contrast = effects[0].contrast
+    se = {(e.analysis, e.arm): e.se for e in effects}
+    contrast = effects[0].arm
     flexible = next(a for a in FLEXIBLE_ROWS if (a, contrast) in se)
     ratio_anc = empirical_ratio(se[("change score", contrast)], se[(flexible, contrast)])
     ratio_fu = empirical_ratio(se[("change score", contrast)], se[("follow-up only", contrast)])
@@ -484,7 +485,8 @@ def ordinal_alternative(df, arms, control, model: BaselineModel, level: float = 
     """
     from ..stats import ordinal as po
 
-    cols = {**model.columns(df["baseline"].to_numpy()), **arm_indicators(df["arm"].to_numpy(), arms, control)}
+    coding = arm_coding(df["arm"].to_numpy(), arms, control)
+    cols = {**model.columns(df["baseline"].to_numpy()), **coding.columns}
     names = list(cols)
     X = np.column_stack([cols[k] for k in names])
     y = df["followup"].to_numpy()
@@ -495,18 +497,19 @@ def ordinal_alternative(df, arms, control, model: BaselineModel, level: float = 
     ref = {k: v[0] for k, v in model.columns(np.array([model.reference(df["baseline"])])).items()}
     rows, trans = [], []
     quartiles = sorted(set(np.quantile(y, [0.25, 0.5, 0.75]).tolist()))
-    for arm_name in [k for k in names if k.startswith("arm[")]:
+    for contrast in coding.contrasts:
+        arm_name = contrast.column
         w = fit.wald(arm_name, level)
-        rows.append(["proportional-odds ANCOVA (log odds ratio)", arm_name[4:-1], w.estimate, w.se, w.lower, w.upper,
+        rows.append(["proportional-odds ANCOVA (log odds ratio)", contrast.arm, w.estimate, w.se, w.lower, w.upper,
                      w.p_value])
-        conc = po.concordance_exact(fit, _vector(names, ref, None), arm_name, level)
-        trans.append([f"{arm_name[4:-1]} vs {control}", "concordance probability", conc.estimate, conc.lower,
+        conc = po.concordance_exact(fit, _vector(names, ref, coding, None), arm_name, level)
+        trans.append([contrast.label, "concordance probability", conc.estimate, conc.lower,
                       conc.upper])
         check = po.proportional_odds_check(y, X, arm_name, names=names, fit=fit)
-        trans.append([f"{arm_name[4:-1]} vs {control}", "proportional-odds check: heterogeneity chi-square "
+        trans.append([contrast.label, "proportional-odds check: heterogeneity chi-square "
                       f"on {check.df} df (p {check.p_value:.3f}, approximate)", check.heterogeneity_chi2, None, None])
     for arm in arms:
-        x = _vector(names, ref, arm)
+        x = _vector(names, ref, coding, arm)
         mean, med = po.predicted_mean(fit, x, level), po.predicted_median(fit, x, level)
         trans.append([arm, "mean follow-up at median baseline", mean.estimate, mean.lower, mean.upper])
         trans.append([arm, "median follow-up at median baseline", med.estimate, med.lower, med.upper])
@@ -521,9 +524,10 @@ def ordinal_alternative(df, arms, control, model: BaselineModel, level: float = 
     return rows, table, ""
 
 
-def _vector(names, ref, arm):
-    return np.array([ref[k] if not k.startswith("arm[") else float(arm is not None and k == f"arm[{arm}]")
-                     for k in names])
+def _vector(names, ref, coding: ArmCoding, arm):
+    """The design row of a participant at the reference baseline on ``arm`` (None: the control)."""
+    values = {**ref, **coding.indicator_values(arm)}
+    return np.array([values[k] for k in names])
 
 
 def heterogeneity_part(df, arms, control, level: float = 0.95):
@@ -557,7 +561,7 @@ def repeated_caveat_and_fit(data, ctx, arms):
 
     visits = [c for c in data.frame.columns if c.startswith("fu:")]
     fit = fit_post_baseline_model(data.frame, visits, arms, data.control_arm, ctx.level)
-    rows = [[row.visit, row.contrast, row.estimate, row.se, row.lower, row.upper, row.p_value] for row in fit.effects]
+    rows = [[row.visit, row.arm, row.estimate, row.se, row.lower, row.upper, row.p_value] for row in fit.effects]
     notes = [f"The longitudinal model's fit warned: {n}." for n in fit.notes]
     return Table("repeated", "Post-baseline visits as responses, baseline as a covariate only",
                  ["Visit", "Arm vs control", "Effect", "SE", "lower", "upper", "p"], rows, by_arm=True), notes
@@ -566,7 +570,7 @@ def repeated_caveat_and_fit(data, ctx, arms):
 # ----------------------------------------------------------------------------- figures
 
 
-def _figures(data, df, arms, flex_fit, model: BaselineModel, seed):
+def _figures(data, df, arms, coding: ArmCoding, flex_fit, model: BaselineModel, seed):
     spec = data.spec
     shown, note = thin(df.assign(fitted=flex_fit.fitted, resid=flex_fit.resid), seed)
     unit = f" ({spec.unit})" if spec.unit else ""
@@ -578,12 +582,10 @@ def _figures(data, df, arms, flex_fit, model: BaselineModel, seed):
     curves = []
     for arm in (arms or [None]):
         design = dict(basis)
-        for k in names:
-            if k.startswith("arm["):
-                design[k] = np.full(len(grid), 1.0 if k == f"arm[{arm}]" else 0.0)
+        design.update({k: np.full(len(grid), v) for k, v in coding.indicator_values(arm).items()})
         X = np.column_stack([np.ones(len(grid))] + [design[k] for k in names])
         curves.append({"label": f"fit: {arm}" if arm else "flexible fit", "x": grid.tolist(),
-                       "y": (X @ flex_fit.coef).tolist()})
+                       "y": (X @ flex_fit.params).tolist()})
     by_arm = bool(arms)
     figs = [
         Figure("fu-vs-baseline", "scatter_identity", f"{spec.display_name}: follow-up against baseline",
@@ -718,7 +720,8 @@ def run(data, ctx: CheckContext):
     df = complete_pairs(data, min_n=20)
     arms = arms_present(df, data, ctx)
     control = data.control_arm if data.control_arm in arms else (arms[0] if arms else None)
-    arm_cols = arm_indicators(df["arm"].to_numpy(), arms, control) if len(arms) > 1 else {}
+    coding = arm_coding(df["arm"].to_numpy(), arms, control) if len(arms) > 1 else NO_ARMS
+    arm_cols = coding.columns
     model = baseline_model(df["baseline"].to_numpy())
 
     b, f = df["baseline"].to_numpy(), df["followup"].to_numpy()
@@ -780,7 +783,7 @@ def run(data, ctx: CheckContext):
             caveats += notes
     verdict, headline = decide(data.spec.planned_analysis, parts, r, cost, ctx.thresholds.sample_size_ratio)
     return result(check, data, verdict, headline, subfindings=[p.sub for p in parts.values()],
-                  estimates=estimates, tables=tables, figures=_figures(data, df, arms, flex_fit, model, ctx.seed),
+                  estimates=estimates, tables=tables, figures=_figures(data, df, arms, coding, flex_fit, model, ctx.seed),
                   caveats=caveats, recommendation=recommended_analysis(data.spec.planned_analysis, verdict, parts),
                   references=cite(["frison-pocock-1992", "clifton-2019", "vickers-altman-2001",
                                    "durrleman-simon-1989", "stone-koo-1985", "box-cox-1964", "glejser-1969", "mchorney-tarlov-1995",

@@ -17,7 +17,7 @@ import numpy as np
 
 from ..references import add_reference, cite
 from ..results import Figure, SubFinding, Table, Verdict
-from ..stats.linear import arm_indicators
+from ..stats.effects import NO_ARMS, ArmCoding, arm_coding
 from ..stats.rates import coefficient_shift, fit_log_linear, log_baseline_rate, time_spread, times_differ_by_arm
 from .common import arms_present, estimate, fmt, fmt_ci, fmt_p, result, thin
 from .registry import CheckContext, NotAssessable, register
@@ -62,13 +62,14 @@ def _participants(data):
     return df
 
 
-def _design(df, arms, control, with_baseline: bool) -> dict[str, np.ndarray]:
+def _design(df, arms, control, with_baseline: bool) -> tuple[dict[str, np.ndarray], ArmCoding]:
+    """The rate model's columns (log baseline rate, then the arm indicators) and the arms' coding."""
     cols = {}
     if with_baseline:
         cols["log baseline rate"] = log_baseline_rate(df["baseline"], df["baseline_time"])
-    if len(arms) > 1:
-        cols.update(arm_indicators(df["arm"].to_numpy(), arms, control))
-    return cols
+    coding = arm_coding(df["arm"].to_numpy(), arms, control) if len(arms) > 1 else NO_ARMS
+    cols.update(coding.columns)
+    return cols, coding
 
 
 def _scaling(df, cols, ctx):
@@ -94,7 +95,7 @@ def _rate_model(df, cols, ctx):
     return fit_log_linear(df["followup"], cols, offset=np.log(df["followup_time"]), level=ctx.level)
 
 
-def _comparisons(df, arms, control, cols, rate, ctx) -> tuple[list[dict], tuple[str, ...]]:
+def _comparisons(df, coding: ArmCoding, cols, rate, ctx) -> tuple[list[dict], tuple[str, ...]]:
     """Each active arm against control: the rate ratio (from ``rate``, the rate model) and the count
     ratio (the same model without the offset), fitted on the same participants; and what the count
     model's fit warned about."""
@@ -102,12 +103,11 @@ def _comparisons(df, arms, control, cols, rate, ctx) -> tuple[list[dict], tuple[
     if "log baseline rate" in counts_cols:  # the analysis that ignores time adjusts for the baseline count
         counts_cols["log baseline rate"] = np.log(df["baseline"].to_numpy() + 0.5)
     count = fit_log_linear(df["followup"], counts_cols, level=ctx.level)
-    ref = control if control is not None else arms[0]
     offset = np.log(df["followup_time"].to_numpy(dtype=float))
-    return [{"name": f"{a} vs {ref}", "rate": rate.ratio(f"arm[{a}]"), "count": count.ratio(f"arm[{a}]"),
-             "shift": coefficient_shift(df["followup"], counts_cols, cols, f"arm[{a}]", offset_b=offset,
+    return [{"name": c.label, "rate": rate.ratio(c.column), "count": count.ratio(c.column),
+             "shift": coefficient_shift(df["followup"], counts_cols, cols, c.column, offset_b=offset,
                                         level=ctx.level)}
-            for a in arms if a != ref], count.notes
+            for c in coding.contrasts], count.notes
 
 
 def _fit_caveats(notes: list[str]) -> list[str]:
@@ -132,15 +132,16 @@ def _figure(df, arms, spec, ctx, expected) -> Figure:
                   by_arm=bool(arms))
 
 
-def _expected_rates(fit, arms, cols) -> list[dict]:
+def _expected_rates(fit, arms, cols, coding: ArmCoding) -> list[dict]:
     """Per arm, the rate at the median baseline rate under the rate model ``fit`` (for the figure)."""
     base = float(np.median(cols["log baseline rate"])) if "log baseline rate" in cols else 0.0
-    coef = dict(zip(fit.names, fit.coef))
+    coef = dict(zip(fit.names, fit.params))
     lin0 = coef["intercept"] + coef.get("log baseline rate", 0.0) * base
     labels = arms if arms else ["all participants"]
     out = []
     for a in labels:
-        out.append({"label": a, "rate": math.exp(lin0 + coef.get(f"arm[{a}]", 0.0))})
+        column = coding.column_of(a)
+        out.append({"label": a, "rate": math.exp(lin0 + (coef[column] if column is not None else 0.0))})
     return out
 
 
@@ -155,7 +156,7 @@ def run(data, ctx: CheckContext):
     df = _participants(data)
     arms = arms_present(df, data, ctx)
     with_baseline = "baseline" in df.columns
-    cols = _design(df, arms, data.control_arm, with_baseline)
+    cols, coding = _design(df, arms, data.control_arm, with_baseline)
     spread = time_spread(df["followup_time"])
     rate = _rate_model(df, cols, ctx)
 
@@ -200,7 +201,7 @@ def run(data, ctx: CheckContext):
         h, p = times_differ_by_arm(df["followup_time"], df["arm"])
         arm_differs = p < ARM_TIME_ALPHA and not spread.equal
         tables.append(_time_table(df, arms))
-        comparisons, count_notes = _comparisons(df, arms, data.control_arm, cols, rate, ctx)
+        comparisons, count_notes = _comparisons(df, coding, cols, rate, ctx)
         fit_warnings += count_notes
         rows = []
         for i, c in enumerate(comparisons, 1):
@@ -248,7 +249,7 @@ def run(data, ctx: CheckContext):
                                "cannot be judged without unblinding"))
     verdict, headline = _verdict(spread, spread_text, arm_differs, material, comparisons, scale_ok,
                                  _arm_view(ctx, data, arms), threshold)
-    figure = _figure(df, arms, spec, ctx, _expected_rates(rate, arms, cols))
+    figure = _figure(df, arms, spec, ctx, _expected_rates(rate, arms, cols, coding))
     return result(check, data, verdict, headline, subfindings=subs, estimates=estimates, tables=tables,
                   figures=[figure], caveats=caveats + _fit_caveats(fit_warnings),
                   recommendation=recommended_analysis(verdict),

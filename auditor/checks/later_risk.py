@@ -24,7 +24,7 @@ from scipy import stats
 
 from ..references import add_reference, cite
 from ..results import Figure, SubFinding, Table, Verdict
-from ..stats.linear import arm_indicators
+from ..stats.effects import arm_coding
 from ..stats.logistic import (INTERCEPT, ChiSquarePartition, ExtremumTest, LogisticFit, LRTest,
                               SeparationError, block_columns, bootstrap_lowest_point, chi_square_partition,
                               coefficient_ratio, contrast, fit_logistic, interior_extremum, lr_test, risk_band)
@@ -515,7 +515,7 @@ def risk_inputs(data, ctx: CheckContext) -> RiskInputs:
         if len(arms) > 1:
             df = df[df["arm"].isin(arms)].reset_index(drop=True)
             adjust = {k: df[k].to_numpy(dtype=float) for k in adjust}
-            adjust.update(arm_indicators(df["arm"].to_numpy(), arms, data.control_arm))
+            adjust.update(arm_coding(df["arm"].to_numpy(), arms, data.control_arm).columns)
             arm_adjusted = True
     return RiskInputs(df["event"].to_numpy(dtype=float), df["followup"].to_numpy(dtype=float),
                       df["baseline"].to_numpy(dtype=float), adjust, arm_adjusted, len(frame) - len(df), notes)

@@ -25,7 +25,7 @@ from ..references import REFERENCES, add_reference, cite
 from ..results import Figure, Table, Verdict, level_label
 from ..stats import relative_change as rc
 from ..stats.correlation import spearman
-from ..stats.linear import arm_indicators
+from ..stats.effects import NO_ARMS, ArmCoding, ArmContrast, ArmEffect, arm_coding
 from .common import Sections, arms_present, estimate, fmt, fmt_ci, result
 from .registry import CheckContext, NotAssessable, register
 
@@ -99,7 +99,7 @@ class _Inputs:
     arm: np.ndarray | None
     """Arm labels, only in an unblinded parallel-group audit with at least two arms."""
     arms: list[str]
-    arm_columns: dict[str, np.ndarray]
+    coding: ArmCoding
     control: str | None
     uses_percent: bool
 
@@ -125,17 +125,13 @@ def _inputs(data, ctx: CheckContext) -> _Inputs:
     uses_percent = spec.planned_analysis == "percent-change" or (
         spec.responder is not None and spec.responder.basis == "percent-change")
     if len(arms) < 2:
-        return _Inputs(df["baseline"].to_numpy(float), df["followup"].to_numpy(float), None, [], {}, None,
+        return _Inputs(df["baseline"].to_numpy(float), df["followup"].to_numpy(float), None, [], NO_ARMS, None,
                        uses_percent)
     df = df[df["arm"].isin(arms)].reset_index(drop=True)
     control = data.control_arm if data.control_arm in arms else arms[0]
     arm = df["arm"].to_numpy(object)
     return _Inputs(df["baseline"].to_numpy(float), df["followup"].to_numpy(float), arm, arms,
-                   arm_indicators(arm, arms, control), control, uses_percent)
-
-
-def _contrast_label(column: str, control: str) -> str:
-    return f"{column[4:-1]} vs {control}" if column.startswith("arm[") else column
+                   arm_coding(arm, arms, control), control, uses_percent)
 
 
 def _pct(x: float) -> str:
@@ -253,19 +249,18 @@ def _recoding(inp: _Inputs, spec, ctx: CheckContext, out: _Collect) -> Verdict:
                      float(np.nanmean(pc)) if np.isfinite(pc).any() else None])
     out.tables.append(Table("percent-change-recoding", "Percent change under two equally valid codings (pooled)",
                             ["Coding", "Codes", "Undefined", "Mean percent change"], rows))
-    by_arm = bool(inp.arm_columns) and rows[1][3] is not None
+    by_arm = bool(inp.coding.contrasts) and rows[1][3] is not None
     if by_arm:
-        first = next(iter(inp.arm_columns))
-        e1 = rc.ols_effects(rc.percent_change_design(inp.b, inp.f, inp.arm_columns), ctx.level)[0]
-        e2 = rc.ols_effects(rc.percent_change_design(b2, f2, inp.arm_columns), ctx.level)[0]
+        e1 = rc.ols_effects(rc.percent_change_design(inp.b, inp.f, inp.coding), ctx.level)[0]
+        e2 = rc.ols_effects(rc.percent_change_design(b2, f2, inp.coding), ctx.level)[0]
         a, c = e1.estimate, e2.estimate
-        what = f"difference in mean percent change, {_contrast_label(first, inp.control)}"
+        what = f"difference in mean percent change, {e1.label}"
         out.estimates += [estimate("Percent-change effect, declared codes", a, e1.lower, e1.upper, e1.p_value,
                                    unit="%", by_arm=True, key="percent-change.code-shift.declared",
-                                   arm=_contrast_label(first, inp.control)),
+                                   arm=e1.label),
                           estimate(f"Percent-change effect, codes shifted by {shift:+g}", c, e2.lower, e2.upper,
                                    e2.p_value, unit="%", by_arm=True, key="percent-change.code-shift.shifted",
-                                   arm=_contrast_label(first, inp.control))]
+                                   arm=e1.label)]
     else:
         a, c = rows[0][3], rows[1][3]
         what = "pooled mean percent change"
@@ -395,11 +390,11 @@ def _scatter(inp: _Inputs, ins: rc.Instability, spec) -> Figure:
 class _Fits:
     """Every analysis of the treatment effect, fitted on the trial's data."""
 
-    planned_design: rc.OlsDesign
-    reference_design: rc.OlsDesign | rc.OrdinalDesign
-    planned: list[rc.Effect]
-    reference: list[rc.Effect]
-    others: list[list[rc.Effect]]
+    planned_design: rc.RefitDesign
+    reference_design: rc.RefitDesign
+    planned: list[ArmEffect]
+    reference: list[ArmEffect]
+    others: list[list[ArmEffect]]
     ordinal_note: str
     """Why the proportional-odds row is missing ('' when it is present)."""
 
@@ -408,8 +403,8 @@ class _Fits:
 class _Cost:
     """The planned analysis against its reference, for the most informative contrast."""
 
-    contrast: str
-    reference: rc.Effect
+    contrast: ArmContrast
+    reference: ArmEffect
     efficiency: float
     interval: rc.EfficiencyInterval
     informative: bool
@@ -420,7 +415,7 @@ def _designs(inp: _Inputs, spec, responder: np.ndarray | None):
     The reference of an ordinal outcome is the proportional-odds ANCOVA (:func:`_ordinal_reference`),
     tried in :func:`_fit_analyses`; the least-squares reference here stands in when it cannot be
     fitted."""
-    cols = inp.arm_columns
+    cols = inp.coding
     positive = bool(np.all(inp.b > 0) and np.all(inp.f > 0))
     log_d = rc.log_ancova_design(inp.b, inp.f, cols) if positive else None
     raw_d = rc.raw_ancova_design(inp.b, inp.f, cols)
@@ -441,7 +436,7 @@ def _ordinal_reference(inp: _Inputs, spec, level: float):
     declared ordinal: it uses only the order of the follow-up levels, which is all an ordinal scale
     gives. Baseline enters as categories when the levels are declared, else as a spline. Raises the
     fitter's OrdinalFitError when the model cannot be fitted."""
-    design = rc.ordinal_ancova_design(inp.b, inp.f, inp.arm_columns, categorical_baseline=bool(spec.levels))
+    design = rc.ordinal_ancova_design(inp.b, inp.f, inp.coding, categorical_baseline=bool(spec.levels))
     return design, rc.ordinal_effects(design, level)
 
 
@@ -468,7 +463,7 @@ def _fit_analyses(inp: _Inputs, spec, ctx: CheckContext, responder, out: _Collec
                 others.insert(0, rc.ols_effects(ref_d, ctx.level))
                 out.cite("mccullagh-1980")
                 return _Fits(planned_d, po_d, rc.ols_effects(planned_d, ctx.level), po_effects, others, "")
-            others.append(rc.proportional_odds_effects(inp.b, inp.f, inp.arm_columns, ctx.level))
+            others.append(rc.proportional_odds_effects(inp.b, inp.f, inp.coding, ctx.level))
             out.cite("mccullagh-1980")
         except (OrdinalFitError, ValueError, ArithmeticError, np.linalg.LinAlgError) as exc:
             note = f"The proportional-odds ANCOVA could not be fitted: {getattr(exc, 'reason', exc)}"
@@ -483,8 +478,8 @@ def _fit_analyses(inp: _Inputs, spec, ctx: CheckContext, responder, out: _Collec
 def _measure_cost(fits: _Fits, inp: _Inputs, ctx: CheckContext) -> _Cost:
     """Efficiency of the planned analysis for the contrast the reference shows most clearly."""
     k = int(np.argmax([abs(e.statistic) for e in fits.reference]))
-    column = fits.reference[k].contrast
-    j = fits.planned_design.arm_names.index(column)
+    contrast = fits.reference_design.contrasts[k]
+    j = fits.planned_design.contrasts.index(contrast)
 
     def statistics(rows):
         return (rc.t_statistics(fits.planned_design, rows)[j],
@@ -493,15 +488,15 @@ def _measure_cost(fits: _Fits, inp: _Inputs, ctx: CheckContext) -> _Cost:
     n_boot = BOOT_QUICK if ctx.quick else BOOT_FULL
     interval = rc.bootstrap_efficiency(statistics, inp.arm, n_boot, ctx.seed, ctx.level)
     eff = rc.relative_efficiency(fits.planned[k].statistic, fits.reference[k].statistic)
-    return _Cost(column, fits.reference[k], eff, interval, abs(fits.reference[k].statistic) >= INFORMATIVE_Z)
+    return _Cost(contrast, fits.reference[k], eff, interval, abs(fits.reference[k].statistic) >= INFORMATIVE_Z)
 
 
 def _report_effects(fits: _Fits, cost: _Cost, inp: _Inputs, spec, out: _Collect) -> None:
     rows = []
     for effects in [fits.planned, fits.reference, *fits.others]:
         for e in effects:
-            ref = next(r for r in fits.reference if r.contrast == e.contrast)
-            rows.append(_effect_row(e, inp.control, rc.relative_efficiency(e.statistic, ref.statistic), e is ref))
+            ref = next(r for r in fits.reference if r.arm == e.arm)
+            rows.append(_effect_row(e, rc.relative_efficiency(e.statistic, ref.statistic), e is ref))
     ref_name = fits.reference_design.analysis
     out.tables.append(Table(
         "percent-change-effects", "The treatment effect under each analysis",
@@ -510,7 +505,7 @@ def _report_effects(fits: _Fits, cost: _Cost, inp: _Inputs, spec, out: _Collect)
         note=(f"Reference: {ref_name}. Efficiency: (z / z_ref)^2, the squared ratio of standardised effects; "
               "participants needed is its inverse. " + fits.ordinal_note).strip(), by_arm=True))
     for i, e in enumerate(fits.reference, 1):
-        label = _contrast_label(e.contrast, inp.control)
+        label = e.label
         if ref_name == "log-scale ANCOVA":
             r, lo, hi = e.exp()
             out.estimates.append(estimate(f"Ratio of geometric means, {label} (log-scale ANCOVA)", r, lo, hi,
@@ -527,10 +522,10 @@ def _report_effects(fits: _Fits, cost: _Cost, inp: _Inputs, spec, out: _Collect)
                                           e.upper, e.p_value, unit=spec.unit, by_arm=True,
                                           key=f"percent-change.reference-difference.contrast-{i}", arm=label))
     out.estimates.append(estimate(
-        f"Efficiency of {fits.planned_design.analysis} vs {ref_name}, {_contrast_label(cost.contrast, inp.control)}",
+        f"Efficiency of {fits.planned_design.analysis} vs {ref_name}, {cost.contrast.label}",
         cost.efficiency, cost.interval.lower, cost.interval.upper,
         note=f"percentile bootstrap within arm, {cost.interval.replicates} replicates", by_arm=True,
-        key="percent-change.planned-efficiency", arm=_contrast_label(cost.contrast, inp.control)))
+        key="percent-change.planned-efficiency", arm=cost.contrast.label))
 
 
 def _cost_text(eff: float, interval: rc.EfficiencyInterval) -> str:
@@ -563,7 +558,7 @@ def _rate_cost(fits: _Fits, cost: _Cost, inp: _Inputs, out: _Collect,
     out.sub("efficiency", question, verdict,
             f"percent change needs {_cost_text(eff, cost.interval)} than the {ref_name}, {judged}: efficiency "
             f"{fmt(eff)} (bootstrap {fmt(cost.interval.lower)} to {fmt(cost.interval.upper)}), "
-            f"{_contrast_label(cost.contrast, inp.control)}", by_arm=True)
+            f"{cost.contrast.label}", by_arm=True)
     effect = (f"whose ratio of geometric means is {fmt_ci(*cost.reference.exp())}" if ref_name == "log-scale ANCOVA"
               else f"whose odds ratio of a higher follow-up is {fmt_ci(*cost.reference.exp())}"
               if ref_name == "proportional-odds ANCOVA" else "of follow-up on baseline")
@@ -608,11 +603,11 @@ _EFFECT_NAMES = {
 }
 
 
-def _effect_row(e: rc.Effect, control: str, efficiency: float, is_reference: bool) -> list:
+def _effect_row(e: ArmEffect, efficiency: float, is_reference: bool) -> list:
     name, exponentiate = _EFFECT_NAMES[e.analysis]
     est, lo, hi = e.exp() if exponentiate else (e.estimate, e.lower, e.upper)
     needed = 1 / efficiency if efficiency > 0 else None
-    return [e.analysis + (" (reference)" if is_reference else ""), _contrast_label(e.contrast, control), name,
+    return [e.analysis + (" (reference)" if is_reference else ""), e.label, name,
             est, lo, hi, e.statistic, efficiency, needed]
 
 
@@ -768,7 +763,7 @@ def run(data, ctx: CheckContext):
         r = spec.responder
         responder = rc.responder_indicator(inp.b, inp.f, r.basis, r.threshold, r.direction)
     cost = None
-    if inp.arm_columns:
+    if inp.coding.contrasts:
         out.cite("durrleman-simon-1989", "noether-1955", "efron-tibshirani-1993")
         fits = _fit_analyses(inp, spec, ctx, responder, out)
         cost = _measure_cost(fits, inp, ctx)
@@ -784,7 +779,7 @@ def run(data, ctx: CheckContext):
         out.caveats.append("Counts observed over unequal follow-up times call for rates (a model with the "
                            "exposure time as offset); no exposure time is available, so this check treats the "
                            "count as measured over a common period.")
-    if not inp.arm_columns:
+    if not inp.coding.contrasts:
         out.caveats.append("No treatment effects are estimated: the audit is blinded or has fewer than two arms, "
                            "so only pooled diagnostics are shown.")
     verdict = _worst(*verdicts)

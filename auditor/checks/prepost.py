@@ -18,7 +18,8 @@ import numpy as np
 from ..references import cite
 from ..results import Figure, SubFinding, Table, Verdict, level_label
 from ..stats.correlation import pearson, spearman
-from ..stats.linear import adjusted_slope, arm_indicators
+from ..stats.effects import arm_coding
+from ..stats.linear import adjusted_slope
 from .common import arms_present, complete_pairs, estimate, fmt_ci, result, thin
 from .registry import CheckContext, register
 
@@ -38,7 +39,7 @@ def baseline_slope(df, arms, control, level: float = 0.95) -> tuple[float, float
     followup = a + b * baseline + sum_k c_k [arm = k] + error, fitted by least squares; the CI is
     t-based. With no arms (blinded or single-arm) the arm terms are omitted.
     """
-    cols = arm_indicators(df["arm"].to_numpy(), arms, control) if len(arms) > 1 else {}
+    cols = arm_coding(df["arm"].to_numpy(), arms, control).columns if len(arms) > 1 else {}
     return adjusted_slope(df["followup"].to_numpy(), df["baseline"].to_numpy(), cols, level)
 
 

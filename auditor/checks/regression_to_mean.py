@@ -732,9 +732,8 @@ def selection_section(sel, finds, n_kept, n_excluded, out: Sections, share_out: 
 
 def population_section(spec, scale, sel, out: Sections, level: float = 0.95) -> None:
     fit = scale.fit
-    q = stats.norm.ppf(0.5 + level / 2)
-    lo, hi = fit.mu - q * fit.se_mu, fit.mu + q * fit.se_mu
-    s_lo, s_hi = fit.sigma - q * fit.se_sigma, fit.sigma + q * fit.se_sigma
+    _, lo, hi = fit.ci("mu", level)
+    _, s_lo, s_hi = fit.ci("sigma", level)
     if scale.log:
         out.estimates += [
             estimate("Geometric mean of the unselected population (truncated-normal MLE)", math.exp(fit.mu),

@@ -15,29 +15,13 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .linear import LinearFit, arm_indicators, f_test, fit_ols
+from .effects import ArmCoding, ArmEffect, arm_coding, arm_effect
+from .linear import LinearFit, f_test, fit_ols
 from .splines import SplinePlan, flexible_basis
 
 
-@dataclass(frozen=True)
-class Effect:
-    analysis: str
-    contrast: str
-    estimate: float
-    se: float
-    lower: float
-    upper: float
-    p_value: float
-    df: float
-
-
-def _effects(fit: LinearFit, analysis: str, arm_cols: dict, level: float = 0.95) -> list[Effect]:
-    out = []
-    for name in arm_cols:
-        est, lo, hi = fit.ci(name, level)
-        out.append(Effect(analysis, name[4:-1], est, float(fit.se[fit.index(name)]), lo, hi, fit.p_value(name),
-                          fit.df_resid))
-    return out
+def _effects(fit: LinearFit, analysis: str, coding: ArmCoding, level: float = 0.95) -> list[ArmEffect]:
+    return [arm_effect(analysis, c, fit, level) for c in coding.contrasts]
 
 
 def spline_columns(baseline, plan: SplinePlan) -> dict:
@@ -47,7 +31,7 @@ def spline_columns(baseline, plan: SplinePlan) -> dict:
 
 @dataclass(frozen=True)
 class AnalysisSet:
-    effects: list[Effect]
+    effects: list[ArmEffect]
     linear: LinearFit
     spline: LinearFit
 
@@ -57,19 +41,20 @@ def fit_analyses(baseline, followup, arm, arms: list[str], control: str, plan: S
     """Fit the four analyses; arms must have at least two levels present; t intervals at ``level``."""
     b = np.asarray(baseline, dtype=float)
     f = np.asarray(followup, dtype=float)
-    cols = arm_indicators(arm, arms, control)
+    coding = arm_coding(arm, arms, control)
+    cols = coding.columns
     fu = fit_ols(f, dict(cols))
     ch = fit_ols(f - b, dict(cols))
     lin = fit_ols(f, {"baseline": b, **cols})
     spl = fit_ols(f, {**spline_columns(b, plan), **cols})
-    effects = (_effects(fu, "follow-up only", cols, level) + _effects(ch, "change score", cols, level)
-               + _effects(lin, "ANCOVA, linear baseline", cols, level)
-               + _effects(spl, "ANCOVA, spline baseline", cols, level))
+    effects = (_effects(fu, "follow-up only", coding, level) + _effects(ch, "change score", coding, level)
+               + _effects(lin, "ANCOVA, linear baseline", coding, level)
+               + _effects(spl, "ANCOVA, spline baseline", coding, level))
     return AnalysisSet(effects, lin, spl)
 
 
 def fit_analyses_categorical(baseline, followup, arm, arms: list[str], control: str, category_cols: dict,
-                             level: float = 0.95) -> list[Effect]:
+                             level: float = 0.95) -> list[ArmEffect]:
     """The four analyses with the flexible ANCOVA taking baseline as categories instead of a spline.
 
     For a baseline with few distinct values, Y1 = a + sum_j g_j [Y0 = v_j] + d*arm + e (one indicator
@@ -80,12 +65,13 @@ def fit_analyses_categorical(baseline, followup, arm, arms: list[str], control: 
     baseline, which spans any function of a baseline with that many values).
     """
     b, f = np.asarray(baseline, dtype=float), np.asarray(followup, dtype=float)
-    cols = arm_indicators(arm, arms, control)
-    out: list[Effect] = []
+    coding = arm_coding(arm, arms, control)
+    cols = coding.columns
+    out: list[ArmEffect] = []
     for name, y, extra in (("follow-up only", f, {}), ("change score", f - b, {}),
                            ("ANCOVA, linear baseline", f, {"baseline": b}),
                            ("ANCOVA, baseline as categories", f, category_cols)):
-        out += _effects(fit_ols(y, {**extra, **cols}), name, cols, level)
+        out += _effects(fit_ols(y, {**extra, **cols}), name, coding, level)
     return out
 
 
@@ -103,7 +89,8 @@ def linearity_test(baseline, followup, other_columns: dict, plan: SplinePlan):
 def interaction_test(baseline, followup, arm, arms, control):
     """Treatment-by-baseline interaction in the ANCOVA: F test of arm x baseline product terms."""
     b = np.asarray(baseline, dtype=float)
-    cols = arm_indicators(arm, arms, control)
+    coding = arm_coding(arm, arms, control)
+    cols = coding.columns
     centred = b - b.mean()
     main = fit_ols(followup, {"baseline": centred, **cols})
     inter = fit_ols(followup, {"baseline": centred, **cols,

@@ -29,9 +29,8 @@ def spread_trend_test(resid, x) -> TrendTest:
     resid = np.asarray(resid, dtype=float)
     x = np.asarray(x, dtype=float)
     fit = fit_ols(np.abs(resid), {"x": x})
-    est = float(fit.coef[1])
-    t = est / float(fit.se[1])
-    return TrendTest(est, t, float(2 * stats.t.sf(abs(t), fit.df_resid)), len(x))
+    w = fit.wald("x")
+    return TrendTest(w.estimate, w.z, w.p_value, len(x))
 
 
 def boxcox_transform(y, lam: float):
@@ -197,9 +196,8 @@ def slope_test(baseline, followup, other_columns: dict, null: float = 1.0, level
     fit = fit_ols(np.asarray(followup, dtype=float), {"baseline": np.asarray(baseline, dtype=float),
                                                         **other_columns})
     est, lo, hi = fit.ci("baseline", level)
-    se = float(fit.se[fit.index("baseline")])
-    t = (est - null) / se
-    return SlopeTest(est, se, lo, hi, float(2 * stats.t.sf(abs(t), fit.df_resid)), null)
+    se = fit.std_error("baseline")
+    return SlopeTest(est, se, lo, hi, fit.two_sided_p((est - null) / se), null)
 
 
 def category_columns(baseline, levels) -> dict[str, np.ndarray]:

@@ -11,11 +11,15 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
+from .fitrecord import FitRecord
+
 
 @dataclass(frozen=True)
-class LinearFit:
+class LinearFit(FitRecord):
+    """A least-squares fit: named coefficients with t inference on the residual degrees of freedom."""
+
     names: tuple[str, ...]
-    coef: np.ndarray
+    params: np.ndarray
     se: np.ndarray
     df_resid: float
     rss: float
@@ -24,19 +28,9 @@ class LinearFit:
     resid: np.ndarray
     loglik: float
 
-    def index(self, name: str) -> int:
-        return self.names.index(name)
-
-    def ci(self, name: str, level: float = 0.95) -> tuple[float, float, float]:
-        """(estimate, lower, upper) from the t distribution on the residual df."""
-        i = self.index(name)
-        q = stats.t.ppf(0.5 + level / 2, self.df_resid)
-        return float(self.coef[i]), float(self.coef[i] - q * self.se[i]), float(self.coef[i] + q * self.se[i])
-
-    def p_value(self, name: str) -> float:
-        i = self.index(name)
-        t = self.coef[i] / self.se[i]
-        return float(2 * stats.t.sf(abs(t), self.df_resid))
+    @property
+    def reference_df(self) -> float:
+        return self.df_resid
 
     @property
     def sigma(self) -> float:
@@ -100,7 +94,7 @@ def slope_with_se(y, x, level: float = 0.95) -> tuple[float, float, float, float
     """
     fit = fit_ols(np.asarray(y, float), {"x": np.asarray(x, float)})
     est, lo, hi = fit.ci("x", level)
-    return est, float(fit.se[fit.index("x")]), lo, hi, fit.n
+    return est, fit.std_error("x"), lo, hi, fit.n
 
 
 def mean_t_interval(d, level: float = 0.95) -> tuple[float, float, float, float, int]:
@@ -116,9 +110,3 @@ def mean_t_interval(d, level: float = 0.95) -> tuple[float, float, float, float,
     m = float(np.mean(d))
     return m, m - q * se, m + q * se, se, n
 
-
-def arm_indicators(arm: np.ndarray, arms: list[str], control: str | None) -> dict[str, np.ndarray]:
-    """0/1 columns for each non-control arm (treatment coding against the control)."""
-    arm = np.asarray(arm, dtype=object)
-    ref = control if control is not None else arms[0]
-    return {f"arm[{a}]": (arm == a).astype(float) for a in arms if a != ref}

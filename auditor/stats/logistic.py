@@ -26,6 +26,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import linalg, special, stats
 
+from .fitrecord import FitRecord
 from .lrtest import LRTest, likelihood_ratio  # noqa: F401  (LRTest is part of this module's interface)
 
 INTERCEPT = "(intercept)"
@@ -44,11 +45,12 @@ class SeparationError(ValueError):
 
 
 @dataclass(frozen=True)
-class LogisticFit:
-    """A fitted logistic model: named coefficients, their covariance and the maximised log-likelihood."""
+class LogisticFit(FitRecord):
+    """A fitted logistic model: named coefficients, their covariance and the maximised log-likelihood
+    (normal-theory Wald inference)."""
 
     names: tuple[str, ...]
-    coef: np.ndarray
+    params: np.ndarray
     cov: np.ndarray
     loglik: float
     n: int
@@ -68,17 +70,8 @@ class LogisticFit:
     def se(self) -> np.ndarray:
         return np.sqrt(np.diag(self.cov))
 
-    def index(self, name: str) -> int:
-        return self.names.index(name)
-
     def indices(self, names) -> list[int]:
         return [self.index(n) for n in names]
-
-    def wald_ci(self, name: str, level: float = 0.95) -> tuple[float, float, float]:
-        """(estimate, lower, upper) with a normal-theory Wald interval."""
-        i = self.index(name)
-        q = stats.norm.ppf(0.5 + level / 2)
-        return float(self.coef[i]), float(self.coef[i] - q * self.se[i]), float(self.coef[i] + q * self.se[i])
 
 
 def log_likelihood(y: np.ndarray, eta: np.ndarray) -> float:
@@ -303,7 +296,7 @@ def risk_band(fit: LogisticFit, rows: np.ndarray, level: float = 0.95) -> RiskBa
     X = np.atleast_2d(np.asarray(rows, dtype=float))
     if X.shape[1] != fit.n_params:
         raise ValueError(f"rows have {X.shape[1]} columns; the model has {fit.n_params}")
-    eta = X @ fit.coef
+    eta = X @ fit.params
     se = np.sqrt(np.maximum(np.einsum("ij,jk,ik->i", X, fit.cov, X), 0.0))
     z = stats.norm.ppf(0.5 + level / 2)
     return RiskBand(eta, se, special.expit(eta), special.expit(eta - z * se), special.expit(eta + z * se))
@@ -317,7 +310,7 @@ def contrast(fit: LogisticFit, weights: dict[str, float] | np.ndarray) -> tuple[
             c[fit.index(name)] = w
     else:
         c = np.asarray(weights, dtype=float)
-    return float(c @ fit.coef), float(np.sqrt(max(c @ fit.cov @ c, 0.0)))
+    return float(c @ fit.params), float(np.sqrt(max(c @ fit.cov @ c, 0.0)))
 
 
 def coefficient_ratio(fit: LogisticFit, numerator: str, denominator: str,
@@ -329,7 +322,7 @@ def coefficient_ratio(fit: LogisticFit, numerator: str, denominator: str,
     r -/+ z_{(1+level)/2} sqrt(var(r)).
     """
     i, j = fit.index(denominator), fit.index(numerator)
-    bl, be = fit.coef[i], fit.coef[j]
+    bl, be = fit.params[i], fit.params[j]
     r = be / bl
     var = (fit.cov[j, j] - 2 * r * fit.cov[i, j] + r * r * fit.cov[i, i]) / (bl * bl)
     half = stats.norm.ppf(0.5 + level / 2) * math.sqrt(max(var, 0.0))
@@ -361,7 +354,7 @@ def bootstrap_lowest_point(y, columns: dict[str, np.ndarray], term_names: list[s
         except (ValueError, RuntimeError):
             failed += 1
             continue
-        found.append(grid[int(np.argmin(basis_grid @ fit.coef[li]))])
+        found.append(grid[int(np.argmin(basis_grid @ fit.params[li]))])
     if len(found) < min_success * resamples:
         return None, None, failed
     lo, hi = np.quantile(found, [0.5 - level / 2, 0.5 + level / 2])
@@ -437,7 +430,7 @@ def interior_extremum(fit: LogisticFit, names, grid: np.ndarray, basis: np.ndarr
     grid = np.asarray(grid, dtype=float)
     B = np.atleast_2d(np.asarray(basis, dtype=float))
     idx = fit.indices(names)
-    b, V = fit.coef[idx], fit.cov[np.ix_(idx, idx)]
+    b, V = fit.params[idx], fit.cov[np.ix_(idx, idx)]
     f = B @ b
     sign = 1.0 if kind == "minimum" else -1.0
     k = int(np.argmin(sign * f))

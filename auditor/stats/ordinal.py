@@ -36,6 +36,7 @@ from typing import Sequence
 import numpy as np
 from scipy import linalg, optimize, special, stats
 
+from .fitrecord import FitRecord, WaldTest
 from .lrtest import LRTest, likelihood_ratio
 
 __all__ = [
@@ -89,20 +90,6 @@ class OrdinalFitError(ValueError):
 # --------------------------------------------------------------------------
 # Result containers
 # --------------------------------------------------------------------------
-
-
-@dataclass(frozen=True)
-class WaldTest:
-    """Wald z-test and normal-theory confidence interval for one slope."""
-
-    name: str
-    estimate: float
-    se: float
-    z: float
-    p_value: float
-    lower: float
-    upper: float
-    level: float
 
 
 @dataclass(frozen=True)
@@ -245,7 +232,7 @@ class _Curvature:
 
 
 @dataclass(frozen=True, eq=False)
-class OrdinalFit:
+class OrdinalFit(FitRecord):
     """A proportional-odds fit, P(Y >= levels[j] | x) = expit(alpha[j-1] + x'beta).
 
     Always converged unless the caller passed raise_on_nonconvergence=False
@@ -257,7 +244,8 @@ class OrdinalFit:
     with positive weight and ``weight_total`` their summed weights.
     ``gradient_norm`` is max |score| at the estimate on the reported scale and
     ``newton_decrement`` is g' J^{-1} g there (twice the predicted remaining
-    gain in log-likelihood).
+    gain in log-likelihood). Its :class:`~auditor.stats.fitrecord.FitRecord` parameters are the slopes
+    ``beta`` (normal-theory Wald inference), addressed by name or position.
     """
 
     levels: np.ndarray
@@ -286,7 +274,15 @@ class OrdinalFit:
     def n_params(self) -> int:
         return self.alpha.size + self.beta.size
 
-    def _index(self, i: int | str) -> int:
+    @property
+    def params(self) -> np.ndarray:
+        return self.beta
+
+    @property
+    def se(self) -> np.ndarray:
+        return self.beta_se
+
+    def index(self, i: int | str) -> int:
         if isinstance(i, str):
             if i not in self.names:
                 raise KeyError(f"no covariate named {i!r}; known: {self.names}")
@@ -294,23 +290,6 @@ class OrdinalFit:
         if not -self.beta.size <= i < self.beta.size:
             raise IndexError(f"slope index {i} out of range for {self.beta.size} slopes")
         return int(i) % self.beta.size
-
-    def wald(self, i: int | str, level: float = 0.95) -> WaldTest:
-        """z = beta_i / se_i, two-sided normal p-value, beta_i +/- z_{(1+level)/2} se_i."""
-        j = self._index(i)
-        est, se = float(self.beta[j]), float(self.beta_se[j])
-        z = est / se
-        q = _normal_quantile(level)
-        return WaldTest(
-            name=self.names[j],
-            estimate=est,
-            se=se,
-            z=z,
-            p_value=float(2.0 * stats.norm.sf(abs(z))),
-            lower=est - q * se,
-            upper=est + q * se,
-            level=level,
-        )
 
     def odds_ratio(self, i: int | str, level: float = 0.95) -> OddsRatio:
         """exp(beta_i): the common odds ratio of Y >= y_j for every j, with exp(Wald limits)."""
@@ -1128,7 +1107,7 @@ def concordance_exact(fit: OrdinalFit, x_reference, arm_column: int | str, level
     through dS_j = f_j (dalpha_j + x'dbeta). The interval is delta-method on
     the logit of c. ``approximation`` repeats the OR^0.66 rule for comparison.
     """
-    j_arm = fit._index(arm_column)
+    j_arm = fit.index(arm_column)
     x0 = _covariate_vector(fit, x_reference).copy()
     x1 = x0.copy()
     x0[j_arm], x1[j_arm] = 0.0, 1.0
@@ -1199,7 +1178,7 @@ def proportional_odds_check(
     """
     if fit is None:
         fit = fit_proportional_odds(y, X, weights, names=names)
-    j_arm = fit._index(arm_column)
+    j_arm = fit.index(arm_column)
     values, categories = _as_outcome(y)
     n_all = values.size
     w_arr = _as_weights(weights, n_all)

@@ -21,6 +21,7 @@ import numpy as np
 from scipy import stats
 
 from .fitnotes import fit_notes
+from .fitrecord import FitRecord
 
 SPREAD_CV = 0.10
 """Observation times whose coefficient of variation is below this count as equal (a convention)."""
@@ -54,38 +55,28 @@ def time_spread(t) -> TimeSpread:
 
 
 @dataclass(frozen=True)
-class LogLinearFit:
-    """A Poisson log-linear fit with robust standard errors: coefficients by column name."""
+class LogLinearFit(FitRecord):
+    """A Poisson log-linear fit with robust standard errors (normal-theory Wald inference at ``level``)."""
 
     names: list[str]
-    coef: np.ndarray
+    params: np.ndarray
     se: np.ndarray
     n: int
     level: float
     notes: tuple[str, ...] = ()
     """What the fitting routine warned about (see :mod:`auditor.stats.fitnotes`)."""
 
-    def _index(self, name: str) -> int:
-        return self.names.index(name)
-
     def ratio(self, name: str) -> tuple[float, float, float, float]:
         """exp(coefficient) with its Wald CI and p-value: (ratio, lower, upper, p)."""
-        i = self._index(name)
-        b, s = float(self.coef[i]), float(self.se[i])
-        z = stats.norm.ppf(0.5 + self.level / 2)
-        p = float(2 * stats.norm.sf(abs(b / s))) if s > 0 else math.nan
-        return math.exp(b), math.exp(b - z * s), math.exp(b + z * s), p
+        w = self.wald(name, self.level)
+        return math.exp(w.estimate), math.exp(w.lower), math.exp(w.upper), w.p_value
 
     def coefficient(self, name: str) -> tuple[float, float, float]:
         """The coefficient itself with its Wald CI: (estimate, lower, upper)."""
-        i = self._index(name)
-        b, s = float(self.coef[i]), float(self.se[i])
-        z = stats.norm.ppf(0.5 + self.level / 2)
-        return b, b - z * s, b + z * s
+        return self.ci(name, self.level)
 
     def z(self, name: str) -> float:
-        i = self._index(name)
-        return float(self.coef[i] / self.se[i])
+        return self.wald(name).z
 
 
 def fit_log_linear(y, columns: dict[str, np.ndarray], offset=None, level: float = 0.95) -> LogLinearFit:

@@ -4,10 +4,10 @@ Pure functions: arrays in, small frozen dataclasses out. The formulas, with thei
 docs/methods/percent-change.md; each function's docstring states the one it computes.
 
 Conventions used throughout: ``baseline`` and ``followup`` are paired arrays (one entry per
-participant); treatment arms enter a model as 0/1 indicator columns against the control arm, named
-as :func:`auditor.stats.linear.arm_indicators` names them; a treatment effect is an :class:`Effect`
-whose ``statistic`` is its estimate divided by its standard error, the currency in which analyses
-on different scales are compared.
+participant); treatment arms enter a model as the 0/1 indicator columns of an
+:class:`~auditor.stats.effects.ArmCoding`, whose contrasts carry the arm and control labels; a
+treatment effect is an :class:`~auditor.stats.effects.ArmEffect` whose ``statistic`` is its estimate
+divided by its standard error, the currency in which analyses on different scales are compared.
 """
 
 from __future__ import annotations
@@ -19,6 +19,7 @@ from typing import Callable, Sequence
 import numpy as np
 from scipy import stats
 
+from .effects import ArmCoding, ArmContrast, ArmEffect, arm_effect
 from .linear import fit_ols
 from .splines import SplinePlan, choose_knots, flexible_basis
 
@@ -169,72 +170,61 @@ def shape(values, floor: float | None = None) -> Shape:
 # --------------------------------------------------------------------------- treatment effects
 
 
-@dataclass(frozen=True)
-class Effect:
-    """One treatment contrast under one analysis, on that analysis's own scale."""
-
-    analysis: str
-    contrast: str
-    """The arm-indicator column name, e.g. ``arm[Active]``."""
-    estimate: float
-    se: float
-    lower: float
-    upper: float
-    statistic: float
-    """estimate / se (a t statistic for least squares, a Wald z for proportional odds)."""
-    p_value: float
-    n: int
-
-    def exp(self) -> tuple[float, float, float]:
-        """(exp(estimate), exp(lower), exp(upper)): a ratio from a log-scale effect."""
-        return math.exp(self.estimate), math.exp(self.lower), math.exp(self.upper)
+LEAST_SQUARES = "least squares"
+PROPORTIONAL_ODDS = "proportional odds"
 
 
 @dataclass(frozen=True)
-class OlsDesign:
-    """A least-squares analysis laid out for refitting on resampled rows.
+class RefitDesign:
+    """An analysis laid out for refitting on resampled rows.
 
-    ``valid`` marks the participants the analysis can use (finite response and covariates); the
-    remaining arrays are full length so that a bootstrap index over all participants applies.
+    ``model`` is :data:`LEAST_SQUARES` (``X`` starts with the constant) or :data:`PROPORTIONAL_ODDS`
+    (no constant: the cut-points are the intercepts); then come the baseline columns and last the arm
+    indicators, one per entry of ``contrasts``. ``valid`` marks the participants the analysis can use
+    (finite response and covariates); the arrays are full length so that a bootstrap index over all
+    participants applies. ``plan`` is the spline of baseline where one was chosen; ``baseline_terms``
+    says how baseline enters a proportional-odds design: ``categories`` (one indicator per observed
+    value above the lowest) or ``spline`` (a restricted cubic spline).
     """
 
     analysis: str
+    model: str
     y: np.ndarray
     X: np.ndarray
     names: tuple[str, ...]
-    arm_names: tuple[str, ...]
+    contrasts: tuple[ArmContrast, ...]
     valid: np.ndarray
     plan: SplinePlan | None = None
+    baseline_terms: str | None = None
+
+    @property
+    def arm_columns(self) -> tuple[str, ...]:
+        return tuple(c.column for c in self.contrasts)
 
 
-def ols_design(analysis: str, y, covariates: dict[str, np.ndarray], arm_columns: dict[str, np.ndarray],
-               plan: SplinePlan | None = None) -> OlsDesign:
+def ols_design(analysis: str, y, covariates: dict[str, np.ndarray], coding: ArmCoding,
+               plan: SplinePlan | None = None) -> RefitDesign:
     """Intercept, covariates, then arm indicators; rows with any non-finite entry marked invalid."""
     y = np.asarray(y, dtype=float)
-    cols = {**covariates, **arm_columns}
+    cols = {**covariates, **coding.columns}
     parts = [np.ones(len(y))] + [np.asarray(c, dtype=float) for c in cols.values()]
     X = np.column_stack(parts)
     valid = np.isfinite(y) & np.all(np.isfinite(X), axis=1)
-    return OlsDesign(analysis, y, X, ("(intercept)",) + tuple(cols), tuple(arm_columns), valid, plan)
+    return RefitDesign(analysis, LEAST_SQUARES, y, X, ("(intercept)",) + tuple(cols), coding.contrasts, valid, plan)
 
 
-def ols_effects(design: OlsDesign, level: float = 0.95) -> list[Effect]:
-    """Fit the design by least squares (:func:`fit_ols`) and return one Effect per arm column.
+def ols_effects(design: RefitDesign, level: float = 0.95) -> list[ArmEffect]:
+    """Fit the design by least squares (:func:`fit_ols`) and return one effect per arm contrast.
 
     CIs are t-based on the residual degrees of freedom.
     """
     v = design.valid
     cols = {name: design.X[v, i] for i, name in enumerate(design.names) if i > 0}
     fit = fit_ols(design.y[v], cols)
-    out = []
-    for name in design.arm_names:
-        est, lo, hi = fit.ci(name, level)
-        se = float(fit.se[fit.index(name)])
-        out.append(Effect(design.analysis, name, est, se, lo, hi, est / se, fit.p_value(name), int(v.sum())))
-    return out
+    return [arm_effect(design.analysis, c, fit, level, n=int(v.sum())) for c in design.contrasts]
 
 
-def t_statistics(design: OlsDesign, rows: np.ndarray | None = None) -> np.ndarray:
+def t_statistics(design: RefitDesign, rows: np.ndarray | None = None) -> np.ndarray:
     """t statistics of the arm columns on the given rows (all valid rows by default).
 
     The same least-squares fit as :func:`ols_effects`, done with plain linear algebra so that a
@@ -244,7 +234,7 @@ def t_statistics(design: OlsDesign, rows: np.ndarray | None = None) -> np.ndarra
     idx = np.flatnonzero(design.valid) if rows is None else rows[design.valid[rows]]
     X, y = design.X[idx], design.y[idx]
     n, p = X.shape
-    arm_idx = [design.names.index(a) for a in design.arm_names]
+    arm_idx = [design.names.index(a) for a in design.arm_columns]
     if n <= p:
         return np.full(len(arm_idx), np.nan)
     xtx = X.T @ X
@@ -269,13 +259,13 @@ def spline_columns(x, plan: SplinePlan, prefix: str) -> dict[str, np.ndarray]:
     return {f"{prefix}{j + 1}": basis[:, j] for j in range(basis.shape[1])}
 
 
-def percent_change_design(baseline, followup, arm_columns) -> OlsDesign:
+def percent_change_design(baseline, followup, coding: ArmCoding) -> RefitDesign:
     """Percent change regressed on arm alone: the coefficient is the difference in mean percent
     change between an arm and the control (the usual planned analysis of percent change)."""
-    return ols_design("percent change by arm", percent_change(baseline, followup), {}, arm_columns)
+    return ols_design("percent change by arm", percent_change(baseline, followup), {}, coding)
 
 
-def log_ancova_design(baseline, followup, arm_columns, plan: SplinePlan | None = None) -> OlsDesign:
+def log_ancova_design(baseline, followup, coding: ArmCoding, plan: SplinePlan | None = None) -> RefitDesign:
     """ANCOVA on the log scale: log f = a + s(log b) + sum_k c_k [arm = k] + e.
 
     s is the restricted cubic spline of :mod:`auditor.stats.splines` with knots chosen by
@@ -288,30 +278,30 @@ def log_ancova_design(baseline, followup, arm_columns, plan: SplinePlan | None =
         lb = np.where(b > 0, np.log(np.where(b > 0, b, 1.0)), np.nan)
         lf = np.where(f > 0, np.log(np.where(f > 0, f, 1.0)), np.nan)
     plan = plan or choose_knots(lb[np.isfinite(lb) & np.isfinite(lf)])
-    return ols_design("log-scale ANCOVA", lf, spline_columns(lb, plan, "log baseline s"), arm_columns, plan)
+    return ols_design("log-scale ANCOVA", lf, spline_columns(lb, plan, "log baseline s"), coding, plan)
 
 
-def raw_ancova_design(baseline, followup, arm_columns, plan: SplinePlan | None = None) -> OlsDesign:
+def raw_ancova_design(baseline, followup, coding: ArmCoding, plan: SplinePlan | None = None) -> RefitDesign:
     """ANCOVA on the measured scale: f = a + s(b) + sum_k c_k [arm = k] + e."""
     b = np.asarray(baseline, dtype=float)
     f = np.asarray(followup, dtype=float)
     plan = plan or choose_knots(b[np.isfinite(b) & np.isfinite(f)])
-    return ols_design("ANCOVA", f, spline_columns(b, plan, "baseline s"), arm_columns, plan)
+    return ols_design("ANCOVA", f, spline_columns(b, plan, "baseline s"), coding, plan)
 
 
-def responder_design(responder, arm_columns) -> OlsDesign:
+def responder_design(responder, coding: ArmCoding) -> RefitDesign:
     """The 0/1 responder indicator on arm: the coefficient is the difference in responder
     proportions; its SE is the pooled within-arm one (least squares on a binary response)."""
-    return ols_design("responders by arm", responder, {}, arm_columns)
+    return ols_design("responders by arm", responder, {}, coding)
 
 
-def geometric_mean_ratio(baseline, followup, arm_columns, level: float = 0.95) -> list[Effect]:
-    """Log-scale ANCOVA effects (back-transform with :meth:`Effect.exp` for the ratio and its CI)."""
-    return ols_effects(log_ancova_design(baseline, followup, arm_columns), level)
+def geometric_mean_ratio(baseline, followup, coding: ArmCoding, level: float = 0.95) -> list[ArmEffect]:
+    """Log-scale ANCOVA effects (back-transform with :meth:`ArmEffect.exp` for the ratio and its CI)."""
+    return ols_effects(log_ancova_design(baseline, followup, coding), level)
 
 
-def proportional_odds_effects(baseline, followup, arm_columns, level: float = 0.95,
-                              plan: SplinePlan | None = None) -> list[Effect]:
+def proportional_odds_effects(baseline, followup, coding: ArmCoding, level: float = 0.95,
+                              plan: SplinePlan | None = None) -> list[ArmEffect]:
     """Proportional-odds ANCOVA of follow-up on a spline of baseline plus arm.
 
     logit P(F >= y_j | b, arm) = alpha_j + s(b) + sum_k c_k [arm = k] (McCullagh 1980), every
@@ -326,35 +316,13 @@ def proportional_odds_effects(baseline, followup, arm_columns, level: float = 0.
     ok = np.isfinite(b) & np.isfinite(f)
     plan = plan or choose_knots(b[ok])
     cols = {**spline_columns(b[ok], plan, "baseline s"),
-            **{k: np.asarray(v, dtype=float)[ok] for k, v in arm_columns.items()}}
+            **coding.subset(ok).columns}
     names = list(cols)
     fit = fit_proportional_odds(f[ok], np.column_stack(list(cols.values())), names=names)
-    out = []
-    for name in arm_columns:
-        w = fit.wald(name, level)
-        out.append(Effect("proportional-odds ANCOVA", name, w.estimate, w.se, w.lower, w.upper, w.z,
-                          w.p_value, int(ok.sum())))
-    return out
+    return [arm_effect("proportional-odds ANCOVA", c, fit, level, n=int(ok.sum())) for c in coding.contrasts]
 
 
-@dataclass(frozen=True)
-class OrdinalDesign:
-    """A proportional-odds ANCOVA laid out for refitting on resampled rows, like :class:`OlsDesign`:
-    ``X`` holds the baseline columns then the arm indicators (no constant: the cut-points are the
-    intercepts), full length, with ``valid`` marking the usable participants."""
-
-    analysis: str
-    y: np.ndarray
-    X: np.ndarray
-    names: tuple[str, ...]
-    arm_names: tuple[str, ...]
-    valid: np.ndarray
-    baseline_terms: str
-    """How baseline enters: ``categories`` (one indicator per observed value above the lowest) or
-    ``spline`` (a restricted cubic spline)."""
-
-
-def ordinal_ancova_design(baseline, followup, arm_columns, categorical_baseline: bool) -> OrdinalDesign:
+def ordinal_ancova_design(baseline, followup, coding: ArmCoding, categorical_baseline: bool) -> RefitDesign:
     """Proportional-odds ANCOVA logit P(F >= y_j | b, arm) = alpha_j + g(b) + sum_k c_k [arm = k]
     (McCullagh 1980), the reference analysis of an ordinal outcome: it uses only the order of the
     follow-up levels, so no coding of them matters. g(b) is one indicator per observed baseline value
@@ -370,36 +338,33 @@ def ordinal_ancova_design(baseline, followup, arm_columns, categorical_baseline:
     else:
         cols = spline_columns(b, choose_knots(b[valid]), "baseline s")
         terms = "spline"
-    cols.update({k: np.asarray(v, dtype=float) for k, v in arm_columns.items()})
+    cols.update({k: np.asarray(v, dtype=float) for k, v in coding.columns.items()})
     X = np.column_stack(list(cols.values()))
     valid &= np.all(np.isfinite(X), axis=1)
-    return OrdinalDesign("proportional-odds ANCOVA", f, X, tuple(cols), tuple(arm_columns), valid, terms)
+    return RefitDesign("proportional-odds ANCOVA", PROPORTIONAL_ODDS, f, X, tuple(cols), coding.contrasts, valid,
+                       baseline_terms=terms)
 
 
-def _ordinal_fit(design: OrdinalDesign, idx: np.ndarray):
+def _ordinal_fit(design: RefitDesign, idx: np.ndarray):
     """Fit on the rows ``idx``, leaving out baseline columns that are constant there (a baseline
     category that a resample happens to miss); an arm column must vary."""
     from .ordinal import fit_proportional_odds
 
     X = design.X[idx]
     keep = [j for j, name in enumerate(design.names)
-            if name in design.arm_names or np.ptp(X[:, j]) > 0]
+            if name in design.arm_columns or np.ptp(X[:, j]) > 0]
     return fit_proportional_odds(design.y[idx], X[:, keep], names=[design.names[j] for j in keep])
 
 
-def ordinal_effects(design: OrdinalDesign, level: float = 0.95) -> list[Effect]:
-    """One Effect per arm column: the log odds ratio of a higher follow-up with its Wald interval.
+def ordinal_effects(design: RefitDesign, level: float = 0.95) -> list[ArmEffect]:
+    """One effect per arm contrast: the log odds ratio of a higher follow-up with its Wald interval.
     Raises the fitter's OrdinalFitError when the model cannot be fitted."""
     idx = np.flatnonzero(design.valid)
     fit = _ordinal_fit(design, idx)
-    out = []
-    for name in design.arm_names:
-        w = fit.wald(name, level)
-        out.append(Effect(design.analysis, name, w.estimate, w.se, w.lower, w.upper, w.z, w.p_value, int(idx.size)))
-    return out
+    return [arm_effect(design.analysis, c, fit, level, n=int(idx.size)) for c in design.contrasts]
 
 
-def ordinal_z_statistics(design: OrdinalDesign, rows: np.ndarray | None = None) -> np.ndarray:
+def ordinal_z_statistics(design: RefitDesign, rows: np.ndarray | None = None) -> np.ndarray:
     """Wald z of the arm columns refitted on the given rows (all valid rows by default); NaN where the
     resampled model cannot be fitted (a level missing from an arm, separation), which the bootstrap
     counts as a failed replicate."""
@@ -409,17 +374,18 @@ def ordinal_z_statistics(design: OrdinalDesign, rows: np.ndarray | None = None) 
     try:
         fit = _ordinal_fit(design, idx)
     except (OrdinalFitError, ArithmeticError, np.linalg.LinAlgError):
-        return np.full(len(design.arm_names), np.nan)
-    return np.array([fit.wald(name).z for name in design.arm_names])
+        return np.full(len(design.contrasts), np.nan)
+    return np.array([fit.wald(name).z for name in design.arm_columns])
 
 
-def design_statistics(design: OlsDesign | OrdinalDesign, rows: np.ndarray | None = None) -> np.ndarray:
+def design_statistics(design: RefitDesign, rows: np.ndarray | None = None) -> np.ndarray:
     """Standardised arm effects of either kind of design on the given rows."""
-    return ordinal_z_statistics(design, rows) if isinstance(design, OrdinalDesign) else t_statistics(design, rows)
+    return ordinal_z_statistics(design, rows) if design.model == PROPORTIONAL_ODDS else t_statistics(design, rows)
 
 
-def design_effects(design: OlsDesign | OrdinalDesign, level: float = 0.95) -> list[Effect]:
-    return ordinal_effects(design, level) if isinstance(design, OrdinalDesign) else ols_effects(design, level)
+def design_effects(design: RefitDesign, level: float = 0.95) -> list[ArmEffect]:
+    """One effect per arm contrast, by the design's own model."""
+    return ordinal_effects(design, level) if design.model == PROPORTIONAL_ODDS else ols_effects(design, level)
 
 
 # --------------------------------------------------------------------------- efficiency

@@ -13,27 +13,37 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy import stats
-
+from .effects import ArmContrast, ArmEffect, arm_coding, arm_effect
 from .fitnotes import fit_notes
+from .fitrecord import FitRecord
 
 
 @dataclass(frozen=True)
-class VisitEffect:
+class VisitContrast:
+    """The fixed-effect column of one arm-versus-control contrast at one post-baseline visit."""
+
+    column: str
     visit: str
-    contrast: str
-    estimate: float
-    se: float
-    lower: float
-    upper: float
-    p_value: float
+    contrast: ArmContrast
 
 
 @dataclass(frozen=True)
-class PostBaselineFit:
-    effects: list[VisitEffect]
+class PostBaselineFit(FitRecord):
+    """The REML fit's fixed effects (normal-theory Wald inference) and its arm contrasts by visit."""
+
+    names: tuple[str, ...]
+    params: np.ndarray
+    se: np.ndarray
+    visit_contrasts: tuple[VisitContrast, ...]
+    level: float
     notes: tuple[str, ...]
     """What the fitting routine warned about (see :mod:`auditor.stats.fitnotes`)."""
+
+    @property
+    def effects(self) -> list[ArmEffect]:
+        """Arm-versus-control effect at each visit, with Wald intervals at ``level``."""
+        return [arm_effect("post-baseline visits as responses", v.contrast, self, self.level, visit=v.visit,
+                           column=v.column) for v in self.visit_contrasts]
 
 
 def fit_post_baseline_model(frame: pd.DataFrame, visit_columns: list[str], arms: list[str], control: str,
@@ -49,12 +59,15 @@ def fit_post_baseline_model(frame: pd.DataFrame, visit_columns: list[str], arms:
     long["pid"] = np.arange(len(long))
     long = long.melt(id_vars=["pid", "arm", "baseline"], value_vars=visit_columns, var_name="visit",
                      value_name="y").dropna()
-    others = [a for a in arms if a != control]
+    others = arm_coding(long["arm"].to_numpy(), arms, control).contrasts
     cols = {"baseline": long["baseline"].to_numpy(dtype=float)}
+    visit_contrasts = []
     for v in visit_columns:
         cols[f"visit[{v}]"] = (long["visit"] == v).to_numpy(dtype=float)
-        for a in others:
-            cols[f"{a}@{v}"] = ((long["visit"] == v) & (long["arm"] == a)).to_numpy(dtype=float)
+        for c in others:
+            column = f"{c.arm}@{v}"
+            cols[column] = ((long["visit"] == v) & (long["arm"] == c.arm)).to_numpy(dtype=float)
+            visit_contrasts.append(VisitContrast(column, v.removeprefix("fu:"), c))
     names = list(cols)
     X = np.column_stack([cols[k] for k in names])
     with fit_notes() as notes:
@@ -62,12 +75,4 @@ def fit_post_baseline_model(frame: pd.DataFrame, visit_columns: list[str], arms:
     params, bse = np.asarray(res.fe_params), np.asarray(res.bse_fe)
     if not bool(getattr(res, "converged", True)) or not (np.all(np.isfinite(params)) and np.all(np.isfinite(bse))):
         raise ArithmeticError("the longitudinal model (post-baseline visits as responses) did not converge")
-    q = stats.norm.ppf(0.5 + level / 2)
-    out = []
-    for v in visit_columns:
-        for a in others:
-            i = names.index(f"{a}@{v}")
-            est, se = float(params[i]), float(bse[i])
-            out.append(VisitEffect(v.removeprefix("fu:"), a, est, se, est - q * se, est + q * se,
-                                   float(2 * stats.norm.sf(abs(est / se)))))
-    return PostBaselineFit(out, tuple(notes))
+    return PostBaselineFit(tuple(names), params, bse, tuple(visit_contrasts), level, tuple(notes))

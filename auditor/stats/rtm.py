@@ -24,6 +24,8 @@ from functools import lru_cache
 import numpy as np
 from scipy import integrate, special, stats
 
+from .fitrecord import FitRecord
+
 _DIRECTIONS = ("above", "below")
 _EDGE_SIDES = ("lower", "upper", "either")
 _HALF_LOG_2PI = 0.5 * np.log(2.0 * np.pi)
@@ -466,11 +468,11 @@ def _lower_truncated_hessian(alpha: float, sigma: float, u: np.ndarray) -> np.nd
 
 
 @dataclass(frozen=True)
-class TruncatedNormalFit:
-    """Maximum-likelihood normal parameters of the unselected population from a one-sided truncated
-    sample. ``cov_mu_sigma`` and the SEs come from the inverse observed information; ``converged`` is
-    False when the likelihood has no interior maximum (the fit drifts to the exponential limit) or
-    the information is not positive definite, and the numbers should then not be used."""
+class SelectedNormalFit(FitRecord):
+    """Maximum-likelihood ``N(mu, sigma^2)`` of the unselected population from readings observed only
+    beyond a cutoff or inside a window (``lower`` / ``upper``, None where open). The SEs and
+    ``cov_mu_sigma`` come from the inverse information; as a fit record its parameters are ``mu`` and
+    ``sigma`` with normal-theory Wald intervals. ``converged`` False: the numbers should not be used."""
 
     mu: float
     sigma: float
@@ -482,6 +484,28 @@ class TruncatedNormalFit:
     lower: float | None
     upper: float | None
     converged: bool
+
+    names = ("mu", "sigma")
+
+    @property
+    def params(self) -> np.ndarray:
+        return np.array([self.mu, self.sigma])
+
+    @property
+    def se(self) -> np.ndarray:
+        return np.array([self.se_mu, self.se_sigma])
+
+    @property
+    def cov(self) -> np.ndarray:
+        """Covariance of (mu, sigma)."""
+        return np.array([[self.se_mu ** 2, self.cov_mu_sigma], [self.cov_mu_sigma, self.se_sigma ** 2]])
+
+
+@dataclass(frozen=True)
+class TruncatedNormalFit(SelectedNormalFit):
+    """The fit from a one-sided truncated sample (exactly one of ``lower`` and ``upper`` set);
+    ``converged`` is False when the likelihood has no interior maximum (the fit drifts to the
+    exponential limit) or the information is not positive definite."""
 
 
 def fit_truncated_normal(values, lower: float | None = None, upper: float | None = None) -> TruncatedNormalFit:
@@ -928,19 +952,8 @@ def expected_rtm_window(mu: float, sigma: float, rho: float, lower: float, upper
 
 
 @dataclass(frozen=True)
-class WindowNormalFit:
-    """ML fit of ``N(mu, sigma^2)`` to readings observed only inside ``[lower, upper]``."""
-
-    mu: float
-    sigma: float
-    se_mu: float
-    se_sigma: float
-    cov_mu_sigma: float
-    loglik: float
-    n: int
-    lower: float
-    upper: float
-    converged: bool
+class WindowNormalFit(SelectedNormalFit):
+    """The fit from readings observed only inside ``[lower, upper]`` (both set)."""
 
 
 def _window_loglik(theta, x, lower, upper):

@@ -215,7 +215,7 @@ def _spector(name: str):
 
         d = spector.load_pandas()
         fit = fit_logistic(d.endog.to_numpy(), {c: d.exog[c].to_numpy() for c in ("GPA", "TUCE", "PSI")})
-        return fit.loglik if name == "loglik" else float(fit.coef[fit.index(name) if name != "const" else 0])
+        return fit.loglik if name == "loglik" else float(fit.params[fit.index(name) if name != "const" else 0])
     return compute
 
 

@@ -50,7 +50,7 @@ def test_spector_mazzeo_published_fit():
     fit = fit_logistic(data.endog.to_numpy(), {c: data.exog[c].to_numpy() for c in ("GPA", "TUCE", "PSI")})
     expected = {INTERCEPT: -13.021347, "GPA": 2.826113, "TUCE": 0.095158, "PSI": 2.378688}
     for name, value in expected.items():
-        assert fit.coef[fit.index(name)] == pytest.approx(value, abs=5e-6)
+        assert fit.params[fit.index(name)] == pytest.approx(value, abs=5e-6)
     assert fit.loglik == pytest.approx(-12.890, abs=5e-4)
     assert fit.n == 32 and fit.n_events == int(data.endog.sum())
 
@@ -64,7 +64,7 @@ def test_agrees_with_statsmodels_logit(seed):
     mine = fit_logistic(y, cols)
     ref = _sm(y, cols)
     assert mine.loglik == pytest.approx(ref.llf, abs=1e-8)
-    np.testing.assert_allclose(mine.coef, ref.params, rtol=1e-7, atol=1e-9)
+    np.testing.assert_allclose(mine.params, ref.params, rtol=1e-7, atol=1e-9)
     np.testing.assert_allclose(mine.se, ref.bse, rtol=1e-6)
     np.testing.assert_allclose(mine.cov, ref.cov_params(), rtol=1e-6, atol=1e-12)
     assert mine.aic == pytest.approx(ref.aic, abs=1e-8)
@@ -104,7 +104,7 @@ def test_scale_of_columns_does_not_change_the_fit():
     a = fit_logistic(y, cols)
     b = fit_logistic(y, {**cols, "x1": cols["x1"] * 1000.0 + 5e4})
     assert a.loglik == pytest.approx(b.loglik, abs=1e-9)
-    assert b.coef[b.index("x1")] * 1000.0 == pytest.approx(a.coef[a.index("x1")], rel=1e-8)
+    assert b.params[b.index("x1")] * 1000.0 == pytest.approx(a.params[a.index("x1")], rel=1e-8)
 
 
 # --------------------------------------------------------------------------- refusals

@@ -13,7 +13,7 @@ import statsmodels.formula.api as smf
 from scipy import stats
 
 from auditor.stats import relative_change as rc
-from auditor.stats.linear import arm_indicators
+from auditor.stats.effects import arm_coding
 
 
 def _trial(rng, n, ratio=0.6, sd_true=0.8, sd_error=0.3, centre=250.0):
@@ -98,7 +98,7 @@ def test_shape_matches_scipy_and_the_log_normal_formula():
 def test_geometric_mean_ratio_recovers_the_simulated_ratio():
     rng = np.random.default_rng(2)
     b, f, arm = _trial(rng, 4000, ratio=0.6)
-    (e,) = rc.geometric_mean_ratio(b, f, arm_indicators(arm, ["C", "T"], "C"))
+    (e,) = rc.geometric_mean_ratio(b, f, arm_coding(arm, ["C", "T"], "C"))
     r, lo, hi = e.exp()
     assert lo < 0.6 < hi
     assert r == pytest.approx(0.6, rel=0.03)
@@ -109,7 +109,7 @@ def test_geometric_mean_ratio_interval_covers_in_about_95_percent():
     reps, covered = 100, 0
     for _ in range(reps):
         b, f, arm = _trial(rng, 80, ratio=0.7)
-        (e,) = rc.geometric_mean_ratio(b, f, arm_indicators(arm, ["C", "T"], "C"))
+        (e,) = rc.geometric_mean_ratio(b, f, arm_coding(arm, ["C", "T"], "C"))
         _, lo, hi = e.exp()
         covered += lo < 0.7 < hi
     # Nominal 95%; with 100 replicates the Monte Carlo SE is about 2.2 points, so >= 88 is a
@@ -120,7 +120,7 @@ def test_geometric_mean_ratio_interval_covers_in_about_95_percent():
 def test_geometric_mean_ratio_equals_an_independent_statsmodels_fit():
     rng = np.random.default_rng(5)
     b, f, arm = _trial(rng, 150, ratio=0.75)
-    cols = arm_indicators(arm, ["C", "T"], "C")
+    cols = arm_coding(arm, ["C", "T"], "C")
     design = rc.log_ancova_design(b, f, cols)
     (e,) = rc.ols_effects(design)
     assert design.plan.kind == "spline"
@@ -140,7 +140,7 @@ def test_geometric_mean_ratio_equals_an_independent_statsmodels_fit():
 def test_fast_t_statistics_equal_the_least_squares_fit():
     rng = np.random.default_rng(6)
     b, f, arm = _trial(rng, 120)
-    cols = arm_indicators(arm, ["C", "T"], "C")
+    cols = arm_coding(arm, ["C", "T"], "C")
     for design in (rc.log_ancova_design(b, f, cols), rc.percent_change_design(b, f, cols),
                    rc.raw_ancova_design(b, f, cols)):
         (e,) = rc.ols_effects(design)
@@ -154,7 +154,7 @@ def test_percent_change_is_less_efficient_than_the_log_ancova_on_multiplicative_
     effs = []
     for _ in range(40):
         b, f, arm = _trial(rng, 200, ratio=0.7, sd_true=0.5, sd_error=0.5)
-        cols = arm_indicators(arm, ["C", "T"], "C")
+        cols = arm_coding(arm, ["C", "T"], "C")
         (p,) = rc.ols_effects(rc.percent_change_design(b, f, cols))
         (g,) = rc.ols_effects(rc.log_ancova_design(b, f, cols))
         effs.append(rc.relative_efficiency(p.statistic, g.statistic))
@@ -165,7 +165,7 @@ def test_proportional_odds_effect_has_the_right_sign_and_is_invariant_to_a_monot
     pytest.importorskip("auditor.stats.ordinal")
     rng = np.random.default_rng(9)
     b, f, arm = _trial(rng, 200, ratio=0.6)
-    cols = arm_indicators(arm, ["C", "T"], "C")
+    cols = arm_coding(arm, ["C", "T"], "C")
     (e,) = rc.proportional_odds_effects(b, f, cols)
     assert e.upper < 0  # a fall in the active arm: lower follow-up more likely
     (e2,) = rc.proportional_odds_effects(b, np.log(f), cols)
@@ -175,7 +175,7 @@ def test_proportional_odds_effect_has_the_right_sign_and_is_invariant_to_a_monot
 def test_bootstrap_efficiency_is_seeded_and_brackets_the_estimate():
     rng = np.random.default_rng(10)
     b, f, arm = _trial(rng, 200, ratio=0.6)
-    cols = arm_indicators(arm, ["C", "T"], "C")
+    cols = arm_coding(arm, ["C", "T"], "C")
     pc, lg = rc.percent_change_design(b, f, cols), rc.log_ancova_design(b, f, cols)
 
     def z(rows):
@@ -298,7 +298,8 @@ def test_ordinal_ancova_refit_on_rows_matches_orderedmodel():
     arm = (np.arange(n) % 2).astype(float)
     b = rng.integers(1, 6, n).astype(float)
     f = np.clip(np.round(0.7 * b + 0.6 * arm + rng.logistic(0, 1, n)), 1, 5)
-    design = ordinal_ancova_design(b, f, {"arm[T]": arm}, categorical_baseline=True)
+    coding = arm_coding(np.where(arm == 1, "T", "C"), ["C", "T"], "C")
+    design = ordinal_ancova_design(b, f, coding, categorical_baseline=True)
     assert design.names == ("baseline = 2", "baseline = 3", "baseline = 4", "baseline = 5", "arm[T]")
     full = OrderedModel(pd.Series(f), design.X, distr="logit").fit(method="newton", disp=False, maxiter=200)
     e = ordinal_effects(design)[0]
@@ -308,5 +309,5 @@ def test_ordinal_ancova_refit_on_rows_matches_orderedmodel():
         method="newton", disp=False, maxiter=200)
     z = ordinal_z_statistics(design, rows)[0]
     assert abs(z - sub.params.iloc[3] / sub.bse.iloc[3]) < 1e-3
-    spline = ordinal_ancova_design(b + rng.normal(0, 0.3, n), f, {"arm[T]": arm}, categorical_baseline=False)
+    spline = ordinal_ancova_design(b + rng.normal(0, 0.3, n), f, coding, categorical_baseline=False)
     assert spline.baseline_terms == "spline" and spline.names[-1] == "arm[T]"
