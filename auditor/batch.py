@@ -11,7 +11,6 @@ import csv
 import io
 import os
 import re
-import time
 import warnings
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
@@ -383,7 +382,3 @@ def batch_exit_code(results: list[StudyOutcome], fail_on: str | None) -> int:
 
 def default_jobs() -> int:
     return max(1, os.cpu_count() or 1)
-
-
-def elapsed_since(t0: float) -> float:
-    return time.monotonic() - t0

@@ -587,7 +587,7 @@ def read_metadata(folder: Path, log: ProblemLog, raw: bytes | None = None) -> tu
         return None, ""
     if not path.is_file():
         log.add(METADATA_FILE, "-", "-", f"no {METADATA_FILE} in {folder}",
-                f"create one, for example with 'auditor init DATA_FILE'")
+                "create one, for example with 'auditor init DATA_FILE'")
         return None, ""
     try:
         raw = path.read_bytes()

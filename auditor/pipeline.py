@@ -437,10 +437,3 @@ def audit(folder: str | Path, **options) -> Audit:
     >>> a.findings_frame().head()           # doctest: +SKIP
     """
     return audit_study(load_study(folder), AuditOptions(**options))
-
-
-def verdict_counts(a: Audit) -> dict[str, int]:
-    counts = {v.value: 0 for v in Verdict}
-    for r in a.results:
-        counts[r.verdict.value] += 1
-    return counts

@@ -331,11 +331,6 @@ class Audit:
         return pd.DataFrame(rows, columns=["study_id", "outcome", "outcome_label", "check_id",
                                            "check_title", "verdict", "headline", "reason"])
 
-    def worst_verdict(self) -> Verdict | None:
-        if not self.results:
-            return None
-        return max((r.verdict for r in self.results), key=lambda v: v.rank)
-
 
 @dataclass(frozen=True)
 class ReviewComment:

@@ -12,6 +12,7 @@ far the count comparison moves from the rate comparison fitted on the same parti
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -145,6 +146,160 @@ def _expected_rates(fit, arms, cols, coding: ArmCoding) -> list[dict]:
     return out
 
 
+@dataclass(frozen=True)
+class Proportionality:
+    """The log-log slope of the count on observation time (1 when counts grow in proportion to time)."""
+    slope: float
+    lower: float
+    upper: float
+
+    @property
+    def holds(self) -> bool:
+        return self.lower <= 1.0 <= self.upper
+
+
+@dataclass(frozen=True)
+class TimesByArm:
+    """Kruskal-Wallis comparison of observation time across arms."""
+    statistic: float
+    p: float
+    differs: bool
+    """Times differ between arms (p below ARM_TIME_ALPHA) and are unequal at all."""
+
+
+@dataclass(frozen=True)
+class Analysis:
+    """Every number the check judges by, before any wording: the participants and arms analysed, the
+    spread of observation time, the rate model, the proportionality slope (unequal times only), the
+    time-by-arm test and each arm's count-versus-rate comparison (two or more arms only)."""
+    df: object
+    arms: list
+    with_baseline: bool
+    spread: object
+    rate: object
+    cols: dict
+    coding: ArmCoding
+    threshold: float
+    proportionality: Proportionality | None
+    times_by_arm: TimesByArm | None
+    comparisons: list
+    fit_notes: tuple
+
+    @property
+    def material(self) -> bool:
+        """Ignoring time moves some comparison wholly beyond the threshold (unequal times only)."""
+        return not self.spread.equal and any(c["shift"].beyond(self.threshold) for c in self.comparisons)
+
+    @property
+    def detectable(self) -> bool:
+        """Some comparison moves detectably, or by the threshold at its estimate (unequal times only)."""
+        return not self.spread.equal and any(
+            c["shift"].detectable or max(c["shift"].estimate, 1 / c["shift"].estimate) >= self.threshold
+            for c in self.comparisons)
+
+    @property
+    def scale_ok(self) -> bool:
+        return self.proportionality is None or self.proportionality.holds
+
+
+def analyse(data, ctx: CheckContext) -> Analysis:
+    """Fit everything the check reports: the rate model (log time as offset), the log-log scaling
+    model when times are unequal, and, with two or more arms, the Kruskal-Wallis test of time by arm
+    and the count model beside the rate model for each arm against control."""
+    df = _participants(data)
+    arms = arms_present(df, data, ctx)
+    with_baseline = "baseline" in df.columns
+    cols, coding = _design(df, arms, data.control_arm, with_baseline)
+    spread = time_spread(df["followup_time"])
+    rate = _rate_model(df, cols, ctx)
+    notes = list(rate.notes)
+    proportionality = None
+    if not spread.equal:
+        scaling = _scaling(df, cols, ctx)
+        notes += scaling.notes
+        proportionality = Proportionality(*scaling.coefficient("log observation time"))
+    times_by_arm, comparisons = None, []
+    if len(arms) > 1:
+        h, p = times_differ_by_arm(df["followup_time"], df["arm"])
+        times_by_arm = TimesByArm(h, p, p < ARM_TIME_ALPHA and not spread.equal)
+        comparisons, count_notes = _comparisons(df, coding, cols, rate, ctx)
+        notes += count_notes
+    return Analysis(df, arms, with_baseline, spread, rate, cols, coding, ctx.thresholds.count_ratio,
+                    proportionality, times_by_arm, comparisons, tuple(notes))
+
+
+def _spread_estimates(spread, unit) -> list:
+    return [
+        estimate("Participants with a follow-up count and its time", float(spread.n), key="count-time.n-participants"),
+        estimate("Median observation time", spread.median, unit=unit, key="count-time.time.median"),
+        estimate("Shortest observation time", spread.minimum, unit=unit, key="count-time.time.min"),
+        estimate("Longest observation time", spread.maximum, unit=unit, key="count-time.time.max"),
+        estimate("Coefficient of variation of observation time", spread.cv, key="count-time.time.cv"),
+        estimate("Share observed for less than 80% of the median time", spread.share_short,
+                 key="count-time.time.share-short"),
+    ]
+
+
+def _spread_text(spread) -> str:
+    return (f"median {fmt(spread.median)} (range {fmt(spread.minimum)} to {fmt(spread.maximum)}), "
+            f"coefficient of variation {fmt(spread.cv)}; {100 * spread.share_short:.0f}% observed "
+            f"for less than 80% of the median")
+
+
+def _proportionality_words(prop: Proportionality, estimates, subs, caveats) -> None:
+    estimates.append(estimate("Growth of the count with observation time (log-log slope)", prop.slope, prop.lower,
+                              prop.upper, note="1 when the count is proportional to time",
+                              key="count-time.proportional.log-log-slope"))
+    subs.append(SubFinding("proportional", "Does the count grow in proportion to observation time?",
+                           Verdict.SOUND if prop.holds else Verdict.CAUTION,
+                           f"log-log slope {fmt_ci(prop.slope, prop.lower, prop.upper)}; "
+                           f"{'includes' if prop.holds else 'excludes'} 1"))
+    if not prop.holds:
+        caveats.append("The count does not grow in proportion to observation time: the shorter periods may "
+                       "not be typical of the whole (early withdrawal of the sickest, say). A rate model "
+                       "still removes the time imbalance but its rate ratio should be read with that in mind.")
+
+
+def _comparison_words(an: Analysis, estimates, subs, tables) -> None:
+    """The time-by-arm table, each contrast's three ratios, the side-by-side table and the sub-finding."""
+    threshold, tba = an.threshold, an.times_by_arm
+    tables.append(_time_table(an.df, an.arms))
+    rows = []
+    for i, c in enumerate(an.comparisons, 1):
+        (rr, rl, ru, rp), (cr, cl, cu, cp) = c["rate"], c["count"]
+        s = c["shift"]
+        estimates += [estimate(f"Rate ratio, {c['name']} (log time as offset)", rr, rl, ru, rp, by_arm=True,
+                               key=f"count-time.rate-ratio.contrast-{i}", arm=c["name"]),
+                      estimate(f"Count ratio, {c['name']} (time ignored)", cr, cl, cu, cp, by_arm=True,
+                               key=f"count-time.count-ratio.contrast-{i}", arm=c["name"]),
+                      estimate(f"Count ratio over rate ratio, {c['name']}", s.estimate, s.lower, s.upper,
+                               by_arm=True,
+                               note=f"material when the whole interval lies beyond {threshold:g} or its "
+                                    f"inverse (count_ratio); interval from the stacked sandwich of both fits",
+                               key=f"count-time.count-over-rate.contrast-{i}", arm=c["name"])]
+        rows += [["rate model (reference)", c["name"], "ratio of rates", rr, rl, ru],
+                 ["counts, time ignored", c["name"], "ratio of counts", cr, cl, cu]]
+    tables.append(Table("rate-vs-count", "The treatment comparison with and without observation time, "
+                                         "same participants",
+                        ["Analysis", "Contrast", "Effect", "Estimate", "Lower", "Upper"], rows,
+                        note="Both are Poisson log-linear models with robust (sandwich) intervals, adjusted for "
+                             "the baseline rate (rate model) or the log baseline count (counts)." if an.with_baseline
+                        else "Both are Poisson log-linear models with robust (sandwich) intervals.",
+                        by_arm=True))
+    h, p, k = fmt(tba.statistic), fmt_p(tba.p), len(an.arms) - 1
+    differs = (f"observation time differs between arms (Kruskal-Wallis chi-square {h} on {k} df, {p})"
+               if tba.p < ARM_TIME_ALPHA else
+               f"no evidence that observation time differs between arms (Kruskal-Wallis chi-square {h} on {k} "
+               f"df, {p})")
+    subs.append(SubFinding("time-by-arm", "Does observation time differ between arms enough to move the "
+                                          "treatment comparison?",
+                           Verdict.UNSUPPORTED if an.material else
+                           Verdict.CAUTION if tba.differs or an.detectable else Verdict.SOUND,
+                           f"{differs}; count ratio over rate ratio "
+                           f"{', '.join(_shift_text(c['shift']) for c in an.comparisons)} (material when the "
+                           f"whole interval lies beyond {threshold:g} or 1/{threshold:g})", by_arm=True))
+
+
 @register(CHECK_ID, TITLE, _applies, order=50, needs_arms=False,
           summary="Whether a count outcome was observed over equal times, and what comparing counts "
                   "rather than rates does to the treatment comparison.")
@@ -152,106 +307,30 @@ def run(data, ctx: CheckContext):
     from .registry import get_check
 
     check = get_check(CHECK_ID)
-    spec = data.spec
-    df = _participants(data)
-    arms = arms_present(df, data, ctx)
-    with_baseline = "baseline" in df.columns
-    cols, coding = _design(df, arms, data.control_arm, with_baseline)
-    spread = time_spread(df["followup_time"])
-    rate = _rate_model(df, cols, ctx)
-
-    estimates = [
-        estimate("Participants with a follow-up count and its time", float(spread.n), key="count-time.n-participants"),
-        estimate("Median observation time", spread.median, unit=spec.exposure, key="count-time.time.median"),
-        estimate("Shortest observation time", spread.minimum, unit=spec.exposure, key="count-time.time.min"),
-        estimate("Longest observation time", spread.maximum, unit=spec.exposure, key="count-time.time.max"),
-        estimate("Coefficient of variation of observation time", spread.cv, key="count-time.time.cv"),
-        estimate("Share observed for less than 80% of the median time", spread.share_short,
-                 key="count-time.time.share-short"),
-    ]
-    spread_text = (f"median {fmt(spread.median)} (range {fmt(spread.minimum)} to {fmt(spread.maximum)}), "
-                   f"coefficient of variation {fmt(spread.cv)}; {100 * spread.share_short:.0f}% observed "
-                   f"for less than 80% of the median")
+    an = analyse(data, ctx)
+    spec, spread, threshold = data.spec, an.spread, an.threshold
+    estimates = _spread_estimates(spread, spec.exposure)
+    spread_text = _spread_text(spread)
     subs = [SubFinding("equal-time", "Was every follow-up count made over about the same time?",
                        Verdict.SOUND if spread.equal else Verdict.CAUTION,
                        f"{spread_text}; times count as equal below a coefficient of variation of 0.10")]
     tables, caveats = [], []
-    fit_warnings = list(rate.notes)
-
-    scale_ok = True
-    if not spread.equal:
-        scaling = _scaling(df, cols, ctx)
-        fit_warnings += scaling.notes
-        b, lo, hi = scaling.coefficient("log observation time")
-        scale_ok = lo <= 1.0 <= hi
-        estimates.append(estimate("Growth of the count with observation time (log-log slope)", b, lo, hi,
-                                  note="1 when the count is proportional to time",
-                                  key="count-time.proportional.log-log-slope"))
-        subs.append(SubFinding("proportional", "Does the count grow in proportion to observation time?",
-                               Verdict.SOUND if scale_ok else Verdict.CAUTION,
-                               f"log-log slope {fmt_ci(b, lo, hi)}; {'includes' if scale_ok else 'excludes'} 1"))
-        if not scale_ok:
-            caveats.append("The count does not grow in proportion to observation time: the shorter periods may "
-                           "not be typical of the whole (early withdrawal of the sickest, say). A rate model "
-                           "still removes the time imbalance but its rate ratio should be read with that in mind.")
-
-    threshold = ctx.thresholds.count_ratio
-    arm_differs, material, comparisons = False, False, []
-    if len(arms) > 1:
-        h, p = times_differ_by_arm(df["followup_time"], df["arm"])
-        arm_differs = p < ARM_TIME_ALPHA and not spread.equal
-        tables.append(_time_table(df, arms))
-        comparisons, count_notes = _comparisons(df, coding, cols, rate, ctx)
-        fit_warnings += count_notes
-        rows = []
-        for i, c in enumerate(comparisons, 1):
-            (rr, rl, ru, rp), (cr, cl, cu, cp) = c["rate"], c["count"]
-            s = c["shift"]
-            material = material or (not spread.equal and s.beyond(threshold))
-            estimates += [estimate(f"Rate ratio, {c['name']} (log time as offset)", rr, rl, ru, rp, by_arm=True,
-                                   key=f"count-time.rate-ratio.contrast-{i}", arm=c["name"]),
-                          estimate(f"Count ratio, {c['name']} (time ignored)", cr, cl, cu, cp, by_arm=True,
-                                   key=f"count-time.count-ratio.contrast-{i}", arm=c["name"]),
-                          estimate(f"Count ratio over rate ratio, {c['name']}", s.estimate, s.lower, s.upper,
-                                   by_arm=True,
-                                   note=f"material when the whole interval lies beyond {threshold:g} or its "
-                                        f"inverse (count_ratio); interval from the stacked sandwich of both fits",
-                                   key=f"count-time.count-over-rate.contrast-{i}", arm=c["name"])]
-            rows += [["rate model (reference)", c["name"], "ratio of rates", rr, rl, ru],
-                     ["counts, time ignored", c["name"], "ratio of counts", cr, cl, cu]]
-        tables.append(Table("rate-vs-count", "The treatment comparison with and without observation time, "
-                                             "same participants",
-                            ["Analysis", "Contrast", "Effect", "Estimate", "Lower", "Upper"], rows,
-                            note="Both are Poisson log-linear models with robust (sandwich) intervals, adjusted for "
-                                 "the baseline rate (rate model) or the log baseline count (counts)." if with_baseline
-                            else "Both are Poisson log-linear models with robust (sandwich) intervals.",
-                            by_arm=True))
-        detectable = not spread.equal and any(c["shift"].detectable or
-                                              max(c["shift"].estimate, 1 / c["shift"].estimate) >= threshold
-                                              for c in comparisons)
-        differs = (f"observation time differs between arms (Kruskal-Wallis chi-square {fmt(h)} on {len(arms) - 1} "
-                   f"df, {fmt_p(p)})" if p < ARM_TIME_ALPHA else
-                   f"no evidence that observation time differs between arms (Kruskal-Wallis chi-square {fmt(h)} "
-                   f"on {len(arms) - 1} df, {fmt_p(p)})")
-        subs.append(SubFinding("time-by-arm", "Does observation time differ between arms enough to move the "
-                                              "treatment comparison?",
-                               Verdict.UNSUPPORTED if material else
-                               Verdict.CAUTION if arm_differs or detectable else Verdict.SOUND,
-                               f"{differs}; count ratio over rate ratio "
-                               f"{', '.join(_shift_text(c['shift']) for c in comparisons)} (material when the "
-                               f"whole interval lies beyond {threshold:g} or 1/{threshold:g})", by_arm=True))
-
+    if an.proportionality is not None:
+        _proportionality_words(an.proportionality, estimates, subs, caveats)
+    if an.times_by_arm is not None:
+        _comparison_words(an, estimates, subs, tables)
     if ctx.blinded and not spread.equal:
         subs.append(SubFinding("time-by-arm", "Does observation time differ between arms enough to move the "
                                               "treatment comparison?", Verdict.NOT_ASSESSABLE,
                                "withheld: a blinded audit does not read the arms, so whether the unequal times "
                                "differ between arms, and what ignoring them does to the treatment comparison, "
                                "cannot be judged without unblinding"))
-    verdict, headline = _verdict(spread, spread_text, arm_differs, material, comparisons, scale_ok,
-                                 _arm_view(ctx, data, arms), threshold)
-    figure = _figure(df, arms, spec, ctx, _expected_rates(rate, arms, cols, coding))
+    arm_differs = an.times_by_arm is not None and an.times_by_arm.differs
+    verdict, headline = _verdict(spread, spread_text, arm_differs, an.material, an.comparisons, an.scale_ok,
+                                 _arm_view(ctx, data, an.arms), threshold)
+    figure = _figure(an.df, an.arms, spec, ctx, _expected_rates(an.rate, an.arms, an.cols, an.coding))
     return result(check, data, verdict, headline, subfindings=subs, estimates=estimates, tables=tables,
-                  figures=[figure], caveats=caveats + _fit_caveats(fit_warnings),
+                  figures=[figure], caveats=caveats + _fit_caveats(list(an.fit_notes)),
                   recommendation=recommended_analysis(verdict),
                   references=cite(["cameron-trivedi-2013", "wedderburn-1974", "kruskal-wallis-1952",
                                    "stefanski-boos-2002"]),

@@ -12,6 +12,7 @@ as reading aids only.
 from __future__ import annotations
 
 import warnings
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -58,17 +59,68 @@ def smooth_curve(x: np.ndarray, y: np.ndarray, points: int = 60) -> tuple[list[f
     return grid.tolist(), np.asarray(fitted).tolist()
 
 
+@dataclass(frozen=True)
+class ArmCorrelation:
+    arm: str
+    n: int
+    pearson: object
+    spearman: object
+
+
+@dataclass(frozen=True)
+class Analysis:
+    """The numbers the check reports, before any wording: the complete pairs and arms, the pooled
+    Pearson and Spearman correlations, the arm-adjusted slope (estimate, lower, upper, p) and the
+    within-arm correlations (arms with at least 4 pairs)."""
+    df: object
+    arms: list
+    pearson: object
+    spearman: object
+    slope: tuple
+    by_arm: list
+
+
+def analyse(data, ctx: CheckContext) -> Analysis:
+    """Correlations and the slope of follow-up on baseline at the audit's confidence level."""
+    df = complete_pairs(data)
+    arms = arms_present(df, data, ctx)
+    b, f = df["baseline"].to_numpy(), df["followup"].to_numpy()
+    slope = baseline_slope(df, arms, data.control_arm, ctx.level)[:4]
+    by_arm = []
+    for arm in arms:
+        sub = df[df["arm"] == arm]
+        if len(sub) >= 4:
+            by_arm.append(ArmCorrelation(arm, len(sub), pearson(sub["baseline"], sub["followup"], ctx.level),
+                                         spearman(sub["baseline"], sub["followup"], ctx.level)))
+    return Analysis(df, arms, pearson(b, f, ctx.level), spearman(b, f, ctx.level), slope, by_arm)
+
+
+def _scatter(data, an: Analysis, seed) -> Figure:
+    df, arms = an.df, an.arms
+    shown, note = thin(df, seed)
+    if arms:
+        groups = [{"label": a, "x": shown.loc[shown["arm"] == a, "baseline"].tolist(),
+                   "y": shown.loc[shown["arm"] == a, "followup"].tolist()} for a in arms]
+    else:
+        groups = [{"label": "All participants", "x": shown["baseline"].tolist(), "y": shown["followup"].tolist()}]
+    sx, sy = smooth_curve(df["baseline"].to_numpy(), df["followup"].to_numpy())
+    return Figure("prepost-scatter", "scatter_identity",
+                  f"{data.spec.display_name}: follow-up against baseline",
+                  {"groups": groups, "smooth": {"x": sx, "y": sy},
+                   "xlabel": _axis(data.spec, "Baseline"), "ylabel": _axis(data.spec, "Follow-up")},
+                  caption="Dashed: identity line (follow-up = baseline). Solid: LOWESS smooth, pooled." + note,
+                  by_arm=bool(arms))
+
+
 @register(CHECK_ID, "Pre-post relationship", _applies, order=10,
           summary="Correlation of baseline with follow-up and the arm-adjusted slope.")
 def run(data, ctx: CheckContext):
     from .registry import get_check
 
     check = get_check(CHECK_ID)
-    df = complete_pairs(data)
-    arms = arms_present(df, data, ctx)
-    b, f = df["baseline"].to_numpy(), df["followup"].to_numpy()
-    pr, sp = pearson(b, f, ctx.level), spearman(b, f, ctx.level)
-    slope, s_lo, s_hi, s_p, _ = baseline_slope(df, arms, data.control_arm, ctx.level)
+    an = analyse(data, ctx)
+    df, arms, pr, sp = an.df, an.arms, an.pearson, an.spearman
+    slope, s_lo, s_hi, s_p = an.slope
     adjusted = "adjusted for arm" if len(arms) > 1 else "pooled"
 
     estimates = [
@@ -77,13 +129,8 @@ def run(data, ctx: CheckContext):
         estimate("Spearman correlation, pooled", sp.r, sp.lower, sp.upper, sp.p_value, key="pre-post.spearman"),
         estimate(f"Slope of follow-up on baseline ({adjusted})", slope, s_lo, s_hi, s_p, key="pre-post.slope"),
     ]
-    rows = []
-    for arm in arms:
-        sub = df[df["arm"] == arm]
-        if len(sub) < 4:
-            continue
-        pa, sa = pearson(sub["baseline"], sub["followup"], ctx.level), spearman(sub["baseline"], sub["followup"], ctx.level)
-        rows.append([arm, len(sub), pa.r, pa.lower, pa.upper, sa.r, sa.lower, sa.upper])
+    rows = [[c.arm, c.n, c.pearson.r, c.pearson.lower, c.pearson.upper, c.spearman.r, c.spearman.lower,
+             c.spearman.upper] for c in an.by_arm]
     tables = []
     if rows:
         tables.append(Table("by-arm-correlation", "Correlation of baseline with follow-up within arm",
@@ -94,22 +141,8 @@ def run(data, ctx: CheckContext):
     kind = "arm-adjusted slope" if len(arms) > 1 else "slope"
     headline = (f"Follow-up relates to baseline with {kind} {fmt_ci(slope, s_lo, s_hi)} and Pearson r "
                 f"{fmt_ci(pr.r, pr.lower, pr.upper)} in {len(df)} participants.")
-
-    shown, note = thin(df, ctx.seed)
-    if arms:
-        groups = [{"label": a, "x": shown.loc[shown["arm"] == a, "baseline"].tolist(),
-                   "y": shown.loc[shown["arm"] == a, "followup"].tolist()} for a in arms]
-    else:
-        groups = [{"label": "All participants", "x": shown["baseline"].tolist(), "y": shown["followup"].tolist()}]
-    sx, sy = smooth_curve(b, f)
-    figure = Figure("prepost-scatter", "scatter_identity",
-                    f"{data.spec.display_name}: follow-up against baseline",
-                    {"groups": groups, "smooth": {"x": sx, "y": sy},
-                     "xlabel": _axis(data.spec, "Baseline"), "ylabel": _axis(data.spec, "Follow-up")},
-                    caption="Dashed: identity line (follow-up = baseline). Solid: LOWESS smooth, pooled." + note,
-                    by_arm=bool(arms))
     return result(check, data, Verdict.FOR_INFORMATION, headline, subfindings=subs, estimates=estimates, tables=tables,
-                  figures=[figure],
+                  figures=[_scatter(data, an, ctx.seed)],
                   references=cite(["frison-pocock-1992", "clifton-2019", "fieller-1957", "cleveland-1979"]),
                   method="Pearson r with Fisher z interval; Spearman rho with the Fieller-Hartley-Pearson "
                          "interval; least-squares slope of follow-up on baseline with arm as a factor; "

@@ -11,7 +11,6 @@ from dataclasses import dataclass, field
 from typing import Callable
 
 from ..metadata import OutcomeSpec, Thresholds
-from ..results import CheckResult
 
 
 class NotAssessable(Exception):

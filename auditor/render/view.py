@@ -213,13 +213,6 @@ def _numeric_column(rows, i: int) -> bool:
     return bool(cells) and all(_is_number(c) for c in cells)
 
 
-def _figure_src(f) -> str | None:
-    """The figure as an inline data URI: the pipeline's drawing when it made one, else drawn here
-    (for records built outside the pipeline); None when it could not be drawn (the pipeline has then
-    recorded why in the figure and the result's caveats)."""
-    return _figure_drawing(f)[0]
-
-
 def _figure_drawing(f) -> tuple[str | None, str]:
     """The figure's data URI and its printed width (CSS, "" for the drawing's own size).
 

@@ -585,7 +585,7 @@ def _evaluate(data: _Data, alpha: np.ndarray, b: np.ndarray) -> _Evaluation:
     score_eta[up] = np.exp(log_f_neg_u)
     score_eta[lo] -= np.exp(log_f_v)
 
-    w, z, p = data.w, data.z, data.p
+    w, z = data.w, data.z
     wf_u, wf_v = w * f_u, w * f_v
     sum_a, sum_b, sum_fu, sum_fv, sum_ab, sum_zfu, sum_zfv = _sum_by_category(
         data, w * a, w * bb, wf_u, wf_v, w * a * bb, z * wf_u[:, None], z * wf_v[:, None]

@@ -613,7 +613,6 @@ def rtm(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Draft:
     grid = sf.rtm_grid(e.assumed_mean, e.assumed_sd, e.reliability, e.lower, e.upper)
     shifts = [g[2] / e.assumed_sd for g in grid]
     largest = max(abs(s) for s in shifts)
-    smallest = min(abs(s) for s in shifts)
     # signed, like the change in units beside it, so the two ranges read in the same direction
     sd_span = f"{fmt(min(shifts))} to {fmt(max(shifts))} population SDs"
     material = largest > MATERIAL_SD

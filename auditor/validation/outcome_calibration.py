@@ -29,7 +29,7 @@ from __future__ import annotations
 import math
 import time
 import zlib
-from dataclasses import asdict, dataclass
+from dataclasses import dataclass
 from typing import Callable
 
 import numpy as np
@@ -331,10 +331,6 @@ def markdown_table(rows: list[CalibrationRow]) -> str:
                    f"{r.any_caution:.3f} ({mcse(r.any_caution, r.replicates):.3f}) | {by} | "
                    f"{r.judged or 'reported'} | {'pass' if r.passed else 'FAIL'} |")
     return "\n".join(out)
-
-
-def row_record(r: CalibrationRow) -> dict:
-    return asdict(r)
 
 
 PASS_NOTE = (f"Per outcome, every applicable check together. Null: any unsupported <= {NULL_UNSUPPORTED:g} + "

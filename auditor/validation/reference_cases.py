@@ -67,8 +67,6 @@ def _frison_pocock_sim() -> float:
 
 
 def _boxcox_log_profile() -> float:
-    from scipy import stats
-
     from ..stats.diagnostics import boxcox_profile
 
     rng = np.random.default_rng(9)

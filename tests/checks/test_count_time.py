@@ -217,3 +217,25 @@ def test_changed_count_ratio_threshold_changes_the_verdict_on_the_same_data():
     assert default.verdict == Verdict.UNSUPPORTED and loose.verdict == Verdict.CAUTION
     assert "not wholly beyond the materiality threshold (2 or 1/2)" in loose.headline
     assert "beyond a factor of 2 or its inverse" in loose.method
+
+
+def test_analysis_numbers_come_before_any_wording_and_match_statsmodels(example_copy):
+    # The check's analysis alone (no sentences): its rate ratio equals a Poisson GLM with log time as
+    # offset fitted by statsmodels (reference library) on the same participants, and its flags agree
+    # with the verdict the wording then reaches.
+    import statsmodels.api as sm
+
+    from auditor.checks.count_time import analyse
+    from auditor.checks.registry import CheckContext
+
+    frame = simulate(np.random.default_rng(5), n=400, days_active=(10, 20))
+    data = cases.outcome_data_for(frame, _spec(example_copy))
+    an = analyse(data, CheckContext(seed=1, blinded=False, quick=True))
+    df = an.df
+    x = sm.add_constant(np.column_stack([an.cols[k] for k in an.cols]))
+    ref = sm.GLM(df["followup"].to_numpy(float), x, family=sm.families.Poisson(),
+                 offset=np.log(df["followup_time"].to_numpy(float))).fit(cov_type="HC0")
+    arm_col = [i for i, k in enumerate(an.cols) if k != "log baseline rate"][0] + 1
+    assert an.comparisons[0]["rate"][0] == pytest.approx(math.exp(ref.params[arm_col]), rel=1e-6)
+    assert not an.spread.equal and an.material and an.times_by_arm.differs
+    assert _run(_spec(example_copy), frame).verdict == Verdict.UNSUPPORTED

@@ -119,3 +119,25 @@ def test_prepost_slope_recovers_known_truth():
     df = pd.DataFrame({"baseline": b, "followup": f, "arm": arm})
     est, lo, hi, *_ = baseline_slope(df, ["A", "B"], "A")
     assert lo < 0.6 < hi
+
+
+def test_analysis_holds_the_numbers_before_wording(anorexia):
+    # The analysis alone: within-arm Pearson r equals scipy's (reference library) per arm, the slope
+    # equals statsmodels' OLS with arm as a factor, and arms with fewer than 4 pairs are left out.
+    from auditor.checks.prepost import analyse
+    from auditor.checks.registry import CheckContext
+    from auditor.metadata import OutcomeSpec
+    from auditor.study import OutcomeData
+
+    frame = anorexia.assign(subject=[f"S{i}" for i in range(len(anorexia))], **{"fu:F": anorexia["followup"]})
+    spec = OutcomeSpec(param="WT", scale="continuous", baseline_visit="B", followup_visits=["F"],
+                       planned_analysis="follow-up-adjusted")
+    an = analyse(OutcomeData(spec, frame, ["Cont", "CBT", "FT"], "Cont", "parallel", []),
+                 CheckContext(seed=1, blinded=False))
+    for c in an.by_arm:
+        sub = anorexia[anorexia["arm"] == c.arm]
+        assert c.n == len(sub)
+        assert c.pearson.r == pytest.approx(stats.pearsonr(sub["baseline"], sub["followup"]).statistic, abs=1e-12)
+    ref = smf.ols("followup ~ baseline + C(arm)", anorexia).fit()
+    assert an.slope[0] == pytest.approx(ref.params["baseline"], abs=1e-10)
+    assert {c.arm for c in an.by_arm} == {"Cont", "CBT", "FT"}
