@@ -178,7 +178,7 @@ def main() -> None:
               f"target ({quarter:.1f} s = a quarter of before); one WeasyPrint document is laid out on one core")
 
         if args.outcomes:
-            print(f"\n4. many outcomes x 30 participants, this tree, --formats json,csv and full")
+            print("\n4. many outcomes x 30 participants, this tree, --formats json,csv and full")
             for k in (args.outcomes, 2 * args.outcomes):
                 make_many_outcomes(tmp / f"many{k}", k)
                 for fmt in ("json,csv", "html,pdf,json,csv"):
