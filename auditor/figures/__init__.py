@@ -21,8 +21,8 @@ import matplotlib
 import numpy as np
 
 matplotlib.use("Agg")
-import matplotlib.pyplot as plt  # noqa: E402
-from matplotlib.transforms import Bbox  # noqa: E402
+from matplotlib.backends.backend_agg import FigureCanvasAgg, RendererAgg  # noqa: E402
+from matplotlib.figure import Figure as MplFigure  # noqa: E402
 
 from ..errors import BIDI_CONTROL_CHARS  # noqa: E402
 from ..results import Figure  # noqa: E402
@@ -95,16 +95,19 @@ def _load():
 @contextmanager
 def _drawing(fig: Figure, dpi: float | None = None):
     """The matplotlib figure of ``fig``, drawn by its registered drawing function in the house style
-    (which stays in force while the caller saves it), closed whatever happens."""
+    (which stays in force while the caller saves it).
+
+    A bare matplotlib figure on an Agg canvas rather than one made through pyplot: nothing is
+    displayed, so pyplot's registry of open figures and its window managers are only overhead, and
+    nothing needs closing: the figure is freed with its last reference.
+    """
     _load()
     fn = _DRAWERS[fig.kind]
-    with plt.rc_context(STYLE):
-        mfig = plt.figure(figsize=fn.size, dpi=dpi or STYLE["figure.dpi"])
-        try:
-            fn(plain_labels(fig.data), mfig)
-            yield mfig
-        finally:
-            plt.close(mfig)
+    with matplotlib.rc_context(STYLE):
+        mfig = MplFigure(figsize=fn.size, dpi=dpi or STYLE["figure.dpi"])
+        FigureCanvasAgg(mfig)
+        fn(plain_labels(fig.data), mfig)
+        yield mfig
 
 
 def _drawn(fig: Figure, buf, dpi: float | None = None, **save):
@@ -153,11 +156,11 @@ a fixed level, so the bytes repeat on reruns with the same libraries."""
 
 
 CANVAS_MARGINS = (2.0, 0.8, 2.0, 0.6)
-"""Inches of canvas beyond the figure's own box (left, bottom, right, top) that a raster is drawn
-on before it is cropped to its content: room for what a figure draws outside its box (long row
-labels on the left, a legend placed to the right, axis labels below). On the example audit's 46
-figures content reached at most 1.7 in past the box, left or right; a figure that reaches the
-canvas edge all the same is measured and drawn again (:func:`_save_measured`)."""
+"""Inches of canvas beyond a figure's own box (left, bottom, right, top) that a raster is drawn on
+before it is cropped to its content: room for what a figure draws outside its box (long row labels
+on the left, a legend placed to the right, axis labels below). On the example audit's 46 figures
+content reached at most 1.7 in past the box, left or right; a figure that reaches the canvas edge
+all the same is measured and drawn again (:func:`_save_measured`)."""
 
 
 def to_png(fig: Figure, dpi: int = PNG_DPI) -> bytes:
@@ -174,41 +177,53 @@ def to_png(fig: Figure, dpi: int = PNG_DPI) -> bytes:
         rgb = _ink_crop(_canvas_raster(mfig), round(PAD_INCHES * dpi))
         if rgb is None:
             rgb = _measured_raster(mfig)
+        else:
+            rgb = rgb.copy()  # the canvas is drawn over by the next figure
     return encode_png(rgb)
 
 
-class _RasterSink:
-    """A write-only file for ``savefig(format="raw")`` that keeps the renderer's RGBA buffer as an
-    (height, width, 4) array instead of copying its bytes."""
-
-    rgba: np.ndarray | None = None
-
-    def write(self, data) -> int:
-        self.rgba = np.asarray(data)
-        return self.rgba.nbytes
-
-    def seek(self, offset: int, whence: int = 0) -> int:  # matplotlib takes a file to be what can seek
-        return 0
+_RENDERERS: dict[tuple[int, int, float], RendererAgg] = {}
+"""One Agg renderer per canvas size and resolution, kept for the process: matplotlib caches text
+extents per renderer, and the same tick labels, axis labels and legend entries recur from one
+figure to the next. The cache holds measurements only (a pure function of text, font and
+resolution), and the canvas is cleared before each drawing, so a figure's pixels do not depend
+on what was drawn before it."""
 
 
 def _canvas_raster(mfig) -> np.ndarray:
-    """``mfig`` drawn at its own resolution onto its box widened by :data:`CANVAS_MARGINS`, as RGBA."""
+    """``mfig`` drawn at its own resolution onto its box widened by :data:`CANVAS_MARGINS`, as an
+    RGBA view of the shared renderer's buffer (valid until the next drawing).
+
+    The figure is enlarged to the canvas and each axes moved so that it keeps its size and its
+    place relative to the others in inches: what the figure drew is unchanged, only the margin
+    around it grows.
+    """
     left, bottom, right, top = CANVAS_MARGINS
     width, height = mfig.get_size_inches()
-    sink = _RasterSink()
-    mfig.savefig(sink, bbox_inches=Bbox.from_extents(-left, -bottom, width + right, height + top),
-                 dpi=mfig.dpi, format="raw")
-    if sink.rgba is None or sink.rgba.ndim != 3 or sink.rgba.shape[2] != 4:
-        raise ValueError("matplotlib handed over no RGBA raster")
-    return sink.rgba
+    canvas_w, canvas_h = width + left + right, height + bottom + top
+    for ax in mfig.axes:
+        x0, y0, w, h = ax.get_position().bounds
+        ax.set_position([(left + x0 * width) / canvas_w, (bottom + y0 * height) / canvas_h,
+                         w * width / canvas_w, h * height / canvas_h])
+    mfig.set_size_inches(canvas_w, canvas_h)
+    w_px, h_px = (int(v) for v in mfig.bbox.size)
+    key = (w_px, h_px, float(mfig.dpi))
+    renderer = _RENDERERS.get(key)
+    if renderer is None:
+        renderer = _RENDERERS[key] = RendererAgg(w_px, h_px, mfig.dpi)
+    renderer.clear()
+    mfig.draw(renderer)
+    return np.asarray(renderer.buffer_rgba())
 
 
 def _ink_crop(rgba: np.ndarray, pad: int) -> np.ndarray | None:
-    """The RGB pixels of the smallest box holding every pixel that differs from the canvas corner
-    (the opaque background), widened by ``pad`` pixels on each side; None when that box would reach
-    past the canvas (content cut off at its edge) or nothing is drawn."""
+    """The RGB pixels of the smallest box holding every pixel whose colour differs from the canvas
+    corner's (the background; opacity is not compared, so a cleared pixel and the figure's white
+    face are both background), widened by ``pad`` pixels on each side; None when that box would
+    reach past the canvas (content cut off at its edge) or nothing is drawn."""
     height, width, _ = rgba.shape
-    pixels = rgba.view(np.uint32).reshape(height, width)
+    opaque = np.uint32(0xFF000000)  # the alpha byte of a little-endian RGBA word
+    pixels = rgba.view("<u4").reshape(height, width) | opaque
     ink = pixels != pixels[0, 0]
     rows = np.flatnonzero(ink.any(axis=1))
     if rows.size == 0:
