@@ -23,6 +23,7 @@ import numpy as np
 matplotlib.use("Agg")
 from matplotlib.backends.backend_agg import FigureCanvasAgg, RendererAgg  # noqa: E402
 from matplotlib.figure import Figure as MplFigure  # noqa: E402
+from matplotlib.ticker import FixedFormatter, FixedLocator, NullLocator  # noqa: E402
 
 from ..errors import BIDI_CONTROL_CHARS  # noqa: E402
 from ..results import Figure  # noqa: E402
@@ -107,7 +108,39 @@ def _drawing(fig: Figure, dpi: float | None = None):
         mfig = MplFigure(figsize=fn.size, dpi=dpi or STYLE["figure.dpi"])
         FigureCanvasAgg(mfig)
         fn(plain_labels(fig.data), mfig)
+        for ax in mfig.axes:
+            _settle_ticks(ax.xaxis)
+            _settle_ticks(ax.yaxis)
         yield mfig
+
+
+def _settle_ticks(axis) -> None:
+    """Fix an axis's major ticks at the positions and labels its locator and formatter give now.
+
+    Matplotlib asks the locator and the formatter again each time the axis is measured or drawn
+    (three to four times per axis in a drawing: the axis, its label's place, its neighbour's), and
+    makes a tick object, five artists, for every position the locator returns, including those just
+    outside the view that are never drawn. Once the drawing function has set the limits, the same
+    positions and labels (and the formatter's offset, e.g. "1e3") are handed over once, only those
+    inside the view, so the figure prints the same ticks. An axis whose ticks are already fixed, or
+    switched off, is left alone.
+    """
+    if isinstance(axis.get_major_locator(), (FixedLocator, NullLocator)):
+        return
+    locs = np.asarray(axis.get_majorticklocs(), dtype=float)
+    formatter = axis.get_major_formatter()
+    labels = formatter.format_ticks(locs)
+    offset = formatter.get_offset()
+    scale = axis.get_transform()
+    lo, hi = sorted(scale.transform(np.asarray(axis.get_view_interval(), dtype=float)))
+    slack = (hi - lo) * 1e-10  # matplotlib's own tolerance for a tick at the view's edge
+    with np.errstate(invalid="ignore"):
+        at = scale.transform(locs)
+        inside = (at >= lo - slack) & (at <= hi + slack)
+    fixed = FixedFormatter([label for label, keep in zip(labels, inside) if keep])
+    fixed.set_offset_string(offset)
+    axis.set_major_locator(FixedLocator(locs[inside]))
+    axis.set_major_formatter(fixed)
 
 
 def _drawn(fig: Figure, buf, dpi: float | None = None, **save):
@@ -177,9 +210,7 @@ def to_png(fig: Figure, dpi: int = PNG_DPI) -> bytes:
         rgb = _ink_crop(_canvas_raster(mfig), round(PAD_INCHES * dpi))
         if rgb is None:
             rgb = _measured_raster(mfig)
-        else:
-            rgb = rgb.copy()  # the canvas is drawn over by the next figure
-    return encode_png(rgb)
+        return encode_png(rgb)  # before the shared canvas is drawn over by another figure
 
 
 _RENDERERS: dict[tuple[int, int, float], RendererAgg] = {}
