@@ -10,6 +10,7 @@ glyph outlines took most of the PDF's time.
 
 from __future__ import annotations
 
+import gc
 import io
 import re
 import struct
@@ -84,8 +85,15 @@ def kinds() -> list[str]:
     return sorted(_DRAWERS)
 
 
+_LOADED: list[bool] = []
+
+
 def _load():
-    """Import every drawing module in this package (each registers its kinds with @drawer)."""
+    """Import every drawing module in this package (each registers its kinds with @drawer), once
+    per process: listing the package's folder again for every figure only costs time."""
+    if _LOADED:
+        return
+    _LOADED.append(True)
     import importlib
     import pkgutil
 
@@ -206,11 +214,30 @@ def to_png(fig: Figure, dpi: int = PNG_DPI) -> bytes:
     measured and drawn again to its measured box. :func:`encode_png` writes the raster as an opaque
     RGB PNG with no time and no software tag, so reruns give the same bytes.
     """
-    with _drawing(fig, dpi) as mfig:
+    with _collector_paused(), _drawing(fig, dpi) as mfig:
         rgb = _ink_crop(_canvas_raster(mfig), round(PAD_INCHES * dpi))
         if rgb is None:
             rgb = _measured_raster(mfig)
         return encode_png(rgb)  # before the shared canvas is drawn over by another figure
+
+
+@contextmanager
+def _collector_paused():
+    """Python's cycle collector held off while one figure is built and drawn, then restored.
+
+    A figure is thousands of small matplotlib objects linked in cycles (each artist points to its
+    figure and axes); building one set the collector off dozens of times, each pass also walking
+    whatever the audit keeps alive, and promoted the figure's objects to older generations that are
+    scanned again later. Held off, the whole figure is collected in one pass after it is dropped.
+    Nothing drawn depends on it. A collector the caller had switched off stays off.
+    """
+    was_on = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if was_on:
+            gc.enable()
 
 
 _RENDERERS: dict[tuple[int, int, float], RendererAgg] = {}
