@@ -2,7 +2,17 @@
 
 from __future__ import annotations
 
+from matplotlib import ticker
+
 from . import PALETTE, drawer
+
+
+def plain_log_labels(axis) -> None:
+    """Label a logarithmic axis in plain numbers (10, 20, 50, 100). Matplotlib's own log labels are
+    mathtext (``$\\mathdefault{10^{1}}$``), which would print literally because mathtext is off for
+    every text in these figures (user labels may hold a ``$``)."""
+    axis.set_major_formatter(ticker.LogFormatter(10))
+    axis.set_minor_formatter(ticker.LogFormatter(10, labelOnlyBase=False))
 
 
 @drawer("relative_scatter")
@@ -21,6 +31,7 @@ def relative_scatter(data, fig):
         ax.axvline(m["x"], ls=":", lw=1.0, color="#922b21", label=m.get("label"))
     if data.get("xlog"):
         ax.set_xscale("log")
+        plain_log_labels(ax.xaxis)
     ax.set_xlabel(data["xlabel"])
     ax.set_ylabel(data["ylabel"])
     if len(groups) > 1 or any(m.get("label") for m in data.get("vlines", [])):

@@ -83,3 +83,21 @@ def test_settled_ticks_print_what_matplotlib_prints(fig, monkeypatch):
     settled = to_png(fig)
     monkeypatch.setattr(figures, "_settle_ticks", lambda axis: None)
     assert to_png(fig) == settled
+
+
+@pytest.mark.parametrize("low, high", [(0.0, 5.0), (3.0, 4.3)])
+def test_a_log_axis_is_labelled_in_plain_numbers(low, high):
+    # Mathtext is off for every text (user labels may hold a "$"), so matplotlib's own log labels,
+    # "$\mathdefault{10^{1}}$", would print literally. Over several decades the decades are labelled;
+    # within one decade the intermediate ticks carry the labels.
+    rng = np.random.default_rng(1)
+    x = np.exp(rng.uniform(low, high, 200)).tolist()
+    fig = Figure("log", "relative_scatter", "log axis", {"groups": [{"label": "A", "x": x, "y": x}],
+                                                          "hlines": [0.0], "xlog": True, "xlabel": "Baseline",
+                                                          "ylabel": "Change"})
+    with figures._drawing(fig) as mfig:
+        axis = mfig.axes[0].xaxis
+        labels = [t.get_text() for t in axis.get_majorticklabels() + axis.get_minorticklabels()]
+    shown = [s for s in labels if s]
+    assert len(shown) >= 2
+    assert all(s.replace(".", "", 1).isdigit() for s in shown), shown
