@@ -16,7 +16,7 @@ import math
 import numpy as np
 
 from ..references import add_reference, cite
-from ..results import Figure, SubFinding, Table, Verdict
+from ..results import Figure, SubFinding, Table, Verdict, interval_words
 from ..stats.linear import arm_indicators
 from ..stats.rates import coefficient_shift, fit_log_linear, log_baseline_rate, time_spread, times_differ_by_arm
 from .common import arms_present, estimate, fmt, fmt_ci, fmt_p, result, thin
@@ -214,16 +214,18 @@ def run(data, ctx: CheckContext):
                           estimate(f"Count ratio over rate ratio, {c['name']}", s.estimate, s.lower, s.upper,
                                    by_arm=True,
                                    note=f"material when the whole interval lies beyond {threshold:g} or its "
-                                        f"inverse (count_ratio); interval from the stacked sandwich of both fits",
+                                        f"inverse (count_ratio); {interval_words('', ctx.level)} from the stacked "
+                                        "sandwich of both fits",
                                    key=f"count-time.count-over-rate.contrast-{i}", arm=c["name"])]
             rows += [["rate model (reference)", c["name"], "ratio of rates", rr, rl, ru],
                      ["counts, time ignored", c["name"], "ratio of counts", cr, cl, cu]]
+        sandwich = interval_words("robust (sandwich)", ctx.level, noun="intervals")
         tables.append(Table("rate-vs-count", "The treatment comparison with and without observation time, "
                                              "same participants",
                             ["Analysis", "Contrast", "Effect", "Estimate", "Lower", "Upper"], rows,
-                            note="Both are Poisson log-linear models with robust (sandwich) intervals, adjusted for "
-                                 "the baseline rate (rate model) or the log baseline count (counts)." if with_baseline
-                            else "Both are Poisson log-linear models with robust (sandwich) intervals.",
+                            note=f"Both are Poisson log-linear models with {sandwich}, adjusted for the baseline rate "
+                                 "(rate model) or the log baseline count (counts)." if with_baseline
+                            else f"Both are Poisson log-linear models with {sandwich}.",
                             by_arm=True))
         detectable = not spread.equal and any(c["shift"].detectable or
                                               max(c["shift"].estimate, 1 / c["shift"].estimate) >= threshold
@@ -258,8 +260,8 @@ def run(data, ctx: CheckContext):
                          "convention); Kruskal-Wallis test of time across arms; Poisson log-linear models of the "
                          "follow-up count with robust (HC0) standard errors: with log time as offset (the rate "
                          "ratio), without it (the count ratio), and with log time as a covariate (its slope is 1 "
-                         "when counts are proportional to time); the count ratio over the rate ratio with a Wald "
-                         "interval from the stacked sandwich of the two fits (Stefanski and Boos 2002). "
+                         "when counts are proportional to time); the count ratio over the rate ratio with a "
+                         f"{interval_words('Wald', ctx.level)} from the stacked sandwich of the two fits (Stefanski and Boos 2002). "
                          "Unsupported when that interval lies wholly beyond a factor of "
                          f"{threshold:g} or its inverse (count_ratio; default a convention of this tool).")
 

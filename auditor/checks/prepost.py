@@ -16,7 +16,7 @@ import warnings
 import numpy as np
 
 from ..references import cite
-from ..results import Figure, SubFinding, Table, Verdict, level_label
+from ..results import Figure, SubFinding, Table, Verdict, interval_words, level_label
 from ..stats.correlation import pearson, spearman
 from ..stats.linear import adjusted_slope, arm_indicators
 from .common import arms_present, complete_pairs, estimate, fmt_ci, result, thin
@@ -110,8 +110,8 @@ def run(data, ctx: CheckContext):
     return result(check, data, Verdict.FOR_INFORMATION, headline, subfindings=subs, estimates=estimates, tables=tables,
                   figures=[figure],
                   references=cite(["frison-pocock-1992", "clifton-2019", "fieller-1957", "cleveland-1979"]),
-                  method="Pearson r with Fisher z interval; Spearman rho with the Fieller-Hartley-Pearson "
-                         "interval; least-squares slope of follow-up on baseline with arm as a factor; "
+                  method=f"Pearson r with {interval_words('Fisher z', ctx.level)}; Spearman rho with the "
+                         f"{interval_words('Fieller-Hartley-Pearson', ctx.level)}; least-squares slope of follow-up on baseline with arm as a factor; "
                          f"t-based {level_label(ctx.level)} CI.")
 
 
