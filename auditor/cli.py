@@ -255,7 +255,10 @@ def run(
                            for o, given in (("--blinded" if blinded else "--unblinded", blinded is not None),
                                             ("--list-left-out", list_left_out),
                                             ("--withhold-pooled" if withhold_pooled else "--show-pooled",
-                                             withhold_pooled is not None)) if given])
+                                             withhold_pooled is not None)) if given]
+                          + ([option_problem("--memo", "an audit from published summaries has no memo (its short "
+                                                       "text for the authors is comments.md)",
+                                             "leave the option out for a summaries folder")] if memo else []))
             return _run_summaries(study_dir, output, force, analysis_date, today, seed, paper, check, strict, quiet,
                                   formats, level)
         refuse_if_any(seed_problems(seed), level_problems(level), date_problems(analysis_date, "--analysis-date"),
