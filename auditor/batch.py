@@ -145,7 +145,8 @@ def audit_one(args: tuple) -> StudyOutcome:
     memo = bool(options.pop("memo", False))
     try:
         if is_summaries_folder(Path(folder)):
-            audit = audit_summaries_into(Path(folder), Path(target), options, paper, force, formats, figure_data)
+            audit = audit_summaries_into(Path(folder), Path(target), options, paper, force, formats, figure_data,
+                                         memo)
         else:
             study = load_study(folder)
             audit = audit_study(study, AuditOptions(**options, draw=bool({"html", "pdf"} & set(formats))))
@@ -188,10 +189,11 @@ def study_output_files(folder: Path, data_files: tuple[str, ...]) -> tuple[str, 
 
 
 def audit_summaries_into(folder: Path, target: Path, options: dict, paper: str, force: bool,
-                         formats: tuple[str, ...], figure_data: bool):
+                         formats: tuple[str, ...], figure_data: bool, memo: bool = False):
     """Audit a folder of published summaries and write its files (comments.md included) into
     ``target``, as ``auditor run`` does. ``--blinded``/``--unblinded`` have no meaning without
-    participant data: asking for either fails this study, naming the option, as ``run`` refuses it."""
+    participant data, and such an audit has no memo (comments.md is its short text): asking for
+    either fails this study, naming the option, as ``run`` refuses it."""
     from .pipeline import AuditOptions
     from .summaries.audit import audit_summaries, load_summary_study
     from .summaries.output import write_summary_audit
@@ -199,6 +201,12 @@ def audit_summaries_into(folder: Path, target: Path, options: dict, paper: str, 
     if options.get("blinded") is not None:
         raise StudyInputError([InputProblem(str(folder / "study.toml"), "-", "source",
                                             "--blinded/--unblinded do not apply to published summaries",
+                                            "leave the option out, or list this folder in a separate batch")],
+                              "in the batch options")
+    if memo:
+        raise StudyInputError([InputProblem(str(folder / "study.toml"), "-", "source",
+                                            "--memo does not apply to published summaries (comments.md is their "
+                                            "short text for the authors)",
                                             "leave the option out, or list this folder in a separate batch")],
                               "in the batch options")
     opts = {k: options.get(k) for k in ("analysis_date", "seed", "quick", "level") if options.get(k) is not None}

@@ -13,20 +13,61 @@ import sys
 import traceback
 import warnings
 from pathlib import Path
-from typing import List, Optional
+from typing import TYPE_CHECKING, List, Optional
 
 import typer
-from rich.console import Console
-from rich.table import Table
-from rich.text import Text
 
 from . import __version__
 from .errors import StudyInputError, option_problem
 
+if TYPE_CHECKING:  # rich is imported where a styled line is printed
+    from rich.text import Text
+
 app = typer.Typer(add_completion=False, no_args_is_help=True, rich_markup_mode=None,
                   help="Audit whether a clinical trial's planned analyses are supported by its own data.")
-out = Console(highlight=False, soft_wrap=True, emoji=False)
-err = Console(stderr=True, highlight=False, soft_wrap=True, emoji=False)
+
+
+class _Console:
+    """A terminal console made on first need, so that a command printing only plain lines (``validate``
+    of a valid study) never imports the terminal library (about a tenth of a second).
+
+    A plain line (one printable ASCII string, markup off) is written as the console would write it:
+    the text and a newline, no styles, no wrapping (``soft_wrap``). Anything else (markup, tables,
+    progress, width) goes to the real console, made once."""
+
+    def __init__(self, stderr: bool = False):
+        self._stderr = stderr
+        self._console = None
+
+    @property
+    def console(self):
+        if self._console is None:
+            from rich.console import Console
+
+            self._console = Console(stderr=self._stderr, highlight=False, soft_wrap=True, emoji=False)
+        return self._console
+
+    def print(self, *objects, **options) -> None:
+        if (self._console is None and len(objects) == 1 and options == {"markup": False}
+                and isinstance(objects[0], str) and objects[0].isascii() and objects[0].isprintable()):
+            stream = sys.stderr if self._stderr else sys.stdout
+            stream.write(objects[0] + "\n")
+            stream.flush()
+            return
+        self.console.print(*objects, **options)
+
+    def __getattr__(self, name):
+        return getattr(self.console, name)
+
+    def __setattr__(self, name, value):
+        if name in ("_stderr", "_console"):
+            object.__setattr__(self, name, value)
+        else:
+            setattr(self.console, name, value)
+
+
+out = _Console()
+err = _Console(stderr=True)
 
 EXIT_INPUT = 2
 EXIT_INTERNAL = 1
@@ -39,6 +80,8 @@ def _cells(*values) -> list[Text]:
     """Table cells as plain text, so brackets or colons in study codes are never read as markup, and
     with control and bidirectional characters shown as escapes, so a label's right-to-left override
     cannot reverse the table around it."""
+    from rich.text import Text
+
     from .errors import one_line_text
 
     return [Text(one_line_text(v, 10_000)) for v in values]
@@ -159,7 +202,10 @@ def _note_files_left(folder: Path, formats) -> None:
                   f"(not in --formats).", markup=False)
 
 
-def _summary_table(audit) -> Table:
+def _summary_table(audit):
+    from rich.table import Table
+    from rich.text import Text
+
     table = Table(title=Text(f"{audit.study_id}: findings"), show_lines=False)
     table.add_column("Outcome")
     table.add_column("Check")
@@ -192,9 +238,10 @@ def _outcome_progress(total: int, quiet: bool):
         yield line
         return
     from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
+    from rich.text import Text
 
     with Progress(TextColumn("outcomes"), BarColumn(), MofNCompleteColumn(), TextColumn("{task.fields[last]}"),
-                  TimeElapsedColumn(), console=err, transient=True, auto_refresh=False) as progress:
+                  TimeElapsedColumn(), console=err.console, transient=True, auto_refresh=False) as progress:
         # No refresh thread: outcomes may be audited in forked processes, and a fork should not copy
         # a thread that holds the console's lock.
         task = progress.add_task("outcomes", total=total, last="")
@@ -255,7 +302,10 @@ def run(
                            for o, given in (("--blinded" if blinded else "--unblinded", blinded is not None),
                                             ("--list-left-out", list_left_out),
                                             ("--withhold-pooled" if withhold_pooled else "--show-pooled",
-                                             withhold_pooled is not None)) if given])
+                                             withhold_pooled is not None)) if given]
+                          + ([option_problem("--memo", "an audit from published summaries has no memo (its short "
+                                                       "text for the authors is comments.md)",
+                                             "leave the option out for a summaries folder")] if memo else []))
             return _run_summaries(study_dir, output, force, analysis_date, today, seed, paper, check, strict, quiet,
                                   formats, level)
         refuse_if_any(seed_problems(seed), level_problems(level), date_problems(analysis_date, "--analysis-date"),
@@ -425,6 +475,8 @@ def batch(
                                       "summary.csv": summary_csv(results).encode("utf-8")},
                                      output, force=force, protected=folders, what="a batch")
         _report_recovery(recovery, output)
+        from rich.table import Table
+
         table = Table(title=f"batch: {len(results)} studies")
         table.add_column("Study")
         table.add_column("Status")
@@ -450,7 +502,7 @@ def _run_with_progress(folders, output, options, n_jobs, paper, force):
 
     outcomes_done = [0]
     with Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), TextColumn("{task.fields[extra]}"),
-                  TimeElapsedColumn(), TimeRemainingColumn(), console=err, transient=False) as progress:
+                  TimeElapsedColumn(), TimeRemainingColumn(), console=err.console, transient=False) as progress:
         task = progress.add_task("studies", total=len(folders), extra="")
 
         def tick(result):
@@ -534,6 +586,8 @@ def _print_comparison(cmp, old: dict, new: dict) -> None:
         for e in items:
             out.print(f"{label}: {e.outcome} / {e.check_id} / {e.key or e.name}", markup=False)
     if cmp.verdicts_moved:
+        from rich.table import Table
+
         t = Table(title="verdicts that moved")
         widest_check = max(len(c) for _, c, _, _ in cmp.verdicts_moved)
         for col in ("Outcome", "Check", "Before", "After", "Moved by"):  # folded, never cut short

@@ -18,6 +18,7 @@ from typing import Annotated, ClassVar, Literal, Optional, Union
 from pydantic import (BaseModel, ConfigDict, Field, PlainValidator, StrictBool, StrictFloat, StrictInt, StrictStr,
                       ValidationError, field_validator, model_validator)
 
+from . import results
 from .errors import ProblemLog, did_you_mean
 
 if sys.version_info >= (3, 11):
@@ -78,7 +79,7 @@ MAX_SEED = 2**32 - 1
 ``numpy.random.default_rng``, which accepts any non-negative integer; the upper limit keeps a seed
 recordable as an unsigned 32-bit number in every output."""
 
-DEFAULT_LEVEL = 0.95
+DEFAULT_LEVEL = results.DEFAULT_LEVEL
 """Two-sided confidence level of every interval of an audit unless study.toml's ``[study]
 confidence_level`` or ``--level`` says otherwise (the customary 95%; a convention, no source)."""
 MIN_LEVEL, MAX_LEVEL = 0.5, 0.999

@@ -85,6 +85,26 @@ def level_label(level: float) -> str:
     return f"{round(100 * level, 6):g}%"
 
 
+DEFAULT_LEVEL = 0.95
+"""The audit's level when neither ``--level`` nor study.toml's ``confidence_level`` names one (the
+customary 95%; a convention, no source); ``metadata.DEFAULT_LEVEL`` is this value, read from here."""
+
+
+def interval_words(kind: str, level: float, usual: str | None = None, noun: str = "interval") -> str:
+    """How a text names an interval of one construction, so that no text reads as if 95% were meant
+    when the audit's level is another.
+
+    At the default level the customary wording is kept (``usual``, else "<kind> <noun>": "Wald
+    interval", "delta-method CI"), so a report at 95% reads as it always has and its level is stated
+    once, in the report's level statement. At any other level the level is named in front:
+    "90% delta-method interval", "90% Wald interval"; ``noun`` may be "intervals", "CI" or empty
+    ("90% percentile bootstrap, 1000 replicates")."""
+    words = " ".join(w for w in (kind, noun) if w)
+    if math.isclose(level, DEFAULT_LEVEL, rel_tol=0.0, abs_tol=1e-12):
+        return words if usual is None else usual
+    return f"{level_label(level)} {words}" if words else level_label(level)
+
+
 @dataclass(frozen=True)
 class Estimate:
     """One estimated quantity with its uncertainty: a tidy row of a result."""

@@ -684,9 +684,12 @@ def _load_study_folder(folder: Path, metadata: bytes | None = None) -> Study:
     outcome_files = _outcome_files(long, meta, log)
     long, selection, units = _selected_records(long, raw_part, outcome_files, meta, log,
                                                {f: set(raws[f].columns) for f in visit_files})
+    by_file = _records_by_file(long, {outcome_files.get(spec.param, visit_files[0]) for spec in meta.outcomes})
     for i, spec in enumerate(meta.outcomes):
         label = outcome_files.get(spec.param, visit_files[0])
-        _check_outcome(long[long["file"] == label], participants, spec, i, meta, label, log)
+        frame, positions = by_file[label]
+        rows = frame.iloc[positions[spec.param]] if spec.param in positions else frame.iloc[:0]
+        _check_outcome(frame, participants, spec, i, meta, label, log, rows)
         _check_entry_conditions(long, spec, i, log)
     log.raise_if_errors()
 
@@ -724,13 +727,23 @@ def _pooled_without_arms(meta: StudyMetadata, participants: pd.DataFrame) -> boo
             and (participants["arm"] == POOLED_ARM).all())
 
 
+def _files_of_params(long: pd.DataFrame) -> dict[str, list[str]]:
+    """The visit files holding each parameter, sorted: from the distinct (parameter, file) pairs, so
+    that the work grows with the pairs rather than with a Python call per parameter group."""
+    pairs = long[["param", "file"]].dropna().drop_duplicates()
+    present: dict[str, set] = {}
+    for param, file in zip(pairs["param"].tolist(), pairs["file"].tolist()):
+        present.setdefault(param, set()).add(file)
+    return {param: sorted(files) for param, files in present.items()}
+
+
 def _outcome_files(long: pd.DataFrame, meta: StudyMetadata, log: ProblemLog) -> dict[str, str]:
     """The visit file of each outcome: ``outcomes.file`` when given, else the one file holding its
     parameter; a parameter in several files without ``file`` is refused (which one is meant?)."""
     out: dict[str, str] = {}
     if long.empty:
         return out
-    present = long.groupby("param", observed=True)["file"].agg(lambda s: sorted(set(s.dropna())))
+    present = _files_of_params(long)
     for i, spec in enumerate(meta.outcomes):
         holders = present.get(spec.param, [])
         if spec.file is not None:
@@ -1047,6 +1060,33 @@ def _visits_of(spec: OutcomeSpec) -> list:
     return out
 
 
+def _records_by_file(long: pd.DataFrame, labels: set[str]) -> dict[str, tuple[pd.DataFrame, dict]]:
+    """Each named visit file's records, with the row positions of each parameter in them, found in
+    one grouping pass per file (rather than comparing the whole text column once per outcome)."""
+    out = {}
+    for label in sorted(labels):
+        frame = long[(long["file"] == label).fillna(False).to_numpy(dtype=bool)]
+        out[label] = frame, frame.groupby("param", sort=False, dropna=True).indices
+    return out
+
+
+class _VisitIndex:
+    """The visit name and number of an outcome's records as plain arrays, compared once per visit
+    asked about: the same rows as :func:`_visit_rows`, without a text-column comparison each time."""
+
+    def __init__(self, rows: pd.DataFrame):
+        self.visit = rows["visit"].to_numpy(dtype=object, na_value=None)
+        self.number = (rows["visit_number"].to_numpy(dtype=object, na_value=None)
+                       if "visit_number" in rows.columns else None)
+
+    def rows(self, visit) -> np.ndarray:
+        key = _visit_key(visit)
+        mask = self.visit == key
+        if self.number is not None and isinstance(visit, (int, float)):
+            mask = mask | (self.number == key)
+        return np.asarray(mask, dtype=bool)
+
+
 def _visit_rows(rows: pd.DataFrame, visit) -> pd.Series:
     key = _visit_key(visit)
     mask = rows["visit"] == key
@@ -1056,29 +1096,33 @@ def _visit_rows(rows: pd.DataFrame, visit) -> pd.Series:
 
 
 def _check_outcome(long: pd.DataFrame, part: pd.DataFrame, spec: OutcomeSpec, i: int,
-                   meta: StudyMetadata, label: str, log: ProblemLog) -> None:
+                   meta: StudyMetadata, label: str, log: ProblemLog, rows: pd.DataFrame | None = None) -> None:
+    """One outcome's records against its declaration: visits present, one value per participant and
+    visit, values within bounds, levels or 0/1, baselines, observation times, covariates, endpoint.
+    ``rows`` are the outcome's records of ``long`` when the caller has found them already."""
     cm = meta.columns
     key = f"outcomes[{i}]"
-    rows = long[long["param"] == spec.param]
+    if rows is None:
+        rows = long[long["param"] == spec.param]
     if rows.empty:
         log.add(METADATA_FILE, f"{key}.param", "-", f"parameter '{spec.param}' is not in the data",
                 f"correct the code ({did_you_mean(spec.param, long['param'].dropna().unique())})")
         return
+    index = _VisitIndex(rows)
     known_visits = set(rows["visit"].dropna().unique())
     if "visit_number" in rows.columns:
         known_visits |= set(rows["visit_number"].dropna().unique())
     for name, visit in (("baseline_visit", spec.baseline_visit), ("screening_visit", spec.screening_visit),
                         *[(f"followup_visits[{j}]", v) for j, v in enumerate(spec.followup_visits)]):
-        if visit is not None and not _visit_rows(rows, visit).any():
+        if visit is not None and not index.rows(visit).any():
             log.add(METADATA_FILE, f"{key}.{name}", "-",
                     f"visit '{_visit_key(visit)}' has no rows for '{spec.param}'",
                     f"correct the visit name ({did_you_mean(_visit_key(visit), known_visits)})")
-    if spec.entry_criterion is not None and not _visit_rows(rows, spec.entry_criterion.visit).any():
+    if spec.entry_criterion is not None and not index.rows(spec.entry_criterion.visit).any():
         log.add(METADATA_FILE, f"{key}.entry_criterion.visit", "-",
                 f"visit '{_visit_key(spec.entry_criterion.visit)}' has no rows for '{spec.param}'",
                 f"correct the visit name ({did_you_mean(_visit_key(spec.entry_criterion.visit), known_visits)})")
-    used = rows[rows["visit"].isin([_visit_key(v) for v in _visits_of(spec)]) |
-                np.logical_or.reduce([_visit_rows(rows, v) for v in _visits_of(spec)])]
+    used = rows[np.logical_or.reduce([index.rows(v) for v in _visits_of(spec)])]
     dup = used.duplicated(subset=["subject", "visit"], keep=False)
     if dup.any():
         log.add(label, rows_text(used.loc[dup, "row"].to_numpy()), cm.value,
@@ -1104,7 +1148,7 @@ def _check_outcome(long: pd.DataFrame, part: pd.DataFrame, spec: OutcomeSpec, i:
             log.add(label, rows_text(used.loc[bad, "row"].to_numpy()), cm.value,
                     f"binary outcome '{spec.param}' has a value other than 0 or 1", "code it 0/1")
     if spec.baseline_visit is not None:
-        with_base = rows.loc[_visit_rows(rows, spec.baseline_visit) & rows["value"].notna(), "subject"].unique()
+        with_base = rows.loc[index.rows(spec.baseline_visit) & rows["value"].notna().to_numpy(), "subject"].unique()
         lacking = rows.loc[rows["subject"].notna().to_numpy() & ~_among(rows["subject"], with_base),
                            "subject"].nunique()
         if lacking:

@@ -5,7 +5,7 @@ The earlier revision is exported with ``git archive`` into a temporary folder an
 so that a busy shared machine slows both alike; the figures that matter are the ratios.
 
 Prints, for the example study:
-1. ``auditor validate`` wall time (best of ``--repeats``);
+1. ``auditor validate`` wall time (best and median of ``--repeats``; ``--validate-only`` stops here);
 2. ``auditor run`` wall time, peak memory and output sizes: the earlier revision, this tree at
    ``--jobs 1`` and this tree at its default (one process per core); then this tree writing JSON and
    CSV only (``--formats json,csv``);
@@ -22,7 +22,9 @@ import argparse
 import json
 import os
 import platform
+import resource
 import shutil
+import statistics
 import subprocess
 import sys
 import tempfile
@@ -67,6 +69,12 @@ def cli(tree: Path, *args: str) -> tuple[float, float]:
         raise SystemExit(f"{tree}: auditor {' '.join(args)} failed ({res.returncode}):\n{res.stderr[-2000:]}")
     peak_kb = int(res.stderr.rsplit("PEAK_KB", 1)[1].split()[0])
     return wall, peak_kb / 1024
+
+
+def child_cpu() -> float:
+    """User plus system CPU seconds of every finished child process so far."""
+    use = resource.getrusage(resource.RUSAGE_CHILDREN)
+    return use.ru_utime + use.ru_stime
 
 
 _STAGES = (
@@ -128,6 +136,7 @@ def main() -> None:
     ap.add_argument("--baseline", default="edc2959", help="git revision to compare against")
     ap.add_argument("--repeats", type=int, default=3, help="validate timings: best of this many")
     ap.add_argument("--outcomes", type=int, default=0, help="also time N and 2N outcomes x 30 participants")
+    ap.add_argument("--validate-only", action="store_true", help="time only validate (part 1) and stop")
     args = ap.parse_args()
     print(f"machine: {platform.platform()}; {os.cpu_count()} cores; Python {platform.python_version()}; "
           f"load average before {os.getloadavg()[0]:.1f}")
@@ -140,12 +149,20 @@ def main() -> None:
         # and an older tree refuses study.toml keys added since.
         ex_old = str(old / "example_study")
 
-        v_old, v_new = [], []
+        v_old, v_new, c_old, c_new = [], [], [], []
         for _ in range(args.repeats):
-            v_old.append(cli(old, "validate", ex_old)[0])
-            v_new.append(cli(new, "validate", ex)[0])
+            for tree, study, walls, cpus in ((old, ex_old, v_old, c_old), (new, ex, v_new, c_new)):
+                used = child_cpu()
+                walls.append(cli(tree, "validate", study)[0])
+                cpus.append(child_cpu() - used)
         print(f"\n1. validate example_study: before {min(v_old):.2f} s, after {min(v_new):.2f} s "
               f"(ratio {min(v_new) / min(v_old):.2f}; target under 1 s: {'PASS' if min(v_new) < 1 else 'FAIL'})")
+        print(f"   medians of {args.repeats}: before {statistics.median(v_old):.2f} s, after "
+              f"{statistics.median(v_new):.2f} s; CPU (user + system) medians: before "
+              f"{statistics.median(c_old):.2f} s, after {statistics.median(c_new):.2f} s "
+              f"(the steadier figure on a shared machine); load average after {os.getloadavg()[0]:.1f}")
+        if args.validate_only:
+            return
 
         runs = {}
         runs["before"] = cli(old, "run", ex_old, "-o", str(tmp / "o_before"), "--force", "--quiet")

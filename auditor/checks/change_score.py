@@ -16,7 +16,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from ..references import add_reference, cite
-from ..results import Figure, SubFinding, Table, Verdict, level_label
+from ..results import Figure, SubFinding, Table, Verdict, interval_words, level_label
 from ..stats.ancova import (fit_analyses, fit_analyses_categorical, interaction_test, linearity_test,
                            spline_columns)
 from ..stats.correlation import pearson
@@ -391,6 +391,12 @@ def slope_part(test, adj, p_adj) -> Part:
                 e, "" if ok else f"slope {fmt_ci(test.estimate, test.lower, test.upper)}")
 
 
+def _ci_from_r(level: float) -> str:
+    """How the equal-variance ratios' intervals are found: mapped from the interval of r."""
+    ci = interval_words("", level, noun="CI")
+    return f"{ci} from the {ci} of r"
+
+
 def efficiency_part(df, arms, ctx) -> tuple[Part, object, object]:
     """The trial's own cost of change against ANCOVA (variance-aware Frison-Pocock ratio) and its CI,
     graded against the study's sample-size threshold (``ctx.thresholds.sample_size_ratio``)."""
@@ -407,15 +413,16 @@ def efficiency_part(df, arms, ctx) -> tuple[Part, object, object]:
           f"variances are equal (here their ratio is {fmt((cost.sd_followup / cost.sd_baseline) ** 2)})")
     est = [
         estimate("Sample-size ratio, change / ANCOVA (this trial's variances)", cost.ratio, cost.lower, cost.upper,
-                 note="var(change) / residual variance of ANCOVA, within arm (Frison and Pocock 1992); CI by the "
-                      "delta method", key="change-score.efficiency.ratio-vs-ancova"),
+                 note="var(change) / residual variance of ANCOVA, within arm (Frison and Pocock 1992); "
+                      + interval_words("delta-method", ctx.level, "CI by the delta method"),
+                 key="change-score.efficiency.ratio-vs-ancova"),
         estimate("Correlation of baseline with follow-up (Pearson r)", r.r, r.lower, r.upper, r.p_value,
                  key="change-score.efficiency.correlation"),
         estimate("Sample-size ratio, change / ANCOVA (equal variances)", eq.ratio, eq.lower, eq.upper,
-                 note="2/(1+r); CI from the CI of r; assumes equal variances",
+                 note=f"2/(1+r); {_ci_from_r(ctx.level)}; assumes equal variances",
                  key="change-score.efficiency.ratio-vs-ancova-equal-var"),
         estimate("Sample-size ratio, change / follow-up only (equal variances)", change_vs_fu.ratio,
-                 change_vs_fu.lower, change_vs_fu.upper, note="2(1-r); CI from the CI of r",
+                 change_vs_fu.lower, change_vs_fu.upper, note=f"2(1-r); {_ci_from_r(ctx.level)}",
                  key="change-score.efficiency.ratio-vs-followup-equal-var"),
     ]
     if cost.lower > material_ratio:
@@ -519,7 +526,8 @@ def ordinal_alternative(df, arms, control, model: BaselineModel, level: float = 
     table = Table("ordinal-translation", "Proportional-odds ANCOVA on the outcome's own scale",
                   ["Group", "Quantity", "Estimate", "lower", "upper"], trans,
                   note="Model: P(follow-up >= y) = expit(alpha_y + s(baseline) + d arm); a positive log odds ratio "
-                       "means higher follow-up values on the active arm. Intervals by the delta method.",
+                       "means higher follow-up values on the active arm. "
+                       + interval_words("delta-method", level, "Intervals by the delta method", "intervals") + ".",
                   by_arm=True)
     return rows, table, ""
 
@@ -794,7 +802,7 @@ def run(data, ctx: CheckContext):
                          "tests and the t test of slope 1 Holm-adjusted together at a family-wise 5%; shares at bounds "
                          "(15% threshold); the trial's own sample-size ratio of change to ANCOVA, "
                          "var(change) / residual variance of ANCOVA within arm (Frison and Pocock 1992), with a "
-                         "delta-method CI, material above "
+                         f"{interval_words('delta-method', ctx.level, 'delta-method CI')}, material above "
                          f"{_pct(ctx.thresholds.sample_size_ratio)} more participants (sample_size_ratio "
                          f"{ctx.thresholds.sample_size_ratio:g}; study.toml [thresholds], default a convention of "
                          "this tool); the four analyses fitted on the same participants.")

@@ -17,7 +17,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..references import add_reference, cite
-from ..results import Figure, SubFinding, Table, Verdict
+from ..results import Figure, SubFinding, Table, Verdict, interval_words
 from ..stats.effects import NO_ARMS, ArmCoding, arm_coding
 from ..stats.rates import coefficient_shift, fit_log_linear, log_baseline_rate, time_spread, times_differ_by_arm
 from .common import arms_present, estimate, fmt, fmt_ci, fmt_p, result, thin
@@ -260,7 +260,7 @@ def _proportionality_words(prop: Proportionality, estimates, subs, caveats) -> N
                        "still removes the time imbalance but its rate ratio should be read with that in mind.")
 
 
-def _comparison_words(an: Analysis, estimates, subs, tables) -> None:
+def _comparison_words(an: Analysis, level: float, estimates, subs, tables) -> None:
     """The time-by-arm table, each contrast's three ratios, the side-by-side table and the sub-finding."""
     threshold, tba = an.threshold, an.times_by_arm
     tables.append(_time_table(an.df, an.arms))
@@ -275,16 +275,18 @@ def _comparison_words(an: Analysis, estimates, subs, tables) -> None:
                       estimate(f"Count ratio over rate ratio, {c['name']}", s.estimate, s.lower, s.upper,
                                by_arm=True,
                                note=f"material when the whole interval lies beyond {threshold:g} or its "
-                                    f"inverse (count_ratio); interval from the stacked sandwich of both fits",
+                                    f"inverse (count_ratio); {interval_words('', level)} from the stacked "
+                                    "sandwich of both fits",
                                key=f"count-time.count-over-rate.contrast-{i}", arm=c["name"])]
         rows += [["rate model (reference)", c["name"], "ratio of rates", rr, rl, ru],
                  ["counts, time ignored", c["name"], "ratio of counts", cr, cl, cu]]
+    sandwich = interval_words("robust (sandwich)", level, noun="intervals")
     tables.append(Table("rate-vs-count", "The treatment comparison with and without observation time, "
                                          "same participants",
                         ["Analysis", "Contrast", "Effect", "Estimate", "Lower", "Upper"], rows,
-                        note="Both are Poisson log-linear models with robust (sandwich) intervals, adjusted for "
-                             "the baseline rate (rate model) or the log baseline count (counts)." if an.with_baseline
-                        else "Both are Poisson log-linear models with robust (sandwich) intervals.",
+                        note=f"Both are Poisson log-linear models with {sandwich}, adjusted for the baseline rate "
+                             "(rate model) or the log baseline count (counts)." if an.with_baseline
+                        else f"Both are Poisson log-linear models with {sandwich}.",
                         by_arm=True))
     h, p, k = fmt(tba.statistic), fmt_p(tba.p), len(an.arms) - 1
     differs = (f"observation time differs between arms (Kruskal-Wallis chi-square {h} on {k} df, {p})"
@@ -318,7 +320,7 @@ def run(data, ctx: CheckContext):
     if an.proportionality is not None:
         _proportionality_words(an.proportionality, estimates, subs, caveats)
     if an.times_by_arm is not None:
-        _comparison_words(an, estimates, subs, tables)
+        _comparison_words(an, ctx.level, estimates, subs, tables)
     if ctx.blinded and not spread.equal:
         subs.append(SubFinding("time-by-arm", "Does observation time differ between arms enough to move the "
                                               "treatment comparison?", Verdict.NOT_ASSESSABLE,
@@ -338,8 +340,8 @@ def run(data, ctx: CheckContext):
                          "convention); Kruskal-Wallis test of time across arms; Poisson log-linear models of the "
                          "follow-up count with robust (HC0) standard errors: with log time as offset (the rate "
                          "ratio), without it (the count ratio), and with log time as a covariate (its slope is 1 "
-                         "when counts are proportional to time); the count ratio over the rate ratio with a Wald "
-                         "interval from the stacked sandwich of the two fits (Stefanski and Boos 2002). "
+                         "when counts are proportional to time); the count ratio over the rate ratio with a "
+                         f"{interval_words('Wald', ctx.level)} from the stacked sandwich of the two fits (Stefanski and Boos 2002). "
                          "Unsupported when that interval lies wholly beyond a factor of "
                          f"{threshold:g} or its inverse (count_ratio; default a convention of this tool).")
 

@@ -23,7 +23,7 @@ import numpy as np
 from scipy import stats
 
 from ..references import add_reference, cite
-from ..results import Figure, SubFinding, Table, Verdict
+from ..results import Figure, SubFinding, Table, Verdict, interval_words, level_label
 from ..stats.effects import arm_coding
 from ..stats.logistic import (INTERCEPT, ChiSquarePartition, ExtremumTest, LogisticFit, LRTest,
                               SeparationError, block_columns, bootstrap_lowest_point, chi_square_partition,
@@ -663,7 +663,12 @@ class _View:
 
     def odds_ci(self, v: float, lo: float, hi: float) -> str:
         """Hedged: the point estimate is 'an estimated' value, never stated without its interval."""
-        return f"an estimated {_odds(v)} times (CI {_odds(lo)} to {_odds(hi)})"
+        return f"an estimated {_odds(v)} times ({self.ci} {_odds(lo)} to {_odds(hi)})"
+
+    @property
+    def ci(self) -> str:
+        """"CI" at the default level, "90% CI" at another (:func:`interval_words`)."""
+        return interval_words("", self.level, noun="CI")
 
     @property
     def declared_label(self) -> str | None:
@@ -782,7 +787,7 @@ class _View:
     def _weights_finding(self, d: DerivedTest) -> SubFinding:
         r, lo, hi = d.weight_ratio
         scale = "logs of the values" if d.definition.log else "values"
-        ev = (f"weight of the earlier value relative to the latest {fmt(r)} (CI {fmt(lo)} to {fmt(hi)}; "
+        ev = (f"weight of the earlier value relative to the latest {fmt(r)} ({self.ci} {fmt(lo)} to {fmt(hi)}; "
               f"a {d.definition.label} fixes it at -1), models linear in the {scale}: {self.chi(d.weights)}")
         return self._definition_finding(d, "weights", d.weights, ev,
                                         f"Do the two values carry equal and opposite weights, as a "
@@ -840,7 +845,7 @@ class _View:
         an, sh = self.an, self.an.shape
         unit = f" {self.unit}" if self.unit else ""
         low = an.lowest
-        ci = (f", CI {self.x(low.lower)} to {self.x(low.upper)}{unit}" if low.lower is not None else unit)
+        ci = (f", {self.ci} {self.x(low.lower)} to {self.x(low.upper)}{unit}" if low.lower is not None else unit)
         if sh.flagged == "U-shaped":
             return f"risk is U-shaped in the latest value, lowest near {self.x(low.at)}{ci}: {self._ends(an.turning)}"
         if sh.flagged:
@@ -865,7 +870,7 @@ class _View:
         out = [estimate("Participants analysed", float(len(an.y)), key="later-risk.n-participants"),
                estimate(f"Participants with the event ({self.endpoint_named})", float(an.events), key="later-risk.n-events")]
         out.append(estimate("Latest value at which the modelled risk is lowest", low.at, low.lower, low.upper,
-                            unit=unit, note=(f"percentile bootstrap, {low.resamples} resamples ({low.failed} "
+                            unit=unit, note=(f"{interval_words('percentile bootstrap', self.level, noun='')}, {low.resamples} resamples ({low.failed} "
                                              f"not fitted); searched between the 5th and 95th percentiles"
                                              if low.resamples else "searched between the 5th and 95th percentiles"),
                             by_arm=arm, key="later-risk.lowest-risk-value"))
@@ -999,7 +1004,7 @@ class _View:
                        {"curves": [_curve_data(xl, bl)], "rug": sorted(an.latest.tolist()), "vlines": vlines,
                         "xlabel": self.axis("Latest value"), "ylabel": ylabel},
                        caption=f"Model of both values, earlier value at its median ({self.x(med_e)}), covariates "
-                               f"at their means; band: pointwise {self.level:.0%} interval; ticks: observed "
+                               f"at their means; band: pointwise {level_label(self.level)} interval; ticks: observed "
                                f"latest values" + ("; dotted line: the lowest point." if vlines else "."),
                        by_arm=arm)]
         xe = np.linspace(np.min(an.earlier), np.max(an.earlier), 120)
@@ -1008,7 +1013,7 @@ class _View:
                            {"curves": [_curve_data(xe, be)], "rug": sorted(an.earlier.tolist()), "vlines": [],
                             "xlabel": self.axis("Earlier value"), "ylabel": ylabel},
                            caption=f"Model of both values, latest value at its median ({self.x(med_l)}); band: "
-                                   f"pointwise {self.level:.0%} interval; ticks: observed earlier values.",
+                                   f"pointwise {level_label(self.level)} interval; ticks: observed earlier values.",
                            by_arm=arm))
         if an.shown is not None:
             figs.append(self._compare_figure(an.shown, ylabel))
@@ -1076,7 +1081,7 @@ class _View:
                   "nested in; a turning point is supported when the nonlinear terms are significant and the "
                   "fitted logits at the 5th and 95th percentiles each differ from it (one-sided, 0.05, "
                   "max-t adjusted for the choice of the point); "
-                  "percentile bootstrap of the lowest point; a consequence is material when its odds-ratio "
+                  f"{interval_words('percentile bootstrap', self.level, noun='')} of the lowest point; a consequence is material when its odds-ratio "
                   f"interval lies wholly beyond {an.material_odds_ratio:g} or 1/{an.material_odds_ratio:g} "
                   "(odds_ratio; default a convention of this tool).")
 

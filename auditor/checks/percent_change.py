@@ -22,7 +22,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..references import REFERENCES, add_reference, cite
-from ..results import Figure, Table, Verdict, level_label
+from ..results import Figure, Table, Verdict, interval_words, level_label
 from ..stats import relative_change as rc
 from ..stats.correlation import spearman
 from ..stats.effects import NO_ARMS, ArmCoding, ArmContrast, ArmEffect, arm_coding
@@ -491,7 +491,7 @@ def _measure_cost(fits: _Fits, inp: _Inputs, ctx: CheckContext) -> _Cost:
     return _Cost(contrast, fits.reference[k], eff, interval, abs(fits.reference[k].statistic) >= INFORMATIVE_Z)
 
 
-def _report_effects(fits: _Fits, cost: _Cost, inp: _Inputs, spec, out: _Collect) -> None:
+def _report_effects(fits: _Fits, cost: _Cost, inp: _Inputs, spec, out: _Collect, level: float = 0.95) -> None:
     rows = []
     for effects in [fits.planned, fits.reference, *fits.others]:
         for e in effects:
@@ -524,7 +524,8 @@ def _report_effects(fits: _Fits, cost: _Cost, inp: _Inputs, spec, out: _Collect)
     out.estimates.append(estimate(
         f"Efficiency of {fits.planned_design.analysis} vs {ref_name}, {cost.contrast.label}",
         cost.efficiency, cost.interval.lower, cost.interval.upper,
-        note=f"percentile bootstrap within arm, {cost.interval.replicates} replicates", by_arm=True,
+        note=f"{interval_words('percentile bootstrap', level, noun='')} within arm, {cost.interval.replicates} "
+             "replicates", by_arm=True,
         key="percent-change.planned-efficiency", arm=cost.contrast.label))
 
 
@@ -540,7 +541,7 @@ def _cost_text(eff: float, interval: rc.EfficiencyInterval) -> str:
 
 
 def _rate_cost(fits: _Fits, cost: _Cost, inp: _Inputs, out: _Collect,
-               ratio: float = MATERIAL_SAMPLE_RATIO) -> Verdict | None:
+               ratio: float = MATERIAL_SAMPLE_RATIO, level: float = 0.95) -> Verdict | None:
     """The efficiency sub-finding and headline clause for a percent-change plan (None: not rated).
     The consequence is the sample-size cost of percent change against the reference analysis, judged
     against the study's ``sample_size_ratio`` (see :func:`_efficiency_verdict`)."""
@@ -557,7 +558,8 @@ def _rate_cost(fits: _Fits, cost: _Cost, inp: _Inputs, out: _Collect,
     judged = _cost_judgement(verdict, cost.interval, ratio)
     out.sub("efficiency", question, verdict,
             f"percent change needs {_cost_text(eff, cost.interval)} than the {ref_name}, {judged}: efficiency "
-            f"{fmt(eff)} (bootstrap {fmt(cost.interval.lower)} to {fmt(cost.interval.upper)}), "
+            f"{fmt(eff)} ({interval_words('bootstrap', level, noun='')} {fmt(cost.interval.lower)} to "
+            f"{fmt(cost.interval.upper)}), "
             f"{cost.contrast.label}", by_arm=True)
     effect = (f"whose ratio of geometric means is {fmt_ci(*cost.reference.exp())}" if ref_name == "log-scale ANCOVA"
               else f"whose odds ratio of a higher follow-up is {fmt_ci(*cost.reference.exp())}"
@@ -653,8 +655,9 @@ def _responder(inp: _Inputs, spec, ctx: CheckContext, resp: np.ndarray, cost: _C
     clause = (f"the responder rule ({rule_text}) needs about {fmt(c.inflation, 1)} times the participants of "
               f"{'the continuous ANCOVA' if c.scale == 'change' else comparator} (normal theory)")
     if empirical is not None:
-        evidence += (f"; in the trial's own data the efficiency is {fmt(empirical.efficiency)} (bootstrap "
-                     f"{fmt(empirical.interval.lower)} to {fmt(empirical.interval.upper)})")
+        evidence += (f"; in the trial's own data the efficiency is {fmt(empirical.efficiency)} "
+                     f"({interval_words('bootstrap', ctx.level, noun='')} {fmt(empirical.interval.lower)} to "
+                     f"{fmt(empirical.interval.upper)})")
         if empirical.efficiency > 0:
             clause = (f"the responder rule ({rule_text}) needs {_cost_text(empirical.efficiency, empirical.interval)} "
                       f"than the {_empirical_comparator(empirical)} "
@@ -767,8 +770,8 @@ def run(data, ctx: CheckContext):
         out.cite("durrleman-simon-1989", "noether-1955", "efron-tibshirani-1993")
         fits = _fit_analyses(inp, spec, ctx, responder, out)
         cost = _measure_cost(fits, inp, ctx)
-        _report_effects(fits, cost, inp, spec, out)
-        rated = (_rate_cost(fits, cost, inp, out, ctx.thresholds.sample_size_ratio)
+        _report_effects(fits, cost, inp, spec, out, ctx.level)
+        rated = (_rate_cost(fits, cost, inp, out, ctx.thresholds.sample_size_ratio, ctx.level)
                  if spec.planned_analysis != "responder" else None)
         if rated is not None:
             verdicts.append(rated)
@@ -794,7 +797,8 @@ def run(data, ctx: CheckContext):
                          "geometric means; proportional-odds ANCOVA on a spline of baseline plus arm (for an outcome "
                          "declared ordinal the reference analysis, with baseline as categories when the levels are "
                          "declared); efficiency "
-                         "(z / z_ref)^2 with a stratified percentile bootstrap. Responder rules: normal-theory "
+                         f"(z / z_ref)^2 with a stratified "
+                         f"{interval_words('percentile bootstrap', ctx.level, noun='')}. Responder rules: normal-theory "
                          "inflation phi(z)^2/(Phi(z)(1-Phi(z))) times the efficiency of change against ANCOVA; "
                          "logistic regression of responder status on baseline. Unsupported only when the whole "
                          "interval of the sample-size cost (1 / efficiency) lies above "

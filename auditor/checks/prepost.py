@@ -17,7 +17,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..references import cite
-from ..results import Figure, SubFinding, Table, Verdict, level_label
+from ..results import Figure, SubFinding, Table, Verdict, interval_words, level_label
 from ..stats.correlation import pearson, spearman
 from ..stats.effects import arm_coding
 from ..stats.linear import adjusted_slope
@@ -144,8 +144,8 @@ def run(data, ctx: CheckContext):
     return result(check, data, Verdict.FOR_INFORMATION, headline, subfindings=subs, estimates=estimates, tables=tables,
                   figures=[_scatter(data, an, ctx.seed)],
                   references=cite(["frison-pocock-1992", "clifton-2019", "fieller-1957", "cleveland-1979"]),
-                  method="Pearson r with Fisher z interval; Spearman rho with the Fieller-Hartley-Pearson "
-                         "interval; least-squares slope of follow-up on baseline with arm as a factor; "
+                  method=f"Pearson r with {interval_words('Fisher z', ctx.level)}; Spearman rho with the "
+                         f"{interval_words('Fieller-Hartley-Pearson', ctx.level)}; least-squares slope of follow-up on baseline with arm as a factor; "
                          f"t-based {level_label(ctx.level)} CI.")
 
 

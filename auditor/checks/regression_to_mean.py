@@ -20,7 +20,7 @@ import numpy as np
 from scipy import stats
 
 from ..references import REFERENCES, add_reference, cite
-from ..results import Figure, Verdict, level_label
+from ..results import Figure, Verdict, interval_words, level_label
 from ..stats.linear import mean_t_interval, slope_with_se
 from ..stats.rtm import (bias_after_second_baseline, expected_rtm, fit_truncated_normal, icc_oneway,
                          edge_test_scale, rtm_with_ci, shrunk_values, truncation_edge_test)
@@ -737,14 +737,14 @@ def population_section(spec, scale, sel, out: Sections, level: float = 0.95) -> 
     if scale.log:
         out.estimates += [
             estimate("Geometric mean of the unselected population (truncated-normal MLE)", math.exp(fit.mu),
-                     math.exp(lo), math.exp(hi), unit=spec.unit, note="Wald interval on the log scale",
+                     math.exp(lo), math.exp(hi), unit=spec.unit, note=interval_words("Wald", level) + " on the log scale",
                      key="regression-to-mean.population-geometric-mean"),
             estimate("SD of log values in the unselected population", fit.sigma, s_lo, s_hi,
                      key="regression-to-mean.population-log-sd")]
     else:
         out.estimates += [
             estimate("Mean of the unselected population (truncated-normal MLE)", fit.mu, lo, hi, unit=spec.unit,
-                     note="Wald interval", key="regression-to-mean.population-mean"),
+                     note=interval_words("Wald", level), key="regression-to-mean.population-mean"),
             estimate("SD of the unselected population", fit.sigma, s_lo, s_hi, unit=spec.unit,
                      key="regression-to-mean.population-sd")]
     out.estimates.append(estimate("Share of the unselected population meeting the cutoff (fitted)",
@@ -770,12 +770,13 @@ def reliability_section(spec, rel: Reliability, out: Sections) -> None:
             rel.evidence, by_arm=rel.by_arm)
 
 
-def expected_section(spec, scale, rtm, rel, sel, out: Sections) -> None:
+def expected_section(spec, scale, rtm, rel, sel, out: Sections, level: float = 0.95) -> None:
     unit = "" if scale.log else spec.unit
     out.estimates.append(estimate(f"Expected change from regression to the mean "
                                   f"({'log scale' if scale.log else 'analysis scale'})", rtm.estimate, rtm.lower,
-                                  rtm.upper, unit=unit, note=f"Barnett et al. formula; parametric bootstrap, "
-                                                            f"{rtm.n_draws} draws, seed {rtm.seed}",
+                                  rtm.upper, unit=unit,
+                                  note=f"Barnett et al. formula; {interval_words('parametric bootstrap', level, noun='')}, "
+                                       f"{rtm.n_draws} draws, seed {rtm.seed}",
                                   by_arm=rel.by_arm, key="regression-to-mean.expected-change"))
     if scale.log:
         out.estimates.append(estimate("Expected ratio later / entry reading from regression to the mean",
@@ -889,17 +890,18 @@ def observed_section(spec, scale, target: Interval, obs: Change, pre, by_arm, ct
     unit = "" if scale.log else spec.unit
     log = " (log scale)" if scale.log else ""
     out.estimates.append(estimate(f"Observed mean change from baseline {what}{log}", obs.mean, obs.lower,
-                                  obs.upper, unit=unit, note=f"{obs.n} participants; t interval",
+                                  obs.upper, unit=unit, note=f"{obs.n} participants; {interval_words('t', ctx.level)}",
                                   by_arm=obs.by_arm, key="regression-to-mean.observed-change"))
     if pre is not None:
         out.estimates.append(estimate(f"Observed mean {pre.where}{log} (before treatment)", pre.mean, pre.lower,
-                                      pre.upper, unit=unit, note=f"{pre.n} participants; t interval",
+                                      pre.upper, unit=unit, note=f"{pre.n} participants; {interval_words('t', ctx.level)}",
                                       key="regression-to-mean.observed-pre-treatment"))
     q = stats.norm.ppf(0.5 + ctx.level / 2)
     diff = obs.mean - target.estimate
     se = math.hypot(obs.se, (target.upper - target.lower) / (2 * q))
     out.estimates.append(estimate(f"Observed change {what} not explained by regression to the mean", diff,
-                                  diff - q * se, diff + q * se, unit=unit, note="normal approximation",
+                                  diff - q * se, diff + q * se, unit=unit,
+                                  note=interval_words("normal-approximation", ctx.level, "normal approximation"),
                                   by_arm=by_arm, key="regression-to-mean.unexplained-change"))
     if obs.mean != 0:
         out.estimates.append(estimate(f"Share of the observed change {what} that regression to the mean "
@@ -1125,19 +1127,23 @@ def caveats(ctx, rel, out: Sections) -> None:
                            "an upper bound for measurement error alone.")
 
 
-_METHOD = ("Selection: the declared entry criterion, else a truncation-edge likelihood-ratio test with a Monte "
-           "Carlo null on screening and baseline (Bonferroni). Scale: raw or log by the truncated-normal "
-           "likelihood with the Jacobian. Population mean and SD: truncated-normal MLE of the entry reading. "
-           "Reliability: slope of a second pre-treatment reading on the entry reading (unbiased under "
-           "selection), else the declared value, else the slope of follow-up on it (a lower bound). Expected "
-           "change: Barnett et al. (2005) formula with a parametric-bootstrap CI, set beside the observed mean "
-           "change (t interval); second-baseline bias from the trivariate-normal relation; Kelley shrinkage.")
+def method_text(level: float) -> str:
+    """The finding's method, every interval named with the audit's level (:func:`interval_words`)."""
+    return ("Selection: the declared entry criterion, else a truncation-edge likelihood-ratio test with a Monte "
+            "Carlo null on screening and baseline (Bonferroni). Scale: raw or log by the truncated-normal "
+            "likelihood with the Jacobian. Population mean and SD: truncated-normal MLE of the entry reading. "
+            "Reliability: slope of a second pre-treatment reading on the entry reading (unbiased under "
+            "selection), else the declared value, else the slope of follow-up on it (a lower bound). Expected "
+            f"change: Barnett et al. (2005) formula with a "
+            f"{interval_words('parametric-bootstrap', level, 'parametric-bootstrap CI')}, set beside the observed "
+            f"mean change ({interval_words('t', level)}); second-baseline bias from the trivariate-normal relation; "
+            "Kelley shrinkage.")
 
 
 # ----------------------------------------------------------------------------- the check
 
 
-def no_selection_result(check, data, finds, out: Sections):
+def no_selection_result(check, data, finds, out: Sections, level: float = 0.95):
     tested = ", ".join(f"{f.visit} {fmt_p(f.test.p_value)}" for f in finds)
     why = (f"no entry criterion declared; no truncation edge: {tested}" if finds else
            "no entry criterion declared; too few distinct values to look for a truncation edge")
@@ -1145,7 +1151,7 @@ def no_selection_result(check, data, finds, out: Sections):
                   f"No selection on this outcome was declared or detected: regression to the mean is not expected "
                   f"to bias within-arm change or the comparison ({why}).", subfindings=out.subfindings, estimates=out.estimates,
                   recommendation=recommended_analysis(data.design, Verdict.SOUND),
-                  references=cite(["barnett-2005"]), method=_METHOD)
+                  references=cite(["barnett-2005"]), method=method_text(level))
 
 
 @register(CHECK_ID, TITLE, _applies, order=30, needs_arms=False,
@@ -1163,7 +1169,7 @@ def run(data, ctx: CheckContext):
     sel, finds = find_selection(spec, everyone, ctx)
     if sel is None:
         selection_section(None, finds, 0, 0, out)
-        return no_selection_result(check, data, finds, out)
+        return no_selection_result(check, data, finds, out, ctx.level)
     rd, n_excluded = selected(everyone, sel)
     scale = choose_scale(spec, rd, sel)
     if not scale.fit.converged:
@@ -1178,7 +1184,7 @@ def run(data, ctx: CheckContext):
     rho = _capped(rel, out)
     rtm = (expected_window_change(scale.fit, rho, rel.se, ctx) if sel.is_window else
            expected_change(scale.fit, rho, rel.se, float(scale.to(sel.cutoff)), sel.direction, ctx))
-    expected_section(spec, scale, rtm, rel, sel, out)
+    expected_section(spec, scale, rtm, rel, sel, out, ctx.level)
     obs = observed_change(data, ctx, rd, scale)
     pre = pre_treatment_change(rd, scale, sel, rel, spec, ctx.level)
     target, target_by_arm = expected_in_change(data, ctx, rd, scale, sel, rtm, rel, out)
@@ -1211,5 +1217,5 @@ def run(data, ctx: CheckContext):
                   recommendation=recommended_analysis(data.design, verdict, second),
                   references=cite(["barnett-2005", "shrout-fleiss-1979", "pearson-1903", "cohen-1991",
                                    "kelley-1947"] + (["goodman-1960"] if sel.column != "baseline" else [])),
-                  method=_METHOD + f" Material: the whole interval of the expected shift beyond {material_sd:g} "
+                  method=method_text(ctx.level) + f" Material: the whole interval of the expected shift beyond {material_sd:g} "
                                    f"SD of the unselected population (rtm_shift_sd).")

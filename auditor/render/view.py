@@ -242,19 +242,26 @@ def _png_width(png: bytes) -> str:
 SUBFINDING_COLUMNS = ("Question", "Answer", "Evidence")
 """The headers of a finding's table of questions, for its column widths."""
 ESTIMATE_COLUMNS = ("Quantity", "Estimate", "95% interval", "p")
-"""The estimates table's headers as far as its widths go (the interval's heading names its level)."""
+"""The estimates table's headers at the default level; the interval's heading is replaced by the one
+the report prints (``interval_heading``, naming the audit's level) when widths are planned."""
 
 
-def estimate_widths(estimates: list[dict]) -> list[str] | None:
+def estimate_widths(estimates: list[dict], interval_heading: str = ESTIMATE_COLUMNS[2]) -> list[str] | None:
     """The column widths of a finding's estimates table (:func:`column_widths`): the quantity, with
     its unit, is text, and so is its note, on a line of its own (a row of its own here); the estimate,
     interval and p are numbers."""
     rows = [[text, e["value"], e["ci"], e["p"]] for e in estimates
             for text in (e["name"] + (f" ({e['unit']})" if e["unit"] else ""), e["note"] or "")]
-    return column_widths(list(ESTIMATE_COLUMNS), rows, [False, True, True, True])
+    columns = [ESTIMATE_COLUMNS[0], ESTIMATE_COLUMNS[1], interval_heading, ESTIMATE_COLUMNS[3]]
+    return column_widths(columns, rows, [False, True, True, True])
 
 
-def result_view(r: CheckResult, figure_no: list[int]) -> dict:
+def level_heading(audit: Audit) -> str:
+    """The estimates tables' interval heading, naming the audit's level ("90% interval")."""
+    return f"{level_label(audit.provenance.confidence_level)} interval"
+
+
+def result_view(r: CheckResult, figure_no: list[int], interval_heading: str = ESTIMATE_COLUMNS[2]) -> dict:
     figs = []
     for f in r.figures:
         figure_no[0] += 1
@@ -280,7 +287,7 @@ def result_view(r: CheckResult, figure_no: list[int]) -> dict:
                                            [[s["question"], s["verdict"], s["evidence"]] for s in subfindings],
                                            [False, False, False]),
         "estimates": estimates,
-        "estimate_widths": estimate_widths(estimates),
+        "estimate_widths": estimate_widths(estimates, interval_heading),
         "tables": [table_view(t) for t in r.tables],
         "figures": figs,
         "caveats": r.caveats,
@@ -311,7 +318,8 @@ def _audit_strings(audit: Audit) -> dict:
     figure_no = [0]
     sections = []
     for o in audit.outcomes:
-        results = [result_view(r, figure_no) for r in audit.results if r.outcome == o["param"]]
+        results = [result_view(r, figure_no, level_heading(audit)) for r in audit.results
+                   if r.outcome == o["param"]]
         sections.append({
             "param": o["param"], "label": o["label"], "heading": outcome_heading(o["label"], o["param"]),
             "facts": o.get("facts") or [
@@ -365,7 +373,7 @@ def _audit_strings(audit: Audit) -> dict:
             "thresholds": sorted((k, number(v)) for k, v in p.thresholds.items()),
             "confidence_level": level_label(p.confidence_level),
         },
-        "interval_heading": f"{level_label(p.confidence_level)} interval",
+        "interval_heading": level_heading(audit),
         "level_statement": (f"Every interval in this audit is a two-sided {level_label(p.confidence_level)} "
                             "confidence interval, and every verdict that rests on an interval is judged at that "
                             "level (--level, or confidence_level in study.toml)."),

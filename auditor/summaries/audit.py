@@ -12,7 +12,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from .. import __version__
-from ..errors import ProblemLog
+from ..errors import ProblemLog, StudyInputError, option_problem
 from ..failures import ToolDefect, defect_reason, is_defect
 from ..pipeline import CAUTIONS, AuditOptions, library_versions
 from ..results import CheckInfo, CheckResult, InputFile, Provenance, ReviewComment, SummaryAudit, Verdict
@@ -121,9 +121,26 @@ def _outcome_record(spec, study: SummaryStudy) -> dict:
             "facts": _facts(spec, study)}
 
 
+def participant_option_problems(options: AuditOptions) -> list:
+    """The options asked for that only an audit of participant data has (``blinded``,
+    ``withhold_pooled``, ``list_left_out``): published summaries have no participants to blind,
+    withhold or list, so asking for one is refused rather than silently ignored."""
+    asked = [(name, value) for name, value, given in (
+        ("blinded", options.blinded, options.blinded is not None),
+        ("withhold_pooled", options.withhold_pooled, options.withhold_pooled is not None),
+        ("list_left_out", options.list_left_out, options.list_left_out)) if given]
+    return [option_problem(f"{name}={value!r}", "an audit from published summaries has no participant data to "
+                           "blind, withhold or list", f"leave {name} out for a summaries folder")
+            for name, value in asked]
+
+
 def audit_summaries(study: SummaryStudy, options: AuditOptions | None = None) -> SummaryAudit:
-    """Every applicable question on every outcome, and the numbered draft comments."""
+    """Every applicable question on every outcome, and the numbered draft comments. Options that only
+    an audit of participant data has are refused (:class:`~auditor.errors.StudyInputError`)."""
     options = options or AuditOptions()
+    problems = participant_option_problems(options)
+    if problems:
+        raise StudyInputError(problems, "in the audit options")
     meta = study.metadata
     seed = meta.study.seed if options.seed is None else options.seed
     level = meta.study.confidence_level if options.level is None else options.level

@@ -16,7 +16,7 @@ from ..checks.common import fmt
 from ..checks.percent_change import RECODE_CHANGE
 from ..checks.regression_to_mean import BIASED_BY_RTM, MATERIAL_SD
 from ..references import add_reference
-from ..results import CheckResult, Estimate, SubFinding, Table, Verdict, level_label
+from ..results import CheckResult, Estimate, SubFinding, Table, Verdict, interval_words, level_label
 from ..stats import summary_formulas as sf
 from ..stats.relative_change import recoding_shift
 from .reader import ArmSummary
@@ -206,7 +206,8 @@ def consistency(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> D
     res = _result(cid, spec, verdict, headline, subfindings=subs, estimates=ests,
                   references=["cochrane-handbook-6"],
                   reason="" if subs else "no number is given twice to cross-check",
-                  method="r = (SDb^2 + SDf^2 - SDc^2) / (2 SDb SDf) per arm, Fisher-z interval; SD of change "
+                  method="r = (SDb^2 + SDf^2 - SDc^2) / (2 SDb SDf) per arm, "
+                         f"{interval_words('Fisher-z', ctx.level)}; SD of change "
                          "from an SE as SE x sqrt(n) and from a 95% CI as sqrt(n) x width / 3.92.")
     if verdict is not Verdict.CAUTION:
         return Draft(res)
@@ -319,7 +320,7 @@ def efficiency(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Dr
     else:
         iv, verdict = _graded_cost(fn, p, ctx, approx)
         ests.append(Estimate("Sample-size ratio against ANCOVA", iv.value, iv.lower, iv.upper, key=f"{cid}.ratio",
-                             note=f"pooled r = {fmt(p.r)}; interval by Wishart simulation of the SDs and r "
+                             note=f"pooled r = {fmt(p.r)}; {interval_words('', ctx.level)} by Wishart simulation of the SDs and r "
                                   f"({iv.draws} draws, seed {iv.seed})" + ("; first-order approximation" if approx else "")))
         evidence = (f"{ANALYSIS_TEXT[analysis]} needs {_pct(iv.value)} more participants than ANCOVA "
                     f"({level_label(ctx.level)} interval {_pct(iv.lower)} to {_pct(iv.upper)}) at pooled r = {fmt(p.r)}")
@@ -386,13 +387,14 @@ def responder(spec: SummaryOutcome, arms: list[ArmSummary], ctx: Context) -> Dra
         iv, verdict = _graded_cost(fn, p, ctx, approx)
         z = (cut - mean_c) / p.sd_c
         ests.append(Estimate("Sample-size ratio, responders against ANCOVA", iv.value, iv.lower, iv.upper, key=f"{cid}.ratio",
-                             note=f"cut {fmt(cut)} on change, z = {fmt(z)}; Wishart simulation ({iv.draws} draws, "
+                             note=f"cut {fmt(cut)} on change, z = {fmt(z)}; "
+                                  f"{interval_words('Wishart-simulation', ctx.level, 'Wishart simulation')} ({iv.draws} draws, "
                                   f"seed {iv.seed})"))
         eff = sf.simulated_interval(lambda r, b, f: sf.dichotomisation_efficiency((cut - mean_c) / sf.change_sd(b, f, r)),
                                     p.sd_b, p.sd_f, p.r, p.df, ctx.seed, QUICK_DRAWS if ctx.quick else DRAWS,
                                     level=ctx.level)
         ests.append(Estimate("Efficiency of dichotomising change at the cut", eff.value, eff.lower, eff.upper,
-                             note="normal change; 2/pi = 0.637 at the median; interval from the same Wishart draws "
+                             note=f"normal change; 2/pi = 0.637 at the median; {interval_words('', ctx.level)} from the same Wishart draws "
                                   "(mean change held at its reported value)", key=f"{cid}.dichotomisation-efficiency"))
         evidence = (f"counting responders ({rule_text}) needs {_pct(iv.value)} more participants than ANCOVA "
                     f"({level_label(ctx.level)} interval {_pct(iv.lower)} to {_pct(iv.upper)}); the cut lies {fmt(abs(z))} SD from the "
@@ -597,9 +599,10 @@ def observed_change_interval(arm: ArmSummary, level: float = 0.95) -> tuple[floa
     from scipy import stats
 
     sd_c = arm.sd_change
-    how = "interval from the SD of change"
+    how = f"{interval_words('', level)} from the SD of change"
     if sd_c is None and arm.r is not None:
-        sd_c, how = sf.change_sd(arm.sd["baseline"], arm.sd["followup"], arm.r), "interval from the SDs and r"
+        sd_c, how = (sf.change_sd(arm.sd["baseline"], arm.sd["followup"], arm.r),
+                     f"{interval_words('', level)} from the SDs and r")
     if sd_c is None or arm.n < 2:
         return None, None, "no interval: neither an SD of change nor a correlation is reported"
     mean = arm.mean["followup"] - arm.mean["baseline"]

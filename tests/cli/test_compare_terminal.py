@@ -43,7 +43,7 @@ def test_a_long_key_gets_a_line_of_its_own_and_a_short_one_shares_it():
 
 
 def test_terminal_output_at_80_columns_keeps_every_key_whole(tmp_path, monkeypatch):
-    monkeypatch.setattr(cli.out, "_width", 80)
+    monkeypatch.setattr(cli.out.console, "_width", 80)
     a, b = tmp_path / "a.json", tmp_path / "b.json"
     a.write_text(json.dumps(_findings(1.0, "caution")))
     b.write_text(json.dumps(_findings(1.1, "sound")))

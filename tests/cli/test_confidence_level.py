@@ -159,3 +159,101 @@ def test_summaries_audit_carries_the_level():
     assert ratios and all(e90[k].upper - e90[k].lower < e95[k].upper - e95[k].lower for k in ratios)
     said = " ".join(c.evidence for c in a90.comments)
     assert "90% interval" in said and "95% interval" not in said
+
+
+# ------------------------------------------------------------ every interval wording names the level
+
+TEXT_FIELDS = {"method", "headline", "caption", "note", "evidence", "question", "recommendation", "reason",
+               "caveats", "columns", "concern", "request"}
+"""The findings.json fields a reader sees as words (docs/findings-json.md); keys and ids are not words."""
+
+INTERVAL_WORD = re.compile(r"\b(CI|[Ii]ntervals?|[Bb]ootstrap|Wald)\b")
+"""A word that names an interval or how it was built."""
+
+LEVEL_BEFORE = re.compile(r"90% (\S+ ){0,2}\S*$")
+"""The level right before it, at most two words away ("90% robust (sandwich) intervals",
+"90% parametric-bootstrap interval")."""
+
+BACK_REFERENCE = re.compile(r"\b(its|that|the|the whole|the expected|its odds-ratio|an|no|not an|has an) $")
+"""Words that point back to an interval already named with its level, or deny that there is one
+("its interval excludes 1", "the whole interval lies beyond", "no interval can be computed")."""
+
+NOT_THE_AUDITS = {
+    "Is the scale interval with": "'interval' as a kind of scale, not a confidence interval",
+    "from a 95% CI as sqrt(n)": "the CI a paper printed, from which an SD is recovered",
+    "with its estimate and CI, as the": "a request to the authors to print their own interval",
+}
+"""Interval words that name no interval of the audit, and why."""
+
+FACTS_95 = {
+    "95% tied": "the share of tied readings of an outcome (a fact about the data)",
+    "from a 95% CI as sqrt(n) x width / 3.92": "how a 95% CI printed by a paper gives an SD (a fact about the paper)",
+}
+"""Every '95%' that may stand in an audit at level 0.90, and why."""
+
+
+def _texts(node, field=""):
+    """(field, text) of every string under the reader-facing fields of a findings dictionary."""
+    if isinstance(node, dict):
+        for k, v in node.items():
+            yield from _texts(v, k if k in TEXT_FIELDS else field if not isinstance(v, str) else "")
+            if isinstance(v, str) and k in TEXT_FIELDS:
+                yield k, v
+    elif isinstance(node, list):
+        for v in node:
+            if isinstance(v, str) and field:
+                yield field, v
+            else:
+                yield from _texts(v, field)
+
+
+def _unlevelled(findings: dict) -> tuple[list[str], list[str]]:
+    """(interval wordings without 90% before them, '95%' that is no listed fact) in a findings dict."""
+    bare, stray = [], []
+    for _, text in _texts(findings):
+        words = text
+        for phrase in NOT_THE_AUDITS:
+            words = words.replace(phrase, INTERVAL_WORD.sub("~", phrase))
+        for m in INTERVAL_WORD.finditer(words):
+            before = words[:m.start()]
+            if not (LEVEL_BEFORE.search(before) or BACK_REFERENCE.search(before)):
+                bare.append(words[max(0, m.start() - 50):m.end() + 10])
+        rest = text
+        for fact in FACTS_95:
+            rest = rest.replace(fact, "")
+        stray += [rest[max(0, m.start() - 50):m.end() + 20] for m in re.finditer(r"95 ?%", rest)]
+    return bare, stray
+
+
+def test_every_interval_wording_names_the_level_at_090(audit_90):
+    """At --level 0.9 every method, headline, caption, note, evidence and table header that names an
+    interval names 90% with it, and no '95%' is left but the listed facts about the data."""
+    from auditor.render.jsonout import findings_dict
+
+    findings = findings_dict(audit_90)
+    bare, stray = _unlevelled(findings)
+    assert not bare, bare
+    assert not stray, stray
+    assert any("90% delta-method interval" in r["method"] for r in findings["results"])
+    assert any("95% tied" in text for _, text in _texts(findings))  # the allowed fact is really there
+
+
+def test_every_interval_wording_names_the_level_in_the_summaries_audit_at_090():
+    from auditor.render.jsonout import findings_dict
+    from auditor.summaries.audit import audit_from_summaries
+    from tests.conftest import ROOT
+
+    findings = findings_dict(audit_from_summaries(ROOT / "example_manuscript", quick=True, level=0.90))
+    bare, stray = _unlevelled(findings)
+    assert not bare, bare
+    assert not stray, stray
+
+
+def test_interval_words_keep_the_usual_wording_at_the_default_level():
+    from auditor.results import DEFAULT_LEVEL, interval_words
+
+    assert interval_words("delta-method", DEFAULT_LEVEL, "delta-method CI") == "delta-method CI"
+    assert interval_words("Wald", DEFAULT_LEVEL) == "Wald interval"
+    assert interval_words("delta-method", 0.9, "delta-method CI") == "90% delta-method interval"
+    assert interval_words("", 0.975, noun="CI") == "97.5% CI"
+    assert interval_words("percentile bootstrap", 0.8, noun="") == "80% percentile bootstrap"

@@ -168,7 +168,7 @@ def test_validate_imports_no_renderer_or_model_library():
             f"sys.argv = ['auditor', 'validate', {str(EXAMPLE)!r}]\n"
             "try:\n    runpy.run_module('auditor.cli', run_name='__main__')\n"
             "except SystemExit as exc:\n    assert not exc.code, exc.code\n"
-            "heavy = ('weasyprint', 'matplotlib', 'statsmodels', 'jinja2', 'scipy')\n"
+            "heavy = ('weasyprint', 'matplotlib', 'statsmodels', 'jinja2', 'scipy', 'rich')\n"
             "print('LOADED', sorted(m for m in heavy if m in sys.modules))\n")
     res = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=ROOT, timeout=120)
     assert res.returncode == 0, res.stderr

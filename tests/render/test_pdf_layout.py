@@ -220,3 +220,11 @@ def test_an_image_with_alpha_still_goes_through_the_encoder():
     pdf = html_to_pdf(_img_html(png))
     assert pdf.startswith(b"%PDF") and b"/SMask" in pdf
     assert pdf_module.png_image_stream(png) is None
+
+
+def test_estimate_widths_plan_for_the_interval_heading_printed():
+    """The interval column is planned for the heading the report prints ("97.5% interval" at
+    --level 0.975 is wider than "95% interval"); at the default level the plan is as before."""
+    rows = [{"name": "Slope", "unit": "", "note": "", "value": "0.90", "ci": "0.85 to 0.95", "p": "0.001"}]
+    assert estimate_widths(rows, "95% interval") == estimate_widths(rows)
+    assert float(estimate_widths(rows, "97.5% interval")[2].rstrip("%")) > float(estimate_widths(rows)[2].rstrip("%"))

@@ -176,3 +176,28 @@ def test_unblinded_and_pooled_options_refused_for_summaries(tmp_path):
     res = CliRunner().invoke(app, ["run", str(EXAMPLE), "-o", str(out), "--withhold-pooled"])
     assert res.exit_code == 2 and "--withhold-pooled:" in res.output
     assert not out.exists()
+
+
+def test_memo_refused_for_summaries(tmp_path):
+    """`run --memo` on a summaries folder: refused (exit 2, one located line with a fix, nothing
+    written) instead of silently writing no memo."""
+    out = tmp_path / "o"
+    res = CliRunner().invoke(app, ["run", str(EXAMPLE), "-o", str(out), "--memo"])
+    assert res.exit_code == 2
+    lines = [line for line in res.output.splitlines() if line.startswith("--memo:")]
+    assert len(lines) == 1 and "comments.md" in lines[0] and "Fix: leave the option out" in lines[0]
+    assert not out.exists()
+
+
+@pytest.mark.parametrize("option", [{"blinded": True}, {"blinded": False}, {"withhold_pooled": True},
+                                    {"list_left_out": True}])
+def test_api_refuses_participant_options_for_summaries(option):
+    """`audit_from_summaries(..., blinded=True)` and its kin raise the API's input error, naming the
+    option, instead of returning an audit that ignored it."""
+    from auditor.api import StudyInputError, audit_from_summaries
+
+    with pytest.raises(StudyInputError) as caught:
+        audit_from_summaries(EXAMPLE, quick=True, **option)
+    (problem,) = caught.value.problems
+    name, value = next(iter(option.items()))
+    assert problem.file == f"{name}={value!r}" and f"leave {name} out" in problem.fix

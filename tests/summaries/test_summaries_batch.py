@@ -64,3 +64,14 @@ def test_batch_command_on_a_summaries_folder_writes_comments_and_refuses_blindin
     row = _rows((tmp_path / "c" / "summary.csv").read_text(encoding="utf-8"))[0]
     assert row["status"] == "failed" and "--blinded" in row["error"] and row["source"] == "published summaries"
     assert row["study"] == "FIB-TG-07"
+
+
+def test_batch_memo_fails_a_summaries_study_and_names_the_option(tmp_path):
+    """`batch --memo` over a summaries folder: that study fails naming --memo (exit 4), as --blinded does,
+    and nothing is written for it."""
+    res = CliRunner().invoke(app, ["batch", str(MANUSCRIPT), "-o", str(tmp_path / "m"), "-j", "1", "--memo",
+                                   "--formats", "csv"])
+    assert res.exit_code == 4, res.output
+    row = _rows((tmp_path / "m" / "summary.csv").read_text(encoding="utf-8"))[0]
+    assert row["status"] == "failed" and "--memo" in row["error"] and row["source"] == "published summaries"
+    assert not (tmp_path / "m" / "example_manuscript" / "findings.csv").exists()
