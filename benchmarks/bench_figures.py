@@ -18,17 +18,15 @@ file per figure, numbered in audit order) for looking at them side by side.
 from __future__ import annotations
 
 import argparse
-import json
 import os
 import platform
 import statistics
-import subprocess
 import sys
 import tempfile
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from bench_speed import EXAMPLE, ROOT, export_revision  # noqa: E402
+from bench_speed import EXAMPLE, ROOT, ask, export_revision, start_worker  # noqa: E402
 
 _WORKER = (
     "import hashlib, json, os, sys, time\n"
@@ -62,23 +60,6 @@ _WORKER = (
 times; the first round's PNGs go to the folder named by the second argument (none if empty)."""
 
 
-def start_worker(tree: Path, study: Path, write: str) -> tuple[subprocess.Popen, dict]:
-    env = {**os.environ, "PYTHONPATH": str(tree)}
-    env.pop("AUDITOR_STRICT", None)
-    proc = subprocess.Popen([sys.executable, "-c", _WORKER, str(study), write], cwd=tree, env=env, text=True,
-                            stdin=subprocess.PIPE, stdout=subprocess.PIPE)
-    return proc, json.loads(proc.stdout.readline())
-
-
-def one_round(proc: subprocess.Popen) -> dict:
-    proc.stdin.write("go\n")
-    proc.stdin.flush()
-    line = proc.stdout.readline()
-    if not line:
-        raise SystemExit(f"worker stopped (exit {proc.wait()})")
-    return json.loads(line)
-
-
 def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--baseline", default="ed874fb",
@@ -94,11 +75,11 @@ def main() -> None:
         trees = {"before": (old, old / "example_study"), "after": (ROOT, Path(args.study))}
         workers, runs = {}, {name: [] for name in trees}
         for name, (tree, study) in trees.items():  # one at a time: auditing is the heavy part
-            workers[name] = start_worker(tree, study, f"{args.write}-{name}" if args.write else "")
+            workers[name] = start_worker(tree, _WORKER, str(study), f"{args.write}-{name}" if args.write else "")
         try:
             for _ in range(args.repeats):
                 for name in trees:
-                    runs[name].append(one_round(workers[name][0]))
+                    runs[name].append(ask(workers[name][0]))
         finally:
             for proc, _ in workers.values():
                 proc.stdin.close()

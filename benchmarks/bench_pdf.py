@@ -17,17 +17,15 @@ from one repeat to the next, and the HTML's size.
 from __future__ import annotations
 
 import argparse
-import json
 import os
 import platform
 import statistics
-import subprocess
 import sys
 import tempfile
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from bench_speed import EXAMPLE, ROOT, export_revision  # noqa: E402
+from bench_speed import EXAMPLE, ROOT, ask, export_revision, start_worker  # noqa: E402
 
 _WORKER = (
     "import hashlib, json, resource, sys, time\n"
@@ -48,23 +46,6 @@ _WORKER = (
 """Audits the study once, then makes one PDF of its report per line read, printing the figures."""
 
 
-def start_worker(tree: Path, study: Path) -> tuple[subprocess.Popen, dict]:
-    env = {**os.environ, "PYTHONPATH": str(tree)}
-    env.pop("AUDITOR_STRICT", None)
-    proc = subprocess.Popen([sys.executable, "-c", _WORKER, str(study)], cwd=tree, env=env, text=True,
-                            stdin=subprocess.PIPE, stdout=subprocess.PIPE)
-    return proc, json.loads(proc.stdout.readline())
-
-
-def one_pdf(proc: subprocess.Popen) -> dict:
-    proc.stdin.write("go\n")
-    proc.stdin.flush()
-    line = proc.stdout.readline()
-    if not line:
-        raise SystemExit(f"worker stopped (exit {proc.wait()})")
-    return json.loads(line)
-
-
 def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--baseline", default="18f72a8",
@@ -78,11 +59,11 @@ def main() -> None:
         trees = {"before": export_revision(args.baseline, Path(tmp) / "old"), "after": ROOT}
         workers, runs = {}, {name: [] for name in trees}
         for name, tree in trees.items():  # one at a time: auditing is the heavy part
-            workers[name] = start_worker(tree, Path(args.study))
+            workers[name] = start_worker(tree, _WORKER, str(Path(args.study)))
         try:
             for _ in range(args.repeats):
                 for name in trees:
-                    runs[name].append(one_pdf(workers[name][0]))
+                    runs[name].append(ask(workers[name][0]))
         finally:
             for proc, _ in workers.values():
                 proc.stdin.close()

@@ -58,6 +58,26 @@ def export_revision(rev: str, dest: Path) -> Path:
     return dest
 
 
+def start_worker(tree: Path, code: str, *args: str) -> tuple[subprocess.Popen, dict]:
+    """A Python process running ``code`` from ``tree`` (its first line of output, JSON, returned),
+    which then answers one JSON line per line it is sent: the peers of bench_pdf and bench_figures."""
+    env = {**os.environ, "PYTHONPATH": str(tree)}
+    env.pop("AUDITOR_STRICT", None)
+    proc = subprocess.Popen([sys.executable, "-c", code, *args], cwd=tree, env=env, text=True,
+                            stdin=subprocess.PIPE, stdout=subprocess.PIPE)
+    return proc, json.loads(proc.stdout.readline())
+
+
+def ask(proc: subprocess.Popen) -> dict:
+    """One more round from a worker made by :func:`start_worker`."""
+    proc.stdin.write("go\n")
+    proc.stdin.flush()
+    line = proc.stdout.readline()
+    if not line:
+        raise SystemExit(f"worker stopped (exit {proc.wait()})")
+    return json.loads(line)
+
+
 def cli(tree: Path, *args: str) -> tuple[float, float]:
     """Wall seconds and peak MB of one command-line call run from ``tree``."""
     env = {**os.environ, "PYTHONPATH": str(tree)}
