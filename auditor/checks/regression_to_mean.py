@@ -508,12 +508,15 @@ def choose_reliability(data, ctx, rd, scale, sel) -> Reliability:
     return rel
 
 
-def _capped(rel: Reliability, out: Sections) -> float:
+def capped(rel: Reliability) -> float:
+    """The reliability the expected change uses: the estimate, capped at RHO_CAP."""
+    return RHO_CAP if rel.value > RHO_CAP else rel.value
+
+
+def capped_caveat(rel: Reliability, out: Sections) -> None:
     if rel.value > RHO_CAP:
         out.caveats.append(f"The reliability estimate {fmt(rel.value, 3)} was capped at {RHO_CAP} for the "
                            f"expected change and its interval.")
-        return RHO_CAP
-    return rel.value
 
 
 # ----------------------------------------------------------------------------- expected and observed
@@ -609,17 +612,34 @@ def residual_bias(data, ctx, rd, scale, sel) -> tuple[Interval, Group]:
     return Interval(bias, lower, upper), group
 
 
-def second_baseline_share(data, ctx, rd, scale, sel, rel, rho, out: Sections) -> float | None:
-    """Share of the RTM bias a second, later baseline would remove (bias_after_second_baseline): all of
-    it under stable true levels; ``(1 - rho) / (1 - rho_BF)`` when the follow-up correlates less with
-    the entry reading than a repeat reading does (rho_BF: slope of follow-up on it in the comparison
-    group)."""
+@dataclass(frozen=True)
+class SecondBaseline:
+    """Share of the RTM bias a second, later baseline would remove (bias_after_second_baseline):
+    ``stable``, all of it under stable true levels; ``carried``, ``(1 - rho) / (1 - rho_BF)``-type share
+    when the follow-up correlates less with the entry reading than a repeat reading does (rho_BF, the
+    slope of follow-up on it in ``group``), else None."""
+
+    stable: float
+    stable_by_arm: bool
+    carried: float | None = None
+    rho_bf: float | None = None
+    group: Group | None = None
+
+    @property
+    def share(self) -> float:
+        return self.stable if self.carried is None else self.carried
+
+    @property
+    def by_arm(self) -> bool:
+        return self.stable_by_arm or (self.carried is not None and self.group.by_arm)
+
+
+def second_baseline(data, ctx, rd, scale, sel, rel, rho) -> SecondBaseline | None:
+    """The second-baseline shares, for a one-sided criterion on the analysis baseline (None otherwise)."""
     if sel.column != "baseline" or sel.is_window:
         return None
     fit, cut = scale.fit, float(scale.to(sel.cutoff))
     stable = bias_after_second_baseline(fit.mu, fit.sigma, cut, rho_screen_second=rho, direction=sel.direction)
-    share, by_arm = stable.share_removed, rel.by_arm
-    note = "true levels stable between the entry reading and follow-up"
     group = comparison_group(data, ctx, rd)
     b, f = rd.complete("baseline", "followup", rows=group.rows)
     if not rel.lower_bound and len(b) >= MIN_PAIRS:
@@ -627,15 +647,24 @@ def second_baseline_share(data, ctx, rd, scale, sel, rel, rho, out: Sections) ->
         if 0 < rho_bf < rho:
             decay = bias_after_second_baseline(fit.mu, fit.sigma, cut, rho_screen_second=rho,
                                                rho_screen_followup=rho_bf, direction=sel.direction)
-            out.estimates.append(estimate("Share of the bias a second baseline removes, true levels stable",
-                                          100 * stable.share_removed, unit="%", by_arm=rel.by_arm,
-                                          key="regression-to-mean.second-baseline-share-stable"))
-            share, by_arm = decay.share_removed, rel.by_arm or group.by_arm
-            note = (f"with the slope of follow-up on {sel.visit} {group.where}, {fmt(rho_bf)}, below the "
-                    f"reliability {fmt(rho)}: part of the selection carries over to a second baseline")
-    out.estimates.append(estimate("Share of the bias a second, later baseline would remove", 100 * share,
-                                  unit="%", note=note, by_arm=by_arm, key="regression-to-mean.second-baseline-share"))
-    return float(share)
+            return SecondBaseline(stable.share_removed, rel.by_arm, decay.share_removed, rho_bf, group)
+    return SecondBaseline(stable.share_removed, rel.by_arm)
+
+
+def second_baseline_section(sb: SecondBaseline | None, sel, rho: float, out: Sections) -> float | None:
+    """The second-baseline estimates; returns the share the headline and recommendation quote."""
+    if sb is None:
+        return None
+    note = "true levels stable between the entry reading and follow-up"
+    if sb.carried is not None:
+        out.estimates.append(estimate("Share of the bias a second baseline removes, true levels stable",
+                                      100 * sb.stable, unit="%", by_arm=sb.stable_by_arm,
+                                      key="regression-to-mean.second-baseline-share-stable"))
+        note = (f"with the slope of follow-up on {sel.visit} {sb.group.where}, {fmt(sb.rho_bf)}, below the "
+                f"reliability {fmt(rho)}: part of the selection carries over to a second baseline")
+    out.estimates.append(estimate("Share of the bias a second, later baseline would remove", 100 * sb.share,
+                                  unit="%", note=note, by_arm=sb.by_arm, key="regression-to-mean.second-baseline-share"))
+    return float(sb.share)
 
 
 # ----------------------------------------------------------------------------- formatting
@@ -936,18 +965,23 @@ def model_check_sub(spec, scale, rtm, pre: Change | None, out: Sections) -> None
             + ("" if inside else "; outside it, so the fitted population mean or the normal model is doubtful"))
 
 
-def expected_in_change(data, ctx, rd, scale, sel, rtm, rel, out: Sections) -> tuple[Interval, bool]:
+def expected_in_change(data, ctx, rd, scale, sel, rtm, rel) -> tuple[Interval, bool, Group | None]:
     """The change expected in the analysed change from baseline: the whole RTM when baseline decided
-    entry, else the residual bias of the later baseline."""
+    entry, else the residual bias of the later baseline (with the group it was estimated in)."""
     if sel.column == "baseline":
-        return Interval(rtm.estimate, rtm.lower, rtm.upper), rel.by_arm
+        return Interval(rtm.estimate, rtm.lower, rtm.upper), rel.by_arm, None
     target, group = residual_bias(data, ctx, rd, scale, sel)
-    out.estimates.append(estimate(f"Expected bias of change from {data.spec.baseline_visit} (entry decided at "
+    return target, group.by_arm, group
+
+
+def residual_bias_section(spec, scale, sel, target: Interval, group: Group | None, out: Sections) -> None:
+    if group is None:
+        return
+    out.estimates.append(estimate(f"Expected bias of change from {spec.baseline_visit} (entry decided at "
                                   f"{sel.visit}), {group.where}", target.estimate, target.lower, target.upper,
-                                  unit="" if scale.log else data.spec.unit,
+                                  unit="" if scale.log else spec.unit,
                                   note="(rho_SF - rho_SB) e, both correlations as slopes on the entry reading",
                                   by_arm=group.by_arm, key="regression-to-mean.residual-bias"))
-    return target, group.by_arm
 
 
 # ----------------------------------------------------------------------------- verdict and headline
@@ -1154,6 +1188,70 @@ def no_selection_result(check, data, finds, out: Sections, level: float = 0.95):
                   references=cite(["barnett-2005"]), method=method_text(level))
 
 
+@dataclass(frozen=True)
+class Analysis:
+    """Every number the check judges by, before any wording: the selection found or declared and
+    the readings it kept, the analysis scale with its truncated-normal fit, the fitted share the
+    criterion leaves out, the reliability (and the value used, capped), the expected regression to
+    the mean, the observed and pre-treatment changes, the change expected in the analysed change
+    from baseline (``target``, with the group a residual bias was estimated in), the second-baseline
+    shares, and whether the expected shift is material for the design as judged."""
+
+    sel: Selection
+    finds: list
+    rd: Readings
+    n_excluded: int
+    scale: Scale
+    share_out: float
+    no_one_out: bool
+    rel: Reliability
+    rho: float
+    rtm: object
+    obs: Change
+    pre: Change | None
+    target: Interval
+    target_by_arm: bool
+    residual_group: Group | None
+    second: SecondBaseline | None
+    design: str
+    material_sd: float
+
+    @property
+    def sigma(self) -> float:
+        return self.scale.fit.sigma
+
+    @property
+    def material(self) -> bool:
+        return is_material(self.target, self.sigma, self.material_sd)
+
+    @property
+    def by_arm(self) -> bool:
+        return self.obs.by_arm or self.target_by_arm
+
+
+def analyse(data, ctx: CheckContext, everyone: Readings, sel: Selection, finds) -> Analysis:
+    """Fit and estimate everything, in the order each step needs the one before (a step the data
+    cannot answer raises NotAssessable)."""
+    spec = data.spec
+    rd, n_excluded = selected(everyone, sel)
+    scale = choose_scale(spec, rd, sel)
+    if not scale.fit.converged:
+        raise NotAssessable(f"the truncated-normal fit of {sel.visit} did not converge (the selected values are "
+                            f"more skewed than a truncated normal allows)")
+    share_out = excluded_share(scale, sel)
+    rel = choose_reliability(data, ctx, rd, scale, sel)
+    rho = capped(rel)
+    rtm = (expected_window_change(scale.fit, rho, rel.se, ctx) if sel.is_window else
+           expected_change(scale.fit, rho, rel.se, float(scale.to(sel.cutoff)), sel.direction, ctx))
+    obs = observed_change(data, ctx, rd, scale)
+    pre = pre_treatment_change(rd, scale, sel, rel, spec, ctx.level)
+    target, target_by_arm, group = expected_in_change(data, ctx, rd, scale, sel, rtm, rel)
+    second = second_baseline(data, ctx, rd, scale, sel, rel, rho)
+    return Analysis(sel, finds, rd, n_excluded, scale, share_out, selects_no_one(sel, share_out), rel, rho, rtm,
+                    obs, pre, target, target_by_arm, group, second, judged_design(data),
+                    ctx.thresholds.rtm_shift_sd)
+
+
 @register(CHECK_ID, TITLE, _applies, order=30, needs_arms=False,
           summary="Whether entry on this outcome selected an extreme group, how much change regression to "
                   "the mean alone would produce, and how that compares with the change observed.")
@@ -1170,33 +1268,20 @@ def run(data, ctx: CheckContext):
     if sel is None:
         selection_section(None, finds, 0, 0, out)
         return no_selection_result(check, data, finds, out, ctx.level)
-    rd, n_excluded = selected(everyone, sel)
-    scale = choose_scale(spec, rd, sel)
-    if not scale.fit.converged:
-        raise NotAssessable(f"the truncated-normal fit of {sel.visit} did not converge (the selected values are "
-                            f"more skewed than a truncated normal allows)")
-    share_out = excluded_share(scale, sel)
-    no_one_out = selects_no_one(sel, share_out)
-    selection_section(sel, finds, len(rd.present(sel.column)), n_excluded, out, share_out)
+    an = analyse(data, ctx, everyone, sel, finds)
+    rd, scale, rel, rho, rtm, target = an.rd, an.scale, an.rel, an.rho, an.rtm, an.target
+    obs, pre, sigma, material, material_sd, design = an.obs, an.pre, an.sigma, an.material, an.material_sd, an.design
+    share_out, no_one_out, target_by_arm, by_arm = an.share_out, an.no_one_out, an.target_by_arm, an.by_arm
+    selection_section(sel, finds, len(rd.present(sel.column)), an.n_excluded, out, share_out)
     population_section(spec, scale, sel, out, ctx.level)
-    rel = choose_reliability(data, ctx, rd, scale, sel)
     reliability_section(spec, rel, out)
-    rho = _capped(rel, out)
-    rtm = (expected_window_change(scale.fit, rho, rel.se, ctx) if sel.is_window else
-           expected_change(scale.fit, rho, rel.se, float(scale.to(sel.cutoff)), sel.direction, ctx))
+    capped_caveat(rel, out)
     expected_section(spec, scale, rtm, rel, sel, out, ctx.level)
-    obs = observed_change(data, ctx, rd, scale)
-    pre = pre_treatment_change(rd, scale, sel, rel, spec, ctx.level)
-    target, target_by_arm = expected_in_change(data, ctx, rd, scale, sel, rtm, rel, out)
-    by_arm = obs.by_arm or target_by_arm
+    residual_bias_section(spec, scale, sel, target, an.residual_group, out)
     observed_section(spec, scale, target, obs, pre, by_arm, ctx, out)
     model_check_sub(spec, scale, rtm, pre, out)
     shrinkage_section(spec, rd, scale, rho, sel, rel, out)
-    second = second_baseline_share(data, ctx, rd, scale, sel, rel, rho, out)
-    sigma = scale.fit.sigma
-    material_sd = ctx.thresholds.rtm_shift_sd
-    design = judged_design(data)
-    material = is_material(target, sigma, material_sd)
+    second = second_baseline_section(an.second, sel, rho, out)
     verdict = decide(design, material, no_one_out)
     out.estimates.append(estimate("Expected shift in the analysed change, in SDs of the unselected population",
                                   target.estimate / sigma, target.lower / sigma, target.upper / sigma,

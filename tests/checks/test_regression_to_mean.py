@@ -382,3 +382,30 @@ def test_upper_quarter_to_half_of_a_normal_screening_is_assessable(mu, sigma, pe
 
 def _sub(res, id_):
     return next(s for s in res.subfindings if s.id == id_)
+
+
+def test_analysis_holds_the_judged_numbers_before_any_wording():
+    """The analysis alone, no sentences: with entry on baseline the change expected in the analysed
+    change is the whole expected regression to the mean, equal to Barnett et al.'s (2005) closed form
+    at the fitted mean, SD and reliability (stats.rtm.expected_rtm, checked against the published
+    worked example in tests/stats/test_rtm.py); with entry at screening it is the residual bias of
+    the later baseline, estimated in a named comparison group; materiality is the rule of
+    ``is_material`` on that interval."""
+    from auditor.checks.regression_to_mean import Readings, analyse, find_selection, is_material
+
+    def analysis(data):
+        everyone = Readings.of(data, CTX)
+        sel, finds = find_selection(data.spec, everyone, CTX)
+        return analyse(data, CTX, everyone, sel, finds)
+
+    an = analysis(simulate(np.random.default_rng(5), n=400))
+    fit = an.scale.fit
+    assert an.residual_group is None and an.sel.column == "baseline"
+    assert an.target.estimate == pytest.approx(an.rtm.estimate)
+    assert an.rtm.estimate == pytest.approx(expected_rtm(fit.mu, fit.sigma, an.rho, 52.0, "above"), rel=1e-6)
+    assert an.material == is_material(an.target, fit.sigma, 0.1)
+    assert an.second is not None and 0 < an.second.share <= 1
+
+    later = analysis(simulate(np.random.default_rng(6), n=400, entry="screening"))
+    assert later.residual_group is not None and later.second is None
+    assert later.target.lower <= 0 <= later.target.upper  # stable true level: no residual bias (truth)
