@@ -230,6 +230,9 @@ def test_a_new_folder_is_removed_again_when_nothing_could_be_written(tmp_path, m
 _CHILD = textwrap.dedent("""
     import os, signal, sys, time
     from pathlib import Path
+    # A shell without job control starts background jobs with SIGINT ignored, and Python keeps that;
+    # the child's own Ctrl-C must raise KeyboardInterrupt however the tests were started.
+    signal.signal(signal.SIGINT, signal.default_int_handler)
     sys.path.insert(0, {root!r})
     import auditor.writeguard as wg
     target, mode, k = Path(sys.argv[1]), sys.argv[2], int(sys.argv[3])
