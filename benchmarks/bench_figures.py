@@ -20,13 +20,12 @@ from __future__ import annotations
 import argparse
 import os
 import platform
-import statistics
 import sys
 import tempfile
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from bench_speed import EXAMPLE, ROOT, ask, export_revision, start_worker  # noqa: E402
+from bench_speed import EXAMPLE, ROOT, alternate, best_and_median, export_revision  # noqa: E402
 
 _WORKER = (
     "import hashlib, json, os, sys, time\n"
@@ -73,24 +72,14 @@ def main() -> None:
     with tempfile.TemporaryDirectory() as tmp:
         old = export_revision(args.baseline, Path(tmp) / "old")
         trees = {"before": (old, old / "example_study"), "after": (ROOT, Path(args.study))}
-        workers, runs = {}, {name: [] for name in trees}
-        for name, (tree, study) in trees.items():  # one at a time: auditing is the heavy part
-            workers[name] = start_worker(tree, _WORKER, str(study), f"{args.write}-{name}" if args.write else "")
-        try:
-            for _ in range(args.repeats):
-                for name in trees:
-                    runs[name].append(ask(workers[name][0]))
-        finally:
-            for proc, _ in workers.values():
-                proc.stdin.close()
-                proc.wait()
+        heads, runs = alternate({name: (tree, _WORKER, str(study), f"{args.write}-{name}" if args.write else "")
+                                 for name, (tree, study) in trees.items()}, args.repeats)
         print(f"load average after {os.getloadavg()[0]:.1f}; {args.repeats} rounds each, alternating; "
               f"baseline {args.baseline}")
         best = {}
         for name in trees:
-            r, head = runs[name], workers[name][1]
-            best[name] = {k: min(x[k] for x in r) for k in ("wall", "cpu")}
-            med = {k: statistics.median(x[k] for x in r) for k in ("wall", "cpu")}
+            r, head = runs[name], heads[name]
+            best[name], med = best_and_median(r)
             print(f"  {name:6s} {head['figures']} figures: cpu best {best[name]['cpu']:5.2f} s median "
                   f"{med['cpu']:5.2f} s; wall best {best[name]['wall']:5.2f} s median {med['wall']:5.2f} s; "
                   f"PNGs {r[0]['mb']:.2f} MB; byte-identical across rounds: {len({x['sha'] for x in r}) == 1}")

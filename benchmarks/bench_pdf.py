@@ -19,13 +19,12 @@ from __future__ import annotations
 import argparse
 import os
 import platform
-import statistics
 import sys
 import tempfile
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from bench_speed import EXAMPLE, ROOT, ask, export_revision, start_worker  # noqa: E402
+from bench_speed import EXAMPLE, ROOT, alternate, best_and_median, export_revision  # noqa: E402
 
 _WORKER = (
     "import hashlib, json, resource, sys, time\n"
@@ -57,24 +56,14 @@ def main() -> None:
           f"load average before {os.getloadavg()[0]:.1f}")
     with tempfile.TemporaryDirectory() as tmp:
         trees = {"before": export_revision(args.baseline, Path(tmp) / "old"), "after": ROOT}
-        workers, runs = {}, {name: [] for name in trees}
-        for name, tree in trees.items():  # one at a time: auditing is the heavy part
-            workers[name] = start_worker(tree, _WORKER, str(Path(args.study)))
-        try:
-            for _ in range(args.repeats):
-                for name in trees:
-                    runs[name].append(ask(workers[name][0]))
-        finally:
-            for proc, _ in workers.values():
-                proc.stdin.close()
-                proc.wait()
+        heads, runs = alternate({name: (tree, _WORKER, str(Path(args.study))) for name, tree in trees.items()},
+                                args.repeats)
         print(f"load average after {os.getloadavg()[0]:.1f}; {args.repeats} PDFs each, alternating; "
               f"baseline {args.baseline}")
         best = {}
         for name in trees:
-            r, head = runs[name], workers[name][1]
-            best[name] = {k: min(x[k] for x in r) for k in ("wall", "cpu")}
-            med = {k: statistics.median(x[k] for x in r) for k in ("wall", "cpu")}
+            r, head = runs[name], heads[name]
+            best[name], med = best_and_median(r)
             print(f"  {name:6s} pdf wall best {best[name]['wall']:5.2f} s median {med['wall']:5.2f} s; "
                   f"cpu best {best[name]['cpu']:5.2f} s median {med['cpu']:5.2f} s; "
                   f"PDF {r[0]['mb']:.2f} MB; HTML {head['html_mb']:.2f} MB; "

@@ -78,6 +78,29 @@ def ask(proc: subprocess.Popen) -> dict:
     return json.loads(line)
 
 
+def alternate(starts: dict[str, tuple], repeats: int) -> tuple[dict, dict]:
+    """Start one worker per tree (``name -> start_worker arguments``), one after another since
+    starting is the heavy part, then ask each in turn ``repeats`` times, so that a busy machine slows
+    both alike. Returns each worker's first line and its rounds, by name."""
+    workers = {name: start_worker(*a) for name, a in starts.items()}
+    runs = {name: [] for name in starts}
+    try:
+        for _ in range(repeats):
+            for name in starts:
+                runs[name].append(ask(workers[name][0]))
+    finally:
+        for proc, _ in workers.values():
+            proc.stdin.close()
+            proc.wait()
+    return {name: head for name, (_, head) in workers.items()}, runs
+
+
+def best_and_median(rounds: list[dict]) -> tuple[dict, dict]:
+    """Best and median wall and processor seconds over a worker's rounds (see :func:`alternate`)."""
+    keys = ("wall", "cpu")
+    return ({k: min(x[k] for x in rounds) for k in keys}, {k: statistics.median(x[k] for x in rounds) for k in keys})
+
+
 def cli(tree: Path, *args: str) -> tuple[float, float]:
     """Wall seconds and peak MB of one command-line call run from ``tree``."""
     env = {**os.environ, "PYTHONPATH": str(tree)}
