@@ -24,7 +24,7 @@ import numpy as np
 from ..references import REFERENCES, add_reference, cite
 from ..results import Figure, Table, Verdict, interval_words, level_label
 from ..stats import relative_change as rc
-from ..stats.correlation import spearman
+from ..stats.correlation import Correlation, spearman
 from ..stats.effects import NO_ARMS, ArmCoding, ArmContrast, ArmEffect, arm_coding
 from .common import Sections, arms_present, estimate, fmt, fmt_ci, result
 from .registry import CheckContext, NotAssessable, register
@@ -84,6 +84,7 @@ def _worst(*verdicts: Verdict) -> Verdict:
     return max(verdicts, key=_VERDICT_ORDER.index)
 
 
+
 @dataclass
 class _Collect(Sections):
     """What the sections of the check accumulate, and the headline phrases they contribute."""
@@ -92,8 +93,13 @@ class _Collect(Sections):
     """Headline phrases by section, composed at the end."""
 
 
+# --------------------------------------------------------------------------- the analysis (numbers only)
+
+
 @dataclass(frozen=True)
-class _Inputs:
+class Inputs:
+    """The complete baseline/follow-up pairs the check analyses."""
+
     b: np.ndarray
     f: np.ndarray
     arm: np.ndarray | None
@@ -102,13 +108,221 @@ class _Inputs:
     coding: ArmCoding
     control: str | None
     uses_percent: bool
+    """The plan uses a percent change (planned percent change, or a responder rule on percent change)."""
+
+
+@dataclass(frozen=True)
+class Extreme:
+    """One of the largest percent changes (pooled): its values, and whether its baseline is near zero."""
+
+    baseline: float
+    followup: float
+    percent: float
+    """NaN when the percent change is undefined."""
+    near_zero: bool
+
+
+@dataclass(frozen=True)
+class Definedness:
+    """Where percent change is undefined or unstable, and the largest percent changes."""
+
+    instability: rc.Instability
+    extremes: tuple[Extreme, ...]
+
+    @property
+    def extreme(self) -> float:
+        """The largest |percent change| (0 when none is defined)."""
+        ins = self.instability
+        return max(abs(ins.largest_rise), abs(ins.largest_fall)) if math.isfinite(ins.largest_rise) else 0.0
+
+
+@dataclass(frozen=True)
+class Recoding:
+    """The planned percent-change summary of an ordinal outcome under its declared codes and under the
+    codes shifted by one (:func:`rc.recoding_shift`): pooled means, and the effect of the first arm
+    contrast when there are arms and the shifted summary is defined."""
+
+    shift: float
+    declared: rc.CodingSummary
+    shifted: rc.CodingSummary
+    declared_effect: ArmEffect | None
+    shifted_effect: ArmEffect | None
+    material_change: float
+    """The relative change this audit treats as material (``recoding_change``)."""
+
+    @property
+    def by_arm(self) -> bool:
+        return self.declared_effect is not None
+
+    @property
+    def before(self) -> float | None:
+        """The summary with the declared codes (the effect when by arm, else the pooled mean)."""
+        return self.declared_effect.estimate if self.by_arm else self.declared.mean
+
+    @property
+    def after(self) -> float | None:
+        """The summary with the codes shifted."""
+        return self.shifted_effect.estimate if self.by_arm else self.shifted.mean
+
+    @property
+    def n_undefined(self) -> int:
+        return self.declared.n_undefined + self.shifted.n_undefined
+
+    @property
+    def relative_change(self) -> float:
+        return rc.relative_difference(self.before, self.after)
+
+    @property
+    def flipped(self) -> bool:
+        a, c = self.before, self.after
+        return bool(a is not None and c is not None and np.sign(a) != np.sign(c))
+
+    @property
+    def material(self) -> bool:
+        """Any percent change undefined, a relative change at or above the threshold, or a sign flip."""
+        return bool(self.n_undefined or self.relative_change >= self.material_change or self.flipped)
+
+
+@dataclass(frozen=True)
+class Asymmetry:
+    """The shape of percent change beside that of the log ratio (None when fewer than 3 are defined)."""
+
+    log_ratio: np.ndarray
+    percent_shape: rc.Shape
+    log_ratio_shape: rc.Shape | None
+
+
+@dataclass(frozen=True)
+class ArmSpearman:
+    arm: str
+    n: int
+    rho: Correlation
+
+
+@dataclass(frozen=True)
+class BaselineDependence:
+    """Spearman's rho of percent change with baseline, pooled and within each arm (arms with at least 4
+    defined percent changes that vary)."""
+
+    pooled: Correlation
+    within: tuple[ArmSpearman, ...]
+
+    @property
+    def strongest(self) -> ArmSpearman | None:
+        """The within-arm correlation largest in absolute value (the first on a tie); None without arms."""
+        return max(self.within, key=lambda x: abs(x.rho.r)) if self.within else None
+
+    @property
+    def judged(self) -> Correlation:
+        """The correlation the verdict reads: the strongest within arm, else the pooled one."""
+        return self.strongest.rho if self.within else self.pooled
+
+
+@dataclass(frozen=True)
+class Fits:
+    """Every analysis of the treatment effect, fitted on the trial's data."""
+
+    planned_design: rc.RefitDesign
+    reference_design: rc.RefitDesign
+    planned: list[ArmEffect]
+    reference: list[ArmEffect]
+    others: list[list[ArmEffect]]
+    ordinal_note: str
+    """Why the proportional-odds row is missing ('' when it is present)."""
+    proportional_odds: bool
+    """The proportional-odds ANCOVA was fitted (as the reference or beside it)."""
+
+
+@dataclass(frozen=True)
+class Cost:
+    """The planned analysis against its reference, for the most informative contrast."""
+
+    contrast: ArmContrast
+    reference: ArmEffect
+    efficiency: float
+    interval: rc.EfficiencyInterval
+    informative: bool
+
+
+@dataclass(frozen=True)
+class Compared:
+    """One effect of the effects table with its efficiency against the reference for its contrast."""
+
+    effect: ArmEffect
+    efficiency: float
+    is_reference: bool
+
+    @property
+    def needed(self) -> float | None:
+        """Participants needed against the reference, 1 / efficiency (None when not positive)."""
+        return 1 / self.efficiency if self.efficiency > 0 else None
+
+
+@dataclass(frozen=True)
+class Effects:
+    """The treatment effect under each analysis and what the planned one costs (two or more arms)."""
+
+    fits: Fits
+    cost: Cost
+    compared: tuple[Compared, ...]
+
+
+@dataclass(frozen=True)
+class Responder:
+    """A responder rule: each participant's status, its normal-theory cost against ANCOVA and the
+    logistic curve of responding on baseline (each None, with the reason, when it cannot be computed)."""
+
+    indicator: np.ndarray
+    cost: rc.ResponderCost | None
+    cost_error: str
+    curve: rc.ResponderCurve | None
+    curve_error: str
+
+    @property
+    def normal_ok(self) -> bool:
+        """The normal distribution fitted to the change predicts the observed responder share."""
+        c = self.cost
+        return abs(c.share_observed - c.share_normal) <= NORMAL_SHARE_TOLERANCE
+
+    @property
+    def baseline_material(self) -> bool:
+        """The responder probability moves by RESPONDER_PROB_RANGE or more across the 10th to 90th
+        baseline percentiles, with p < 0.05."""
+        curve = self.curve
+        return curve.p_value < 0.05 and abs(curve.prob_high - curve.prob_low) >= RESPONDER_PROB_RANGE
+
+
+@dataclass(frozen=True)
+class Analysis:
+    """Every number the check judges by, before any wording: the pairs analysed and their percent
+    changes; where percent change is undefined or unstable, its dependence on an ordinal coding, its
+    asymmetry and its dependence on baseline (percent-change plans); the effects under every analysis
+    and the planned analysis's efficiency with its bootstrap interval (two or more arms); and the
+    responder rule's cost and dependence on baseline (responder plans). A part the plan or the data do
+    not call for is None."""
+
+    inputs: Inputs
+    percent: np.ndarray
+    """100 (f - b) / b per participant, NaN where undefined."""
+    defined: Definedness | None
+    recoding: Recoding | None
+    asymmetry: Asymmetry | None
+    baseline: BaselineDependence | None
+    effects: Effects | None
+    responder: Responder | None
+    sample_size_ratio: float
+    """The sample-size cost this audit treats as material (``sample_size_ratio``)."""
+
+    @property
+    def cost(self) -> Cost | None:
+        return self.effects.cost if self.effects is not None else None
 
 
 def _applies(spec, design) -> bool:
     return spec.planned_analysis in ("percent-change", "responder") and spec.baseline_visit is not None
 
 
-def _inputs(data, ctx: CheckContext) -> _Inputs:
+def _inputs(data, ctx: CheckContext) -> Inputs:
     """Complete baseline/follow-up pairs; arm labels only when unblinded (the column is not read otherwise)."""
     frame = data.frame
     if "baseline" not in frame.columns:
@@ -125,13 +339,191 @@ def _inputs(data, ctx: CheckContext) -> _Inputs:
     uses_percent = spec.planned_analysis == "percent-change" or (
         spec.responder is not None and spec.responder.basis == "percent-change")
     if len(arms) < 2:
-        return _Inputs(df["baseline"].to_numpy(float), df["followup"].to_numpy(float), None, [], NO_ARMS, None,
-                       uses_percent)
+        return Inputs(df["baseline"].to_numpy(float), df["followup"].to_numpy(float), None, [], NO_ARMS, None,
+                      uses_percent)
     df = df[df["arm"].isin(arms)].reset_index(drop=True)
     control = data.control_arm if data.control_arm in arms else arms[0]
     arm = df["arm"].to_numpy(object)
-    return _Inputs(df["baseline"].to_numpy(float), df["followup"].to_numpy(float), arm, arms,
-                   arm_coding(arm, arms, control), control, uses_percent)
+    return Inputs(df["baseline"].to_numpy(float), df["followup"].to_numpy(float), arm, arms,
+                  arm_coding(arm, arms, control), control, uses_percent)
+
+
+def definedness(inp: Inputs, pc: np.ndarray) -> Definedness:
+    """Counts of undefined and near-zero baselines (:func:`rc.instability`) and the TOP_EXTREMES
+    largest |percent change|."""
+    ins = rc.instability(inp.b, inp.f)
+    extremes = []
+    for i in rc.largest_changes(pc, TOP_EXTREMES):
+        near = bool(inp.b[i] > 0 and math.isfinite(ins.threshold) and inp.b[i] < ins.threshold)
+        extremes.append(Extreme(float(inp.b[i]), float(inp.f[i]), float(pc[i]), near))
+    return Definedness(ins, tuple(extremes))
+
+
+def recoding(inp: Inputs, levels, level: float, material_change: float) -> Recoding:
+    """Shift the codes by one and recompute the planned percent-change summary under both codings."""
+    shift = rc.recoding_shift(levels)
+    b2, f2 = inp.b + shift, inp.f + shift
+    declared, shifted = rc.coding_summary(inp.b, inp.f), rc.coding_summary(b2, f2)
+    e1 = e2 = None
+    if inp.coding.contrasts and shifted.mean is not None:
+        e1 = rc.ols_effects(rc.percent_change_design(inp.b, inp.f, inp.coding), level)[0]
+        e2 = rc.ols_effects(rc.percent_change_design(b2, f2, inp.coding), level)[0]
+    return Recoding(shift, declared, shifted, e1, e2, material_change)
+
+
+def asymmetry(inp: Inputs, pc: np.ndarray) -> Asymmetry:
+    """The shape of percent change (floor -100%) and of the log ratio (:func:`rc.shape`)."""
+    lr = rc.log_ratio(inp.b, inp.f)
+    s_lr = rc.shape(lr) if np.isfinite(lr).sum() >= 3 else None
+    return Asymmetry(lr, rc.shape(pc, floor=-100.0), s_lr)
+
+
+def baseline_dependence(inp: Inputs, pc: np.ndarray, level: float) -> BaselineDependence:
+    """Spearman's rho of percent change with baseline, pooled and within each arm."""
+    ok = np.isfinite(pc)
+    within = []
+    for a in inp.arms:
+        sel = ok & (inp.arm == a)
+        if sel.sum() >= 4 and np.ptp(pc[sel]) > 0 and np.ptp(inp.b[sel]) > 0:
+            within.append(ArmSpearman(a, int(sel.sum()), spearman(inp.b[sel], pc[sel], level)))
+    return BaselineDependence(spearman(inp.b[ok], pc[ok], level), tuple(within))
+
+
+def _designs(inp: Inputs, spec, responder: np.ndarray | None):
+    """(planned design, least-squares reference design, other designs) for the effect comparison.
+    The reference of an ordinal outcome is the proportional-odds ANCOVA (:func:`_ordinal_reference`),
+    tried in :func:`fit_analyses`; the least-squares reference here stands in when it cannot be
+    fitted."""
+    cols = inp.coding
+    positive = bool(np.all(inp.b > 0) and np.all(inp.f > 0))
+    log_d = rc.log_ancova_design(inp.b, inp.f, cols) if positive else None
+    raw_d = rc.raw_ancova_design(inp.b, inp.f, cols)
+    pc_d = rc.percent_change_design(inp.b, inp.f, cols) if inp.uses_percent else None
+    if spec.planned_analysis == "responder":
+        planned = rc.responder_design(responder, cols)
+        reference = log_d if (spec.responder.basis == "percent-change" and log_d) else raw_d
+        others = [d for d in (pc_d, log_d, raw_d) if d is not None and d is not reference]
+    else:
+        planned = pc_d
+        reference = log_d or raw_d
+        others = [d for d in (log_d, raw_d) if d is not None and d is not reference]
+    return planned, reference, others
+
+
+def _ordinal_reference(inp: Inputs, spec, level: float):
+    """(design, effects) of the proportional-odds ANCOVA, the reference analysis of an outcome
+    declared ordinal: it uses only the order of the follow-up levels, which is all an ordinal scale
+    gives. Baseline enters as categories when the levels are declared, else as a spline. Raises the
+    fitter's OrdinalFitError when the model cannot be fitted."""
+    design = rc.ordinal_ancova_design(inp.b, inp.f, inp.coding, categorical_baseline=bool(spec.levels))
+    return design, rc.ordinal_effects(design, level)
+
+
+def _po_reason() -> str | None:
+    """Why the proportional-odds row is left out, or None when the fitter is available."""
+    try:
+        from ..stats.ordinal import fit_proportional_odds  # noqa: F401
+    except Exception as exc:  # any failure to import leaves the row out, with its reason
+        return f"the proportional-odds fitter could not be imported ({type(exc).__name__}: {exc})"
+    return None
+
+
+def fit_analyses(inp: Inputs, spec, level: float, responder) -> Fits:
+    """The planned analysis, its reference and the other analyses, each fitted on the trial's data."""
+    planned_d, ref_d, other_ds = _designs(inp, spec, responder)
+    others = [rc.ols_effects(d, level) for d in other_ds]
+    note = ""
+    fitted = False
+    reason = _po_reason()
+    if reason is None:
+        from ..stats.ordinal import OrdinalFitError
+
+        try:
+            if spec.scale == "ordinal":
+                po_d, po_effects = _ordinal_reference(inp, spec, level)
+                others.insert(0, rc.ols_effects(ref_d, level))
+                return Fits(planned_d, po_d, rc.ols_effects(planned_d, level), po_effects, others, "", True)
+            others.append(rc.proportional_odds_effects(inp.b, inp.f, inp.coding, level))
+            fitted = True
+        except (OrdinalFitError, ValueError, ArithmeticError, np.linalg.LinAlgError) as exc:
+            note = f"The proportional-odds ANCOVA could not be fitted: {getattr(exc, 'reason', exc)}"
+            if spec.scale == "ordinal":
+                note += f"; the {ref_d.analysis} is the reference instead."
+    else:
+        note = f"The proportional-odds ANCOVA is left out: {reason}."
+    return Fits(planned_d, ref_d, rc.ols_effects(planned_d, level), rc.ols_effects(ref_d, level),
+                others, note, fitted)
+
+
+def measure_cost(fits: Fits, inp: Inputs, ctx: CheckContext) -> Cost:
+    """Efficiency of the planned analysis for the contrast the reference shows most clearly, with a
+    percentile bootstrap interval resampling within arm (:func:`rc.bootstrap_efficiency`)."""
+    k = int(np.argmax([abs(e.statistic) for e in fits.reference]))
+    contrast = fits.reference_design.contrasts[k]
+    j = fits.planned_design.contrasts.index(contrast)
+
+    def statistics(rows):
+        return (rc.t_statistics(fits.planned_design, rows)[j],
+                rc.design_statistics(fits.reference_design, rows)[j])
+
+    n_boot = BOOT_QUICK if ctx.quick else BOOT_FULL
+    interval = rc.bootstrap_efficiency(statistics, inp.arm, n_boot, ctx.seed, ctx.level)
+    eff = rc.relative_efficiency(fits.planned[k].statistic, fits.reference[k].statistic)
+    return Cost(contrast, fits.reference[k], eff, interval, abs(fits.reference[k].statistic) >= INFORMATIVE_Z)
+
+
+def compare_effects(fits: Fits) -> tuple[Compared, ...]:
+    """Every effect (planned, reference, others) with its efficiency against the reference effect of the
+    same arm (:func:`rc.relative_efficiency`)."""
+    rows = []
+    for effects in [fits.planned, fits.reference, *fits.others]:
+        for e in effects:
+            ref = next(r for r in fits.reference if r.arm == e.arm)
+            rows.append(Compared(e, rc.relative_efficiency(e.statistic, ref.statistic), e is ref))
+    return tuple(rows)
+
+
+def responder_analysis(inp: Inputs, rule, level: float) -> Responder:
+    """Responder status, its normal-theory cost (:func:`rc.responder_cost`) and the logistic curve of
+    responding on baseline (:func:`rc.responder_on_baseline`); a ValueError of either is kept as the
+    reason it is not assessable."""
+    resp = rc.responder_indicator(inp.b, inp.f, rule.basis, rule.threshold, rule.direction)
+    cost, cost_error = None, ""
+    try:
+        cost = rc.responder_cost(inp.b, inp.f, rule.basis, rule.threshold, rule.direction)
+    except ValueError as exc:
+        cost_error = str(exc)
+    curve, curve_error = None, ""
+    try:
+        curve = rc.responder_on_baseline(inp.b, resp, level)
+    except ValueError as exc:
+        curve_error = str(exc)
+    return Responder(resp, cost, cost_error, curve, curve_error)
+
+
+def analyse(data, ctx: CheckContext) -> Analysis:
+    """Compute every part the plan calls for, at the audit's confidence level and thresholds (the
+    pairs raise NotAssessable when too few or constant)."""
+    spec = data.spec
+    inp = _inputs(data, ctx)
+    pc = rc.percent_change(inp.b, inp.f)
+    defined = recoded = asym = base = None
+    if inp.uses_percent:
+        defined = definedness(inp, pc)
+        if spec.scale == "ordinal" and spec.levels:
+            recoded = recoding(inp, spec.levels, ctx.level, ctx.thresholds.recoding_change)
+        if np.isfinite(pc).sum() >= MIN_DEFINED:
+            asym = asymmetry(inp, pc)
+            base = baseline_dependence(inp, pc, ctx.level)
+    responder = responder_analysis(inp, spec.responder, ctx.level) if spec.planned_analysis == "responder" else None
+    effects = None
+    if inp.coding.contrasts:
+        fits = fit_analyses(inp, spec, ctx.level, responder.indicator if responder else None)
+        effects = Effects(fits, measure_cost(fits, inp, ctx), compare_effects(fits))
+    return Analysis(inp, pc, defined, recoded, asym, base, effects, responder, ctx.thresholds.sample_size_ratio)
+
+
+# --------------------------------------------------------------------------- wording helpers
 
 
 def _pct(x: float) -> str:
@@ -170,20 +562,20 @@ def recommended_analysis(spec, verdict: Verdict) -> str:
     return "ANCOVA of log follow-up adjusted for log baseline (a ratio of geometric means)"
 
 
-def _definedness_verdict(ins: rc.Instability) -> Verdict:
+def _definedness_verdict(part: Definedness) -> Verdict:
     """Caution: any baseline at or below zero, any near zero, or a change of 1000% or more; sound
     otherwise. Never unsupported on its own: what an unstable percent change costs the treatment
     comparison is sized by the efficiency finding, which alone can make the check unsupported."""
-    extreme = max(abs(ins.largest_rise), abs(ins.largest_fall)) if math.isfinite(ins.largest_rise) else 0.0
-    if ins.n_undefined or ins.n_near_zero or extreme >= EXTREME_PERCENT:
+    ins = part.instability
+    if ins.n_undefined or ins.n_near_zero or part.extreme >= EXTREME_PERCENT:
         return Verdict.CAUTION
     return Verdict.SOUND
 
 
-def _definedness(inp: _Inputs, spec, out: _Collect) -> Verdict:
-    ins = rc.instability(inp.b, inp.f)
+def _definedness(an: Analysis, spec, out: _Collect) -> Verdict:
+    ins = an.defined.instability
     floor_zero = spec.lower_bound is not None and spec.lower_bound <= 0
-    verdict = _definedness_verdict(ins)
+    verdict = _definedness_verdict(an.defined)
     parts = [f"{_n(ins.n_zero, 'baseline')} at 0 and {ins.n_negative} below 0",
              f"{ins.n_near_zero} below {ins.fraction:.0%} of the median baseline ({_g(ins.median_baseline)}; "
              f"threshold {_g(ins.threshold)})",
@@ -205,8 +597,8 @@ def _definedness(inp: _Inputs, spec, out: _Collect) -> Verdict:
         estimate("Largest percent rise", ins.largest_rise, unit="%", key="percent-change.largest-rise"),
         estimate("Largest percent fall", ins.largest_fall, unit="%", key="percent-change.largest-fall"),
     ]
-    out.tables.append(_extremes_table(inp, ins))
-    out.figures.append(_scatter(inp, ins, spec))
+    out.tables.append(_extremes_table(an.defined))
+    out.figures.append(_scatter(an, spec))
     if ins.n_undefined:
         out.clauses["defined"] = (f"percent change is undefined for {_n(ins.n_undefined, 'participant')} with "
                                   f"a baseline at or below zero")
@@ -220,14 +612,9 @@ def _definedness(inp: _Inputs, spec, out: _Collect) -> Verdict:
     return verdict
 
 
-def _extremes_table(inp: _Inputs, ins: rc.Instability) -> Table:
-    pc = rc.percent_change(inp.b, inp.f)
-    order = np.argsort(-np.where(np.isfinite(pc), np.abs(pc), np.inf), kind="mergesort")[:TOP_EXTREMES]
-    rows = []
-    for i in order:
-        near = bool(inp.b[i] > 0 and math.isfinite(ins.threshold) and inp.b[i] < ins.threshold)
-        rows.append([float(inp.b[i]), float(inp.f[i]),
-                     float(pc[i]) if math.isfinite(pc[i]) else "undefined", "yes" if near else "no"])
+def _extremes_table(part: Definedness) -> Table:
+    rows = [[x.baseline, x.followup, x.percent if math.isfinite(x.percent) else "undefined",
+             "yes" if x.near_zero else "no"] for x in part.extremes]
     return Table("percent-change-extremes", "Largest percent changes (pooled)",
                  ["Baseline", "Follow-up", "Percent change", "Baseline near zero"], rows,
                  note="Undefined: baseline at or below zero.")
@@ -236,50 +623,39 @@ def _extremes_table(inp: _Inputs, ins: rc.Instability) -> Table:
 # --------------------------------------------------------------------------- coding of ordinal scales
 
 
-def _recoding(inp: _Inputs, spec, ctx: CheckContext, out: _Collect) -> Verdict:
-    """Shift the codes by one and compare the planned percent-change summary under both codings."""
-    shift = rc.recoding_shift(spec.levels)
-    b2, f2 = inp.b + shift, inp.f + shift
-    rows = []
-    codings = (("declared codes", 0.0, inp.b, inp.f), (f"codes shifted by {shift:+g}", shift, b2, f2))
-    for label, s, bb, ff in codings:
-        pc = rc.percent_change(bb, ff)
-        codes = f"{min(spec.levels) + s:g} to {max(spec.levels) + s:g}"
-        rows.append([label, codes, int(np.sum(~np.isfinite(pc))),
-                     float(np.nanmean(pc)) if np.isfinite(pc).any() else None])
+def _recoding(rec: Recoding, spec, out: _Collect) -> Verdict:
+    """The planned percent-change summary under the declared and the shifted codes."""
+    shift = rec.shift
+    rows = [[label, f"{min(spec.levels) + s:g} to {max(spec.levels) + s:g}", summary.n_undefined, summary.mean]
+            for label, s, summary in (("declared codes", 0.0, rec.declared),
+                                      (f"codes shifted by {shift:+g}", shift, rec.shifted))]
     out.tables.append(Table("percent-change-recoding", "Percent change under two equally valid codings (pooled)",
                             ["Coding", "Codes", "Undefined", "Mean percent change"], rows))
-    by_arm = bool(inp.coding.contrasts) and rows[1][3] is not None
-    if by_arm:
-        e1 = rc.ols_effects(rc.percent_change_design(inp.b, inp.f, inp.coding), ctx.level)[0]
-        e2 = rc.ols_effects(rc.percent_change_design(b2, f2, inp.coding), ctx.level)[0]
-        a, c = e1.estimate, e2.estimate
+    if rec.by_arm:
+        e1, e2 = rec.declared_effect, rec.shifted_effect
         what = f"difference in mean percent change, {e1.label}"
-        out.estimates += [estimate("Percent-change effect, declared codes", a, e1.lower, e1.upper, e1.p_value,
-                                   unit="%", by_arm=True, key="percent-change.code-shift.declared",
+        out.estimates += [estimate("Percent-change effect, declared codes", e1.estimate, e1.lower, e1.upper,
+                                   e1.p_value, unit="%", by_arm=True, key="percent-change.code-shift.declared",
                                    arm=e1.label),
-                          estimate(f"Percent-change effect, codes shifted by {shift:+g}", c, e2.lower, e2.upper,
-                                   e2.p_value, unit="%", by_arm=True, key="percent-change.code-shift.shifted",
-                                   arm=e1.label)]
+                          estimate(f"Percent-change effect, codes shifted by {shift:+g}", e2.estimate, e2.lower,
+                                   e2.upper, e2.p_value, unit="%", by_arm=True,
+                                   key="percent-change.code-shift.shifted", arm=e1.label)]
     else:
-        a, c = rows[0][3], rows[1][3]
         what = "pooled mean percent change"
-    undefined = rows[0][2] + rows[1][2]
-    rel = abs(c - a) / abs(a) if (a is not None and c is not None and a != 0) else math.inf
-    flipped = a is not None and c is not None and np.sign(a) != np.sign(c)
+    a, c, rel, material = rec.before, rec.after, rec.relative_change, rec.material
     # Caution either way: percent change of ordinal codes depends on an arbitrary origin; the size of
     # that dependence (against the study's recoding_change) is stated, and only the efficiency finding
     # can make the check unsupported.
-    material = bool(undefined or rel >= ctx.thresholds.recoding_change or flipped)
     verdict = Verdict.CAUTION
     evidence = (f"{what}: {fmt(a)}% with the declared codes, "
                 + (f"{fmt(c)}%" if c is not None else "undefined") + f" with codes shifted by {shift:+g}"
-                + (f" ({rel:.0%} relative change" + (f", at or above the {ctx.thresholds.recoding_change:.0%} this "
+                + (f" ({rel:.0%} relative change" + (f", at or above the {rec.material_change:.0%} this "
                                                        "tool treats as material)" if material else ")")
                    if math.isfinite(rel) else "")
-                + (f"; {rows[1][2]} participant(s) undefined after the shift" if rows[1][2] else ""))
+                + (f"; {rec.shifted.n_undefined} participant(s) undefined after the shift"
+                   if rec.shifted.n_undefined else ""))
     out.sub("coding", "Does percent change of the ordinal codes survive an equally valid coding?", verdict,
-            evidence, by_arm=by_arm)
+            evidence, by_arm=rec.by_arm)
     out.clauses["coding"] = (f"shifting the ordinal codes by one changes the {what.split(',')[0]} from "
                              f"{fmt(a)}% to " + (f"{fmt(c)}%" if c is not None else "undefined"))
     return verdict
@@ -288,13 +664,10 @@ def _recoding(inp: _Inputs, spec, ctx: CheckContext, out: _Collect) -> Verdict:
 # --------------------------------------------------------------------------- asymmetry
 
 
-def _asymmetry(inp: _Inputs, spec, out: _Collect) -> Verdict:
-    pc = rc.percent_change(inp.b, inp.f)
-    lr = rc.log_ratio(inp.b, inp.f)
-    s_pc = rc.shape(pc, floor=-100.0)
-    s_lr = rc.shape(lr) if np.isfinite(lr).sum() >= 3 else None
-    at_floor = s_pc.n_at_floor / s_pc.n
-    if abs(s_pc.skewness) > HIGH_SKEW or at_floor >= FLOOR_SHARE:
+def _asymmetry(an: Analysis, spec, out: _Collect) -> Verdict:
+    pc, lr = an.percent, an.asymmetry.log_ratio
+    s_pc, s_lr = an.asymmetry.percent_shape, an.asymmetry.log_ratio_shape
+    if abs(s_pc.skewness) > HIGH_SKEW or s_pc.floor_share >= FLOOR_SHARE:
         verdict = Verdict.CAUTION
     else:
         verdict = Verdict.SOUND
@@ -328,27 +701,18 @@ def _asymmetry(inp: _Inputs, spec, out: _Collect) -> Verdict:
 # --------------------------------------------------------------------------- dependence on baseline
 
 
-def _baseline_dependence(inp: _Inputs, spec, ctx: CheckContext, out: _Collect) -> Verdict:
-    pc = rc.percent_change(inp.b, inp.f)
-    ok = np.isfinite(pc)
-    rho = spearman(inp.b[ok], pc[ok], ctx.level)
+def _baseline_dependence(dep: BaselineDependence, out: _Collect) -> Verdict:
+    rho = dep.pooled
     out.estimates.append(estimate("Spearman correlation of percent change with baseline, pooled", rho.r,
                                   rho.lower, rho.upper, rho.p_value, key="percent-change.baseline-spearman"))
-    rows = []
-    for a in inp.arms:
-        sel = ok & (inp.arm == a)
-        if sel.sum() >= 4 and np.ptp(pc[sel]) > 0 and np.ptp(inp.b[sel]) > 0:
-            ra = spearman(inp.b[sel], pc[sel], ctx.level)
-            rows.append([a, int(sel.sum()), ra.r, ra.lower, ra.upper])
+    rows = [[x.arm, x.n, x.rho.r, x.rho.lower, x.rho.upper] for x in dep.within]
     if rows:
         out.tables.append(Table("percent-change-baseline-by-arm",
                                 "Spearman correlation of percent change with baseline within arm",
                                 ["Arm", "N", "Spearman rho", "Lower", "Upper"], rows, by_arm=True))
-    if rows:
-        worst = max(rows, key=lambda r: abs(r[2]))
-        r, lo, hi, where = worst[2], worst[3], worst[4], f"within {worst[0]}"
-    else:
-        r, lo, hi, where = rho.r, rho.lower, rho.upper, "pooled"
+    judged = dep.judged
+    r, lo, hi = judged.r, judged.lower, judged.upper
+    where = f"within {dep.strongest.arm}" if rows else "pooled"
     material = abs(r) >= BASELINE_RHO and not (lo <= 0 <= hi)
     verdict = Verdict.CAUTION if material else Verdict.SOUND
     lead = ("" if material else "no evidence that percent change depends on baseline: " if lo <= 0 <= hi
@@ -363,8 +727,8 @@ def _baseline_dependence(inp: _Inputs, spec, ctx: CheckContext, out: _Collect) -
     return verdict
 
 
-def _scatter(inp: _Inputs, ins: rc.Instability, spec) -> Figure:
-    pc = rc.percent_change(inp.b, inp.f)
+def _scatter(an: Analysis, spec) -> Figure:
+    inp, pc, ins = an.inputs, an.percent, an.defined.instability
     ok = np.isfinite(pc)
     if inp.arms:
         groups = [{"label": a, "x": inp.b[ok & (inp.arm == a)].tolist(), "y": pc[ok & (inp.arm == a)].tolist()}
@@ -386,117 +750,9 @@ def _scatter(inp: _Inputs, ins: rc.Instability, spec) -> Figure:
 # --------------------------------------------------------------------------- what it costs
 
 
-@dataclass(frozen=True)
-class _Fits:
-    """Every analysis of the treatment effect, fitted on the trial's data."""
-
-    planned_design: rc.RefitDesign
-    reference_design: rc.RefitDesign
-    planned: list[ArmEffect]
-    reference: list[ArmEffect]
-    others: list[list[ArmEffect]]
-    ordinal_note: str
-    """Why the proportional-odds row is missing ('' when it is present)."""
-
-
-@dataclass(frozen=True)
-class _Cost:
-    """The planned analysis against its reference, for the most informative contrast."""
-
-    contrast: ArmContrast
-    reference: ArmEffect
-    efficiency: float
-    interval: rc.EfficiencyInterval
-    informative: bool
-
-
-def _designs(inp: _Inputs, spec, responder: np.ndarray | None):
-    """(planned design, least-squares reference design, other designs) for the effect comparison.
-    The reference of an ordinal outcome is the proportional-odds ANCOVA (:func:`_ordinal_reference`),
-    tried in :func:`_fit_analyses`; the least-squares reference here stands in when it cannot be
-    fitted."""
-    cols = inp.coding
-    positive = bool(np.all(inp.b > 0) and np.all(inp.f > 0))
-    log_d = rc.log_ancova_design(inp.b, inp.f, cols) if positive else None
-    raw_d = rc.raw_ancova_design(inp.b, inp.f, cols)
-    pc_d = rc.percent_change_design(inp.b, inp.f, cols) if inp.uses_percent else None
-    if spec.planned_analysis == "responder":
-        planned = rc.responder_design(responder, cols)
-        reference = log_d if (spec.responder.basis == "percent-change" and log_d) else raw_d
-        others = [d for d in (pc_d, log_d, raw_d) if d is not None and d is not reference]
-    else:
-        planned = pc_d
-        reference = log_d or raw_d
-        others = [d for d in (log_d, raw_d) if d is not None and d is not reference]
-    return planned, reference, others
-
-
-def _ordinal_reference(inp: _Inputs, spec, level: float):
-    """(design, effects) of the proportional-odds ANCOVA, the reference analysis of an outcome
-    declared ordinal: it uses only the order of the follow-up levels, which is all an ordinal scale
-    gives. Baseline enters as categories when the levels are declared, else as a spline. Raises the
-    fitter's OrdinalFitError when the model cannot be fitted."""
-    design = rc.ordinal_ancova_design(inp.b, inp.f, inp.coding, categorical_baseline=bool(spec.levels))
-    return design, rc.ordinal_effects(design, level)
-
-
-def _po_reason() -> str | None:
-    """Why the proportional-odds row is left out, or None when the fitter is available."""
-    try:
-        from ..stats.ordinal import fit_proportional_odds  # noqa: F401
-    except Exception as exc:  # any failure to import leaves the row out, with its reason
-        return f"the proportional-odds fitter could not be imported ({type(exc).__name__}: {exc})"
-    return None
-
-
-def _fit_analyses(inp: _Inputs, spec, ctx: CheckContext, responder, out: _Collect) -> _Fits:
-    planned_d, ref_d, other_ds = _designs(inp, spec, responder)
-    others = [rc.ols_effects(d, ctx.level) for d in other_ds]
-    note = ""
-    reason = _po_reason()
-    if reason is None:
-        from ..stats.ordinal import OrdinalFitError
-
-        try:
-            if spec.scale == "ordinal":
-                po_d, po_effects = _ordinal_reference(inp, spec, ctx.level)
-                others.insert(0, rc.ols_effects(ref_d, ctx.level))
-                out.cite("mccullagh-1980")
-                return _Fits(planned_d, po_d, rc.ols_effects(planned_d, ctx.level), po_effects, others, "")
-            others.append(rc.proportional_odds_effects(inp.b, inp.f, inp.coding, ctx.level))
-            out.cite("mccullagh-1980")
-        except (OrdinalFitError, ValueError, ArithmeticError, np.linalg.LinAlgError) as exc:
-            note = f"The proportional-odds ANCOVA could not be fitted: {getattr(exc, 'reason', exc)}"
-            if spec.scale == "ordinal":
-                note += f"; the {ref_d.analysis} is the reference instead."
-    else:
-        note = f"The proportional-odds ANCOVA is left out: {reason}."
-    return _Fits(planned_d, ref_d, rc.ols_effects(planned_d, ctx.level), rc.ols_effects(ref_d, ctx.level),
-                 others, note)
-
-
-def _measure_cost(fits: _Fits, inp: _Inputs, ctx: CheckContext) -> _Cost:
-    """Efficiency of the planned analysis for the contrast the reference shows most clearly."""
-    k = int(np.argmax([abs(e.statistic) for e in fits.reference]))
-    contrast = fits.reference_design.contrasts[k]
-    j = fits.planned_design.contrasts.index(contrast)
-
-    def statistics(rows):
-        return (rc.t_statistics(fits.planned_design, rows)[j],
-                rc.design_statistics(fits.reference_design, rows)[j])
-
-    n_boot = BOOT_QUICK if ctx.quick else BOOT_FULL
-    interval = rc.bootstrap_efficiency(statistics, inp.arm, n_boot, ctx.seed, ctx.level)
-    eff = rc.relative_efficiency(fits.planned[k].statistic, fits.reference[k].statistic)
-    return _Cost(contrast, fits.reference[k], eff, interval, abs(fits.reference[k].statistic) >= INFORMATIVE_Z)
-
-
-def _report_effects(fits: _Fits, cost: _Cost, inp: _Inputs, spec, out: _Collect, level: float = 0.95) -> None:
-    rows = []
-    for effects in [fits.planned, fits.reference, *fits.others]:
-        for e in effects:
-            ref = next(r for r in fits.reference if r.arm == e.arm)
-            rows.append(_effect_row(e, rc.relative_efficiency(e.statistic, ref.statistic), e is ref))
+def _report_effects(effects: Effects, spec, out: _Collect, level: float = 0.95) -> None:
+    fits, cost = effects.fits, effects.cost
+    rows = [_effect_row(x) for x in effects.compared]
     ref_name = fits.reference_design.analysis
     out.tables.append(Table(
         "percent-change-effects", "The treatment effect under each analysis",
@@ -533,19 +789,20 @@ def _cost_text(eff: float, interval: rc.EfficiencyInterval) -> str:
     """'45% more participants (20% to 80%)': the sample-size cost 1/efficiency - 1 with the interval
     from the efficiency's bootstrap interval (the cost is its inverse, so the ends swap)."""
     def pct(e):
-        return "n/a" if not (e > 0 and math.isfinite(e)) else f"{100 * (1 / e - 1):+.0f}%"
-    more = 100 * (1 / eff - 1) if eff > 0 else math.inf
+        return "n/a" if not (e > 0 and math.isfinite(e)) else f"{100 * rc.extra_participants(e):+.0f}%"
+    more = 100 * rc.extra_participants(eff)
     word = (f"{more:.0f}% more participants" if more >= 0.5 else
             f"{-more:.0f}% fewer participants" if more <= -0.5 else "as many participants")
     return f"{word} ({pct(interval.upper)} to {pct(interval.lower)})"
 
 
-def _rate_cost(fits: _Fits, cost: _Cost, inp: _Inputs, out: _Collect,
-               ratio: float = MATERIAL_SAMPLE_RATIO, level: float = 0.95) -> Verdict | None:
+def _rate_cost(effects: Effects, out: _Collect, ratio: float = MATERIAL_SAMPLE_RATIO,
+               level: float = 0.95) -> Verdict | None:
     """The efficiency sub-finding and headline clause for a percent-change plan (None: not rated).
     The consequence is the sample-size cost of percent change against the reference analysis, judged
     against the study's ``sample_size_ratio`` (see :func:`_efficiency_verdict`)."""
-    ref_name = fits.reference_design.analysis
+    cost = effects.cost
+    ref_name = effects.fits.reference_design.analysis
     eff = cost.efficiency
     question = (f"What does the planned analysis cost against the {ref_name} (material above "
                 f"{100 * (ratio - 1):.0f}% more participants)?")
@@ -605,27 +862,25 @@ _EFFECT_NAMES = {
 }
 
 
-def _effect_row(e: ArmEffect, efficiency: float, is_reference: bool) -> list:
+def _effect_row(x: Compared) -> list:
+    e = x.effect
     name, exponentiate = _EFFECT_NAMES[e.analysis]
     est, lo, hi = e.exp() if exponentiate else (e.estimate, e.lower, e.upper)
-    needed = 1 / efficiency if efficiency > 0 else None
-    return [e.analysis + (" (reference)" if is_reference else ""), e.label, name,
-            est, lo, hi, e.statistic, efficiency, needed]
+    return [e.analysis + (" (reference)" if x.is_reference else ""), e.label, name,
+            est, lo, hi, e.statistic, x.efficiency, x.needed]
 
 
 # --------------------------------------------------------------------------- responder rules
 
 
-def _responder(inp: _Inputs, spec, ctx: CheckContext, resp: np.ndarray, cost: _Cost | None,
-               out: _Collect) -> Verdict:
-    rule = spec.responder
-    try:
-        c = rc.responder_cost(inp.b, inp.f, rule.basis, rule.threshold, rule.direction)
-    except ValueError as exc:
+def _responder(an: Analysis, spec, ctx: CheckContext, out: _Collect) -> Verdict:
+    rule, part, cost = spec.responder, an.responder, an.cost
+    c = part.cost
+    if c is None:
         out.sub("dichotomy", "Does the responder rule keep most of the information?", Verdict.NOT_ASSESSABLE,
-                f"the normal-theory cost cannot be computed: {exc}")
-        return _responder_baseline(inp, spec, ctx, resp, out)
-    normal_ok = abs(c.share_observed - c.share_normal) <= NORMAL_SHARE_TOLERANCE
+                f"the normal-theory cost cannot be computed: {part.cost_error}")
+        return _responder_baseline(an, spec, ctx, out)
+    normal_ok = part.normal_ok
     basis = "change" if rule.basis == "change" else "percent change"
     rule_text = f"{basis} {'at least' if rule.direction == 'at-least' else 'at most'} {rule.threshold:g}" + (
         "%" if rule.basis == "percent-change" else "")
@@ -644,7 +899,7 @@ def _responder(inp: _Inputs, spec, ctx: CheckContext, resp: np.ndarray, cost: _C
                  key="percent-change.responder-inflation"),
     ]
     empirical = cost if cost is not None and cost.informative else None
-    ratio = ctx.thresholds.sample_size_ratio
+    ratio = an.sample_size_ratio
     verdict = _dichotomy_verdict(c.inflation, normal_ok, empirical, ratio)
     comparator = "ANCOVA" if c.scale == "change" else "the log-scale ANCOVA"
     evidence = (f"responders {c.share_observed:.0%} (normal theory predicts {c.share_normal:.0%}); the cut lies "
@@ -671,16 +926,16 @@ def _responder(inp: _Inputs, spec, ctx: CheckContext, resp: np.ndarray, cost: _C
     out.sub("dichotomy", "Does the responder rule keep most of the information (sample-size inflation below "
             f"{ratio:g} against ANCOVA)?", verdict, evidence, by_arm=empirical is not None)
     out.clauses["dichotomy"] = clause
-    return _worst(verdict, _responder_baseline(inp, spec, ctx, resp, out))
+    return _worst(verdict, _responder_baseline(an, spec, ctx, out))
 
 
-def _empirical_comparator(cost: _Cost) -> str:
+def _empirical_comparator(cost: Cost) -> str:
     """The name of the analysis the responder rule was measured against in the trial's own data."""
     name = cost.reference.analysis
     return "continuous ANCOVA" if name == "ANCOVA" else name
 
 
-def _dichotomy_verdict(inflation: float, normal_ok: bool, empirical: _Cost | None,
+def _dichotomy_verdict(inflation: float, normal_ok: bool, empirical: Cost | None,
                        ratio: float = MATERIAL_SAMPLE_RATIO) -> Verdict:
     """The normal-theory inflation is a point value with no interval, so on its own it raises caution
     at most (above ``ratio``); the trial's own efficiency, when informative, is graded by
@@ -694,17 +949,16 @@ def _dichotomy_verdict(inflation: float, normal_ok: bool, empirical: _Cost | Non
     return _worst(analytic, _efficiency_verdict(empirical.efficiency, empirical.interval, ratio))
 
 
-def _responder_baseline(inp: _Inputs, spec, ctx: CheckContext, resp: np.ndarray, out: _Collect) -> Verdict:
-    try:
-        curve = rc.responder_on_baseline(inp.b, resp, ctx.level)
-    except ValueError as exc:
+def _responder_baseline(an: Analysis, spec, ctx: CheckContext, out: _Collect) -> Verdict:
+    part = an.responder
+    curve = part.curve
+    if curve is None:
         # The question stays visibly unanswered; it adds nothing to the check's verdict either way.
         out.sub("responder-baseline", "Is the chance of responding free of baseline?", Verdict.NOT_ASSESSABLE,
-                f"not assessable: {exc}")
-        out.caveats.append(f"The responder probability could not be related to baseline: {exc}.")
+                f"not assessable: {part.curve_error}")
+        out.caveats.append(f"The responder probability could not be related to baseline: {part.curve_error}.")
         return Verdict.SOUND
-    spread = curve.prob_high - curve.prob_low
-    material = curve.p_value < 0.05 and abs(spread) >= RESPONDER_PROB_RANGE
+    material = part.baseline_material
     verdict = Verdict.CAUTION if material else Verdict.SOUND
     out.estimates += [
         estimate("Log odds of responding per unit of baseline (pooled logistic)", curve.slope, curve.slope_lower,
@@ -729,7 +983,7 @@ def _responder_baseline(inp: _Inputs, spec, ctx: CheckContext, resp: np.ndarray,
         "responder-vs-baseline", "curve_band", f"{spec.display_name}: responder probability against baseline",
         {"curves": [{"x": curve.grid, "y": curve.prob, "lower": curve.lower, "upper": curve.upper,
                      "label": "logistic fit, pooled"}],
-         "rug": inp.b.tolist(), "xlabel": _axis(spec, "Baseline"), "ylabel": "Probability of responding",
+         "rug": an.inputs.b.tolist(), "xlabel": _axis(spec, "Baseline"), "ylabel": "Probability of responding",
          "vlines": [{"x": curve.x_low}, {"x": curve.x_high}]},
         caption=f"Pooled over arms; band: {level_label(ctx.level)} pointwise interval. Dotted lines: 10th and 90th baseline "
                 "percentiles."))
@@ -747,7 +1001,8 @@ def run(data, ctx: CheckContext):
 
     check = get_check(CHECK_ID)
     spec = data.spec
-    inp = _inputs(data, ctx)
+    an = analyse(data, ctx)
+    inp = an.inputs
     out = _Collect()
     out.estimates.append(estimate("Participants with baseline and follow-up", float(len(inp.b)),
                                   key="percent-change.n-participants"))
@@ -755,29 +1010,24 @@ def run(data, ctx: CheckContext):
     out.cite("vickers-2001")
     if inp.uses_percent:
         out.cite("tornqvist-1985", "bulmer-1979", "tukey-1977")
-        verdicts.append(_definedness(inp, spec, out))
-        if spec.scale == "ordinal" and spec.levels:
-            verdicts.append(_recoding(inp, spec, ctx, out))
-        if np.isfinite(rc.percent_change(inp.b, inp.f)).sum() >= MIN_DEFINED:
-            verdicts.append(_asymmetry(inp, spec, out))
-            verdicts.append(_baseline_dependence(inp, spec, ctx, out))
-    responder = None
-    if spec.planned_analysis == "responder":
-        r = spec.responder
-        responder = rc.responder_indicator(inp.b, inp.f, r.basis, r.threshold, r.direction)
-    cost = None
-    if inp.coding.contrasts:
+        verdicts.append(_definedness(an, spec, out))
+        if an.recoding is not None:
+            verdicts.append(_recoding(an.recoding, spec, out))
+        if an.asymmetry is not None:
+            verdicts.append(_asymmetry(an, spec, out))
+            verdicts.append(_baseline_dependence(an.baseline, out))
+    if an.effects is not None:
         out.cite("durrleman-simon-1989", "noether-1955", "efron-tibshirani-1993")
-        fits = _fit_analyses(inp, spec, ctx, responder, out)
-        cost = _measure_cost(fits, inp, ctx)
-        _report_effects(fits, cost, inp, spec, out, ctx.level)
-        rated = (_rate_cost(fits, cost, inp, out, ctx.thresholds.sample_size_ratio, ctx.level)
+        if an.effects.fits.proportional_odds:
+            out.cite("mccullagh-1980")
+        _report_effects(an.effects, spec, out, ctx.level)
+        rated = (_rate_cost(an.effects, out, an.sample_size_ratio, ctx.level)
                  if spec.planned_analysis != "responder" else None)
         if rated is not None:
             verdicts.append(rated)
-    if responder is not None:
+    if an.responder is not None:
         out.cite("altman-royston-2006")
-        verdicts.append(_responder(inp, spec, ctx, responder, cost, out))
+        verdicts.append(_responder(an, spec, ctx, out))
     if spec.scale == "count":
         out.caveats.append("Counts observed over unequal follow-up times call for rates (a model with the "
                            "exposure time as offset); no exposure time is available, so this check treats the "
@@ -802,7 +1052,7 @@ def run(data, ctx: CheckContext):
                          "inflation phi(z)^2/(Phi(z)(1-Phi(z))) times the efficiency of change against ANCOVA; "
                          "logistic regression of responder status on baseline. Unsupported only when the whole "
                          "interval of the sample-size cost (1 / efficiency) lies above "
-                         f"{ctx.thresholds.sample_size_ratio:g} (sample_size_ratio; default a convention of this "
+                         f"{an.sample_size_ratio:g} (sample_size_ratio; default a convention of this "
                          "tool).")
 
 

@@ -143,6 +143,11 @@ class Shape:
     median: float
     maximum: float
 
+    @property
+    def floor_share(self) -> float:
+        """The share of values at the floor, ``n_at_floor / n``."""
+        return self.n_at_floor / self.n
+
 
 def shape(values, floor: float | None = None) -> Shape:
     """Skewness, far-out values and the count at a floor, ignoring NaN.
@@ -165,6 +170,13 @@ def shape(values, floor: float | None = None) -> Shape:
     far = int(np.sum((v < q1 - FAR_OUT_IQR * iqr) | (v > q3 + FAR_OUT_IQR * iqr))) if iqr > 0 else 0
     at_floor = int(np.sum(np.isclose(v, floor, rtol=0, atol=1e-9))) if floor is not None else 0
     return Shape(int(len(v)), skew, p, far, at_floor, float(v.min()), float(np.median(v)), float(v.max()))
+
+
+def largest_changes(percent, top: int) -> np.ndarray:
+    """Indices of the ``top`` largest |percent change|, undefined (NaN) values first, ties in input
+    order (a stable sort), so that the participants who dominate a mean of percentages are listed."""
+    pc = np.asarray(percent, dtype=float)
+    return np.argsort(-np.where(np.isfinite(pc), np.abs(pc), np.inf), kind="mergesort")[:top]
 
 
 # --------------------------------------------------------------------------- treatment effects
@@ -403,6 +415,13 @@ def relative_efficiency(statistic: float, reference_statistic: float) -> float:
     if not (math.isfinite(statistic) and math.isfinite(reference_statistic)) or reference_statistic == 0:
         return math.nan
     return (statistic / reference_statistic) ** 2
+
+
+def extra_participants(efficiency: float) -> float:
+    """The sample-size cost of an analysis with relative efficiency E: 1/E - 1, the fraction more
+    participants it needs than the reference for equal power (negative: fewer); infinite when E is not
+    positive (Noether 1955, as in :func:`relative_efficiency`)."""
+    return 1 / efficiency - 1 if efficiency > 0 else math.inf
 
 
 @dataclass(frozen=True)
@@ -725,3 +744,28 @@ def recoding_shift(levels: Sequence[float]) -> float:
     labels of the same ordered categories, so a summary that changes between them measures the
     coding, not the participants."""
     return -1.0 if min(levels) >= 1 else 1.0
+
+
+@dataclass(frozen=True)
+class CodingSummary:
+    """The pooled percent change of ordinal codes under one coding."""
+
+    n_undefined: int
+    """Participants whose percent change is undefined under this coding (baseline code at or below 0)."""
+    mean: float | None
+    """Mean of the defined percent changes; None when none is defined."""
+
+
+def coding_summary(baseline, followup) -> CodingSummary:
+    """Count of undefined percent changes (:func:`percent_change`) and the mean of the rest."""
+    pc = percent_change(baseline, followup)
+    defined = np.isfinite(pc)
+    return CodingSummary(int(np.sum(~defined)), float(np.nanmean(pc)) if defined.any() else None)
+
+
+def relative_difference(before: float | None, after: float | None) -> float:
+    """|after - before| / |before|: how far a summary moves when the coding changes; infinite when
+    either is missing or ``before`` is 0 (no finite relative change exists)."""
+    if before is None or after is None or before == 0:
+        return math.inf
+    return abs(after - before) / abs(before)

@@ -90,6 +90,15 @@ def test_shape_matches_scipy_and_the_log_normal_formula():
     floor = rc.shape(np.array([-100.0, -100.0, -20.0, 5.0, 10.0, 30.0, 60.0, 400.0]), floor=-100.0)
     assert floor.n_at_floor == 2
     assert floor.n_far_out == 1  # 400 is beyond Q3 + 3 IQR
+    assert floor.floor_share == pytest.approx(2 / 8)  # 2 of the 8 values at -100% (counted by hand)
+
+
+def test_largest_changes_lists_undefined_first_then_by_size():
+    # By hand: |pc| = 10, undefined, 50, 5, 200, 50 -> undefined (1), 200 (4), then the tie 50 in
+    # input order (2 before 5).
+    pc = np.array([10.0, np.nan, -50.0, 5.0, 200.0, 50.0])
+    assert rc.largest_changes(pc, 4).tolist() == [1, 4, 2, 5]
+    assert rc.largest_changes(pc, 10).tolist() == [1, 4, 2, 5, 0, 3]
 
 
 # --------------------------------------------------------------------------- treatment effects
@@ -282,6 +291,30 @@ def test_responder_on_baseline_matches_statsmodels_and_recovers_a_known_slope():
 def test_recoding_shift_moves_codes_by_one():
     assert rc.recoding_shift([1, 2, 3, 4, 5]) == -1.0
     assert rc.recoding_shift([0, 1, 2, 3, 4]) == 1.0
+
+
+def test_coding_summary_counts_undefined_and_averages_the_rest():
+    # By hand: codes 1..3 shifted by -1 give baselines 0, 1, 2 and follow-ups 1, 0, 2: the first is
+    # undefined, the others are -100% and 0%, so the mean is -50%.
+    declared = rc.coding_summary([1.0, 2.0, 3.0], [2.0, 1.0, 3.0])
+    assert declared.n_undefined == 0 and declared.mean == pytest.approx((100.0 - 50.0 + 0.0) / 3)
+    shifted = rc.coding_summary([0.0, 1.0, 2.0], [1.0, 0.0, 2.0])
+    assert shifted.n_undefined == 1 and shifted.mean == pytest.approx(-50.0)
+    assert rc.coding_summary([0.0, -1.0], [1.0, 1.0]) == rc.CodingSummary(2, None)
+
+
+def test_relative_difference_of_two_codings():
+    assert rc.relative_difference(10.0, 12.0) == pytest.approx(0.2)  # |12 - 10| / 10, by hand
+    assert rc.relative_difference(-4.0, 2.0) == pytest.approx(1.5)  # |2 + 4| / 4, by hand
+    assert rc.relative_difference(0.0, 1.0) == math.inf
+    assert rc.relative_difference(None, 1.0) == math.inf and rc.relative_difference(1.0, None) == math.inf
+
+
+def test_extra_participants_is_the_inverse_efficiency_less_one():
+    # Noether (1955): relative efficiency E means 1/E times the participants; E = 0.8 needs 25% more.
+    assert rc.extra_participants(0.8) == pytest.approx(0.25)
+    assert rc.extra_participants(1.25) == pytest.approx(-0.2)
+    assert rc.extra_participants(0.0) == math.inf and rc.extra_participants(math.nan) == math.inf
 
 
 def test_ordinal_ancova_refit_on_rows_matches_orderedmodel():
