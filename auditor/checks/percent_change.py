@@ -317,6 +317,13 @@ class Analysis:
     def cost(self) -> Cost | None:
         return self.effects.cost if self.effects is not None else None
 
+    @property
+    def log_axis(self) -> bool:
+        """The baselines with a defined percent change span a factor of 20 or more (all positive), so
+        a figure against baseline is drawn on a log axis (convention of this tool)."""
+        b = self.inputs.b[np.isfinite(self.percent)]
+        return bool((b > 0).all() and b.max() / b.min() >= 20)
+
 
 def _applies(spec, design) -> bool:
     return spec.planned_analysis in ("percent-change", "responder") and spec.baseline_visit is not None
@@ -735,8 +742,7 @@ def _scatter(an: Analysis, spec) -> Figure:
                   for a in inp.arms]
     else:
         groups = [{"label": "All participants", "x": inp.b[ok].tolist(), "y": pc[ok].tolist()}]
-    positive = inp.b[ok] > 0
-    xlog = bool(positive.all() and inp.b[ok].max() / inp.b[ok].min() >= 20)
+    xlog = an.log_axis
     data = {"groups": groups, "hlines": [0.0, -100.0], "xlog": xlog,
             "vlines": [{"x": ins.threshold, "label": f"{ins.fraction:.0%} of median"}]
             if math.isfinite(ins.threshold) else [],
