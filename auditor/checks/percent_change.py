@@ -194,6 +194,8 @@ class Asymmetry:
 
 @dataclass(frozen=True)
 class ArmSpearman:
+    """Spearman's rho of percent change with baseline within one arm."""
+
     arm: str
     n: int
     rho: Correlation

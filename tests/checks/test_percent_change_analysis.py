@@ -13,7 +13,8 @@ from scipy import stats
 
 from auditor.checks.percent_change import TOP_EXTREMES, analyse
 from auditor.metadata import ResponderRule
-from tests.checks.test_percent_change import BLINDED, UNBLINDED, _arms, _data, _multiplicative, _ordinal_trial
+from tests.checks.test_percent_change import (BLINDED, UNBLINDED, _additive_with_small_baselines, _arms, _data,
+                                              _multiplicative, _ordinal_trial)
 
 
 def _ols_arm_effect(y, arm, level=0.95):
@@ -83,11 +84,7 @@ def test_baseline_dependence_matches_scipy_spearman_and_the_fieller_interval():
     # Reference: scipy.stats.spearmanr, with the interval tanh(atanh(rho) -/+ z sqrt(1.06 / (n - 3)))
     # (Fieller, Hartley and Pearson, Biometrika 1957;44:470). Additive data: percent change = -3/b in T,
     # so the within-arm dependence is strongest in T (known truth of the simulation).
-    rng = np.random.default_rng(0)
-    n = 300
-    arm = _arms(n)
-    b = rng.uniform(0.5, 30, n)
-    f = b - 3 * (arm == "T") + rng.normal(0, 2, n)
+    b, f, arm = _additive_with_small_baselines()
     an = analyse(_data(b, f, arm), UNBLINDED)
     pc = 100 * (f - b) / b
     dep = an.baseline
