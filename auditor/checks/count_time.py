@@ -147,7 +147,8 @@ class ExpectedCounts:
 def expected_counts(df, fit, arms, cols, coding: ArmCoding, points: int = 40) -> list[ExpectedCounts]:
     """Each arm's expected count over ``points`` observation times from the shortest to the longest."""
     grid = np.linspace(float(df["followup_time"].min()), float(df["followup_time"].max()), points)
-    return [ExpectedCounts(r["label"], r["rate"], grid, grid * r["rate"]) for r in _expected_rates(fit, arms, cols, coding)]
+    return [ExpectedCounts(r["label"], r["rate"], grid, grid * r["rate"])
+            for r in _expected_rates(fit, arms, cols, coding)]
 
 
 def _expected_rates(fit, arms, cols, coding: ArmCoding) -> list[dict]:

@@ -718,7 +718,8 @@ def _unit_label(spec, visit) -> str:
 # ----------------------------------------------------------------------------- sections
 
 
-def selection_section(sel, finds, counts: "EntryCounts | None", out: Sections, share_out: float | None = None) -> None:
+def selection_section(sel, finds, counts: "EntryCounts | None", out: Sections,
+                      share_out: float | None = None) -> None:
     """The selection sub-finding (and the criterion-honoured one); ``counts`` are the entry readings
     kept and left out (None with no selection), ``share_out`` the fitted population share on the
     excluded side of the cutoff, when known."""
