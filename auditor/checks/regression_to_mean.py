@@ -767,8 +767,8 @@ def population_section(spec, an: "Analysis", out: Sections, level: float = 0.95)
     _, s_lo, s_hi = an.population.sigma_ci
     if scale.log:
         out.estimates += [
-            estimate("Geometric mean of the unselected population (truncated-normal MLE)", math.exp(fit.mu),
-                     math.exp(lo), math.exp(hi), unit=spec.unit, note=interval_words("Wald", level) + " on the log scale",
+            estimate("Geometric mean of the unselected population (truncated-normal MLE)",
+                     *an.population.geometric, unit=spec.unit, note=interval_words("Wald", level) + " on the log scale",
                      key="regression-to-mean.population-geometric-mean"),
             estimate("SD of log values in the unselected population", fit.sigma, s_lo, s_hi,
                      key="regression-to-mean.population-log-sd")]
@@ -801,8 +801,8 @@ def reliability_section(spec, rel: Reliability, out: Sections) -> None:
             rel.evidence, by_arm=rel.by_arm)
 
 
-def expected_section(spec, scale, rtm, rel, declared_change: float | None, out: Sections,
-                     level: float = 0.95) -> None:
+def expected_section(spec, scale, rtm, rel, ratio: Interval | None, declared_change: float | None,
+                     out: Sections, level: float = 0.95) -> None:
     unit = "" if scale.log else spec.unit
     out.estimates.append(estimate(f"Expected change from regression to the mean "
                                   f"({'log scale' if scale.log else 'analysis scale'})", rtm.estimate, rtm.lower,
@@ -810,9 +810,9 @@ def expected_section(spec, scale, rtm, rel, declared_change: float | None, out: 
                                   note=f"Barnett et al. formula; {interval_words('parametric bootstrap', level, noun='')}, "
                                        f"{rtm.n_draws} draws, seed {rtm.seed}",
                                   by_arm=rel.by_arm, key="regression-to-mean.expected-change"))
-    if scale.log:
+    if ratio is not None:
         out.estimates.append(estimate("Expected ratio later / entry reading from regression to the mean",
-                                      math.exp(rtm.estimate), math.exp(rtm.lower), math.exp(rtm.upper),
+                                      ratio.estimate, ratio.lower, ratio.upper,
                                       note=f"{_pct(rtm.estimate):+.1f}% on the original scale", by_arm=rel.by_arm,
                                       key="regression-to-mean.expected-ratio"))
     if declared_change is not None:
@@ -1200,16 +1200,28 @@ class EntryCounts:
 @dataclass(frozen=True)
 class Population:
     """The fitted unselected population: (estimate, lower, upper) of its mean and SD (Wald, at the
-    audit's level) and the share of it meeting the cutoff (``1 - share_out``)."""
+    audit's level), on the log scale also the geometric mean (exp of the mean and its interval), and
+    the share of it meeting the cutoff (``1 - share_out``)."""
 
     mu_ci: tuple[float, float, float]
     sigma_ci: tuple[float, float, float]
     share_meeting: float
+    geometric: tuple[float, float, float] | None = None
 
 
 def population(scale: Scale, share_out: float, level: float) -> Population:
     fit = scale.fit
-    return Population(fit.ci("mu", level), fit.ci("sigma", level), 1 - share_out)
+    mu_ci = fit.ci("mu", level)
+    geometric = (math.exp(fit.mu), math.exp(mu_ci[1]), math.exp(mu_ci[2])) if scale.log else None
+    return Population(mu_ci, fit.ci("sigma", level), 1 - share_out, geometric)
+
+
+def expected_ratio(rtm, scale: Scale) -> Interval | None:
+    """On the log scale, the expected ratio later / entry reading: exp of the expected change and its
+    interval (None on the raw scale)."""
+    if not scale.log:
+        return None
+    return Interval(math.exp(rtm.estimate), math.exp(rtm.lower), math.exp(rtm.upper))
 
 
 @dataclass(frozen=True)
@@ -1296,8 +1308,9 @@ class Analysis:
     from baseline (``target``, with the group a residual bias was estimated in), the second-baseline
     shares, and whether the expected shift is material for the design as judged; and what the report
     shows of them: the entry counts, the fitted population's intervals, the shrunk entry readings,
-    the change with the declared reliability instead, the change not explained by regression to the
-    mean and the share it explains, and the screening-baseline pairs."""
+    the expected ratio (log scale), the change with the declared reliability instead, the change not
+    explained by regression to the mean and the share it explains, the shift in SDs and the
+    screening-baseline pairs."""
 
     sel: Selection
     finds: list
@@ -1320,6 +1333,7 @@ class Analysis:
     counts: EntryCounts
     population: Population
     shrinkage: Shrinkage
+    ratio: Interval | None
     declared_change: float | None
     unexplained: Interval
     share_explained: float | None
@@ -1366,6 +1380,7 @@ def analyse(data, ctx: CheckContext, everyone: Readings, sel: Selection, finds) 
                     obs, pre, target, target_by_arm, group, second, judged_design(data),
                     ctx.thresholds.rtm_shift_sd, EntryCounts(len(rd.present(sel.column)), n_excluded),
                     population(scale, share_out, ctx.level), shrinkage(rd, scale, sel, rho),
+                    expected_ratio(rtm, scale),
                     declared_reliability_change(spec, scale, sel, rel), unexplained_change(obs, target, ctx.level),
                     share_explained(target, obs), pairs(rd, scale, sel, rel))
 
@@ -1394,7 +1409,7 @@ def run(data, ctx: CheckContext):
     population_section(spec, an, out, ctx.level)
     reliability_section(spec, rel, out)
     capped_caveat(rel, out)
-    expected_section(spec, scale, rtm, rel, an.declared_change, out, ctx.level)
+    expected_section(spec, scale, rtm, rel, an.ratio, an.declared_change, out, ctx.level)
     residual_bias_section(spec, scale, sel, target, an.residual_group, out)
     observed_section(spec, an, ctx, out)
     model_check_sub(spec, scale, rtm, pre, out)

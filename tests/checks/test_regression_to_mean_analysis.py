@@ -125,3 +125,19 @@ def test_entry_counts_population_share_and_shift_in_sds():
     sd = an.shift_sd
     assert (sd.estimate, sd.lower, sd.upper) == pytest.approx(
         (an.target.estimate / fit.sigma, an.target.lower / fit.sigma, an.target.upper / fit.sigma))
+
+
+def test_log_scale_back_transforms_are_exp_of_the_fitted_values():
+    """Declared log scale: the geometric mean is exp of the fitted mean of the logs and of its Wald
+    limits, the expected ratio later / entry exp of the expected change and of its limits (the
+    back-transform of a log-scale difference, from memory); on the raw scale there are none."""
+    an = _analysis(_declare(simulate(np.random.default_rng(18)), log_scale=True))
+    fit, z = an.scale.fit, stats.norm.ppf(0.975)
+    assert an.scale.log
+    assert an.population.geometric == pytest.approx(
+        tuple(np.exp([fit.mu, fit.mu - z * fit.se_mu, fit.mu + z * fit.se_mu])), rel=1e-9)
+    assert (an.ratio.estimate, an.ratio.lower, an.ratio.upper) == pytest.approx(
+        tuple(np.exp([an.rtm.estimate, an.rtm.lower, an.rtm.upper])), rel=1e-12)
+    assert an.ratio.estimate < 1  # selection above the cutoff: later readings lower (truth of the design)
+    raw = _analysis(simulate(np.random.default_rng(5)))
+    assert raw.ratio is None and raw.population.geometric is None
