@@ -19,7 +19,8 @@ import numpy as np
 from ..references import add_reference, cite
 from ..results import Figure, SubFinding, Table, Verdict, interval_words
 from ..stats.effects import NO_ARMS, ArmCoding, arm_coding
-from ..stats.rates import coefficient_shift, fit_log_linear, log_baseline_rate, time_spread, times_differ_by_arm
+from ..stats.rates import (coefficient_shift, fit_log_linear, group_times, log_baseline_rate, time_spread,
+                           times_differ_by_arm)
 from .common import arms_present, estimate, fmt, fmt_ci, fmt_p, result, thin
 from .registry import CheckContext, NotAssessable, register
 
@@ -80,12 +81,14 @@ def _scaling(df, cols, ctx):
                           level=ctx.level)
 
 
-def _time_table(df, arms) -> Table:
-    rows = []
-    for a in arms:
-        t = df.loc[df["arm"] == a, "followup_time"].to_numpy()
-        rows.append([a, len(t), float(np.median(t)), float(np.percentile(t, 25)), float(np.percentile(t, 75)),
-                     float(np.mean(t < 0.8 * np.median(df["followup_time"])))])
+def arm_times(df, arms) -> list[tuple[str, object]]:
+    """Each arm's observation times (:func:`auditor.stats.rates.group_times`) against the pooled median."""
+    pooled = np.median(df["followup_time"])
+    return [(a, group_times(df.loc[df["arm"] == a, "followup_time"].to_numpy(), pooled)) for a in arms]
+
+
+def _time_table(times: list[tuple[str, object]]) -> Table:
+    rows = [[a, g.n, g.median, g.lower_quartile, g.upper_quartile, g.share_short] for a, g in times]
     return Table("time-by-arm", "Observation time of the follow-up count by arm",
                  ["Arm", "N", "Median", "Lower quartile", "Upper quartile", "Share below 80% of pooled median"],
                  rows, by_arm=True)
@@ -117,20 +120,35 @@ def _fit_caveats(notes: list[str]) -> list[str]:
     return [f"A log-linear fit behind these numbers warned: {n}; read its intervals with care." for n in seen]
 
 
-def _figure(df, arms, spec, ctx, expected) -> Figure:
+def _figure(df, arms, spec, ctx, expected: list["ExpectedCounts"]) -> Figure:
     shown, note = thin(df, ctx.seed)
     groups = ([{"label": a, "x": shown.loc[shown["arm"] == a, "followup_time"].tolist(),
                 "y": shown.loc[shown["arm"] == a, "followup"].tolist()} for a in arms] if arms else
               [{"label": "All participants", "x": shown["followup_time"].tolist(), "y": shown["followup"].tolist()}])
-    grid = np.linspace(float(df["followup_time"].min()), float(df["followup_time"].max()), 40)
-    curves = [{"label": f"rate model: {c['label']}", "x": grid.tolist(), "y": (grid * c["rate"]).tolist()}
-              for c in expected]
+    curves = [{"label": f"rate model: {c.label}", "x": c.time.tolist(), "y": c.count.tolist()} for c in expected]
     return Figure("count-time-scatter", "scatter_xy", f"{spec.display_name}: follow-up count against observation time",
                   {"groups": groups, "curves": curves, "xlabel": f"Observation time ({spec.exposure})",
                    "ylabel": "Follow-up count"},
                   caption="Lines: the expected count at each observation time under the rate model (log time as "
                           "offset), at the median baseline rate. A count that grows along the lines is a rate." + note,
                   by_arm=bool(arms))
+
+
+@dataclass(frozen=True)
+class ExpectedCounts:
+    """One arm's expected count along a grid of observation times under the rate model, at the median
+    baseline rate: ``count = time x rate``."""
+    label: str
+    rate: float
+    time: np.ndarray
+    count: np.ndarray
+
+
+def expected_counts(df, fit, arms, cols, coding: ArmCoding, points: int = 40) -> list[ExpectedCounts]:
+    """Each arm's expected count over ``points`` observation times from the shortest to the longest."""
+    grid = np.linspace(float(df["followup_time"].min()), float(df["followup_time"].max()), points)
+    return [ExpectedCounts(r["label"], r["rate"], grid, grid * r["rate"])
+            for r in _expected_rates(fit, arms, cols, coding)]
 
 
 def _expected_rates(fit, arms, cols, coding: ArmCoding) -> list[dict]:
@@ -160,18 +178,23 @@ class Proportionality:
 
 @dataclass(frozen=True)
 class TimesByArm:
-    """Kruskal-Wallis comparison of observation time across arms."""
+    """Kruskal-Wallis comparison of observation time across arms (chi-square on ``df`` degrees of
+    freedom, the number of arms less one), with each arm's times."""
     statistic: float
     p: float
     differs: bool
     """Times differ between arms (p below ARM_TIME_ALPHA) and are unequal at all."""
+    df: int
+    arms: list
+    """(arm, :class:`auditor.stats.rates.GroupTimes`) for each arm."""
 
 
 @dataclass(frozen=True)
 class Analysis:
     """Every number the check judges by, before any wording: the participants and arms analysed, the
     spread of observation time, the rate model, the proportionality slope (unequal times only), the
-    time-by-arm test and each arm's count-versus-rate comparison (two or more arms only)."""
+    time-by-arm test with each arm's times and each arm's count-versus-rate comparison (two or more arms
+    only), and the counts the rate model expects along observation time (the figure's lines)."""
     df: object
     arms: list
     with_baseline: bool
@@ -184,6 +207,15 @@ class Analysis:
     times_by_arm: TimesByArm | None
     comparisons: list
     fit_notes: tuple
+    expected: list
+
+    @property
+    def largest(self) -> dict | None:
+        """The comparison whose count ratio over rate ratio lies furthest from 1 on the log scale (the one
+        the headline quotes), or None with no comparison."""
+        if not self.comparisons:
+            return None
+        return max(self.comparisons, key=lambda c: abs(math.log(c["shift"].estimate)))
 
     @property
     def material(self) -> bool:
@@ -221,11 +253,13 @@ def analyse(data, ctx: CheckContext) -> Analysis:
     times_by_arm, comparisons = None, []
     if len(arms) > 1:
         h, p = times_differ_by_arm(df["followup_time"], df["arm"])
-        times_by_arm = TimesByArm(h, p, p < ARM_TIME_ALPHA and not spread.equal)
+        times_by_arm = TimesByArm(h, p, p < ARM_TIME_ALPHA and not spread.equal, len(arms) - 1,
+                                  arm_times(df, arms))
         comparisons, count_notes = _comparisons(df, coding, cols, rate, ctx)
         notes += count_notes
     return Analysis(df, arms, with_baseline, spread, rate, cols, coding, ctx.thresholds.count_ratio,
-                    proportionality, times_by_arm, comparisons, tuple(notes))
+                    proportionality, times_by_arm, comparisons, tuple(notes),
+                    expected_counts(df, rate, arms, cols, coding))
 
 
 def _spread_estimates(spread, unit) -> list:
@@ -263,7 +297,7 @@ def _proportionality_words(prop: Proportionality, estimates, subs, caveats) -> N
 def _comparison_words(an: Analysis, level: float, estimates, subs, tables) -> None:
     """The time-by-arm table, each contrast's three ratios, the side-by-side table and the sub-finding."""
     threshold, tba = an.threshold, an.times_by_arm
-    tables.append(_time_table(an.df, an.arms))
+    tables.append(_time_table(tba.arms))
     rows = []
     for i, c in enumerate(an.comparisons, 1):
         (rr, rl, ru, rp), (cr, cl, cu, cp) = c["rate"], c["count"]
@@ -288,7 +322,7 @@ def _comparison_words(an: Analysis, level: float, estimates, subs, tables) -> No
                              "(rate model) or the log baseline count (counts)." if an.with_baseline
                         else f"Both are Poisson log-linear models with {sandwich}.",
                         by_arm=True))
-    h, p, k = fmt(tba.statistic), fmt_p(tba.p), len(an.arms) - 1
+    h, p, k = fmt(tba.statistic), fmt_p(tba.p), tba.df
     differs = (f"observation time differs between arms (Kruskal-Wallis chi-square {h} on {k} df, {p})"
                if tba.p < ARM_TIME_ALPHA else
                f"no evidence that observation time differs between arms (Kruskal-Wallis chi-square {h} on {k} "
@@ -328,9 +362,9 @@ def run(data, ctx: CheckContext):
                                "differ between arms, and what ignoring them does to the treatment comparison, "
                                "cannot be judged without unblinding"))
     arm_differs = an.times_by_arm is not None and an.times_by_arm.differs
-    verdict, headline = _verdict(spread, spread_text, arm_differs, an.material, an.comparisons, an.scale_ok,
+    verdict, headline = _verdict(spread, spread_text, arm_differs, an.material, an.largest, an.scale_ok,
                                  _arm_view(ctx, data, an.arms), threshold)
-    figure = _figure(an.df, an.arms, spec, ctx, _expected_rates(an.rate, an.arms, an.cols, an.coding))
+    figure = _figure(an.df, an.arms, spec, ctx, an.expected)
     return result(check, data, verdict, headline, subfindings=subs, estimates=estimates, tables=tables,
                   figures=[figure], caveats=caveats + _fit_caveats(list(an.fit_notes)),
                   recommendation=recommended_analysis(verdict),
@@ -367,10 +401,11 @@ def _shift_text(s) -> str:
     return fmt_ci(s.estimate, s.lower, s.upper)
 
 
-def _verdict(spread, spread_text, arm_differs, material, comparisons, scale_ok,
+def _verdict(spread, spread_text, arm_differs, material, largest, scale_ok,
              arm_view: str = "compared", threshold: float = MATERIAL_RATIO) -> tuple[Verdict, str]:
     """Verdict and headline, consequence first: how far ignoring observation time moves the treatment
-    comparison (the count ratio over the rate ratio, with its interval).
+    comparison (``largest``, :attr:`Analysis.largest`: the count ratio over the rate ratio, with its
+    interval, of the comparison it moves most; None with no comparison).
 
     Sound when the times are nearly equal. Unsupported when the interval of that factor lies wholly
     beyond ``threshold`` or its inverse (the study's ``count_ratio``); caution when the times vary
@@ -380,8 +415,8 @@ def _verdict(spread, spread_text, arm_differs, material, comparisons, scale_ok,
         return Verdict.SOUND, (f"Observation time is nearly equal ({spread_text}): comparing the counts "
                                "compares rates.")
     tail = "" if scale_ok else "; the count does not grow in proportion to time, so read rates with care"
-    if comparisons:
-        c = max(comparisons, key=lambda c: abs(math.log(c["shift"].estimate)))
+    if largest is not None:
+        c = largest
         s = c["shift"]
         lead = (f"Ignoring observation time moves the treatment comparison ({c['name']}) by a factor of "
                 f"{_shift_text(s)}: count ratio {fmt(c['count'][0])} against rate ratio {fmt_ci(*c['rate'][:3])}")

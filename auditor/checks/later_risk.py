@@ -16,7 +16,7 @@ docs/methods/later-risk.md.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Callable
 
 import numpy as np
@@ -182,6 +182,11 @@ class DerivedTest:
     weights: LRTest
     weight_ratio: tuple[float, float, float]
 
+    @property
+    def aic_gap(self) -> float:
+        """AIC of the derived model minus that of the encompassing model (below 0: the derived fits better)."""
+        return self.fit.aic - self.encompassing.aic
+
 
 def derived_test(definition: Definition, y, latest, earlier, adjust, effective_n: int,
                  level: float) -> DerivedTest:
@@ -322,6 +327,8 @@ class Analysis:
     level: float = 0.95
     material_odds_ratio: float = MATERIAL_ODDS_RATIO
     """The odds ratio a consequence must clear to be material (study.toml ``odds_ratio``)."""
+    reported: "Reported | None" = None
+    """What the report shows beyond the tests: curves, odds ratios, shares, table rows (:func:`reported`)."""
 
     @property
     def full(self) -> LogisticFit:
@@ -417,8 +424,9 @@ def analyse(y, latest, earlier, adjust: dict[str, np.ndarray] | None = None, log
                 raise NotAssessable(f"the declared {kind.label} model cannot be fitted ({exc})") from exc
             skipped.append(f"The {kind.label} model could not be fitted ({exc}).")
     same = same_value_contrast(partition.full, lt, et, earlier)
-    return Analysis(y, latest, earlier, adjust, log, reason, lt, et, partition, shape, lowest, same, derived,
-                    skipped, definition, level, material_odds_ratio)
+    an = Analysis(y, latest, earlier, adjust, log, reason, lt, et, partition, shape, lowest, same, derived,
+                  skipped, definition, level, material_odds_ratio)
+    return replace(an, reported=reported(an))
 
 
 def same_value_contrast(full: LogisticFit, lt: Term, et: Term, earlier) -> SameValue:
@@ -474,6 +482,149 @@ def full_curve(an: Analysis, latest, earlier, level: float):
 
 def derived_curve(an: Analysis, test: DerivedTest, values, level: float):
     return curve(an, test.fit, test.term.columns(np.asarray(values, float)), level)
+
+
+# ------------------------------------------------------------------------------- reported numbers
+
+
+@dataclass(frozen=True)
+class Curve:
+    """A modelled risk curve: the values ``x`` it is drawn at and its pointwise band (risk_band)."""
+
+    x: np.ndarray
+    band: object
+
+
+@dataclass(frozen=True)
+class Compare:
+    """Risk by a derived value: every participant's derived value (``values``), the derived model's
+    curve along a grid over its 5th to 95th percentiles (``own``), and the model of both values for
+    participants starting at the 10th, 50th and 90th percentiles of the earlier value (``starts``:
+    (start, risk along the grid, NaN where the latest value would leave the observed range))."""
+
+    values: np.ndarray
+    own: Curve
+    starts: list[tuple[float, np.ndarray]]
+
+
+@dataclass(frozen=True)
+class PartitionShare:
+    """One line of the chi-square partition (:meth:`ChiSquarePartition.rows`: ``latest``, ``latest,
+    nonlinear part``, ..., ``all blocks together``, ``adjustment``, ``whole model``) with its percentage
+    of the chi-square of both values (None for the adjustment and the whole model, or when that
+    chi-square is 0)."""
+
+    name: str
+    test: LRTest
+    share: float | None
+
+
+UNSHARED = ("adjustment", "whole model")
+"""Partition lines that are not parts of the chi-square of both values."""
+
+
+@dataclass(frozen=True)
+class Reported:
+    """The numbers the report shows beyond the tests, computed from an :class:`Analysis`."""
+
+    digits: int
+    """Decimals for values of the measurement: about two significant digits of its pooled SD."""
+    median_earlier: float
+    median_latest: float
+    lowest_risk: tuple[float, float, float]
+    """Modelled risk (with band) at the lowest point, earlier value at its median, covariates at their means."""
+    turning_ends: list | None
+    """:func:`end_odds_ratios` of the supported turning point, or None."""
+    minimum_ends: list | None
+    """:func:`end_odds_ratios` of the grid minimum when it is interior, or None."""
+    same_value: tuple[float, float, float]
+    """:meth:`SameValue.interval` at the audit's level."""
+    shares: dict[str, float]
+    """Share of the chi-square of both values carried by each value alone (latest, earlier)."""
+    partition: list[PartitionShare]
+    aic_gaps: list[float]
+    """AIC of each of :meth:`Analysis.models` minus that of the model of both values."""
+    same_change_rows: list[list]
+    """Rows of the same-change table for the shown definition (empty when none is shown)."""
+    latest_curve: Curve
+    earlier_curve: Curve
+    compare: Compare | None
+
+
+def display_digits(latest: np.ndarray, earlier: np.ndarray) -> int:
+    """Decimals that show about two significant digits of the pooled SD (0 to 4; 2 when it is 0)."""
+    sd = float(np.std(np.concatenate([latest, earlier])))
+    return max(0, min(4, 1 - math.floor(math.log10(sd)))) if sd > 0 else 2
+
+
+def partition_shares(p: ChiSquarePartition) -> list[PartitionShare]:
+    """The partition's lines, each with 100 x its chi-square over that of both values."""
+    joint = p.joint.statistic
+    return [PartitionShare(r.name, r.test, 100 * r.test.statistic / joint
+                           if r.name not in UNSHARED and joint > 0 else None) for r in p.rows()]
+
+
+def same_change_rows(an: Analysis, d: DerivedTest, digits: int, level: float) -> list[list]:
+    """Participants with the same derived value (none, and a rise of one SD) starting at the 10th, 25th,
+    50th, 75th and 90th percentiles of the earlier value: (earlier, latest, derived value as stated,
+    risk from both values with band, risk from the derived value alone), risks in percent; rows whose
+    latest value leaves the observed range are left out."""
+    starts = np.quantile(an.earlier, [0.10, 0.25, 0.50, 0.75, 0.90])
+    values = _typical_steps(d.definition.value(an.latest, an.earlier), d.definition)
+    lo_l, hi_l = float(np.min(an.latest)), float(np.max(an.latest))
+    rows = []
+    for step in values:
+        lat = d.definition.latest_from(starts, np.full(len(starts), step))
+        keep = (lat >= lo_l) & (lat <= hi_l)
+        if keep.sum() < 2:
+            continue
+        full = full_curve(an, lat[keep], starts[keep], level)
+        own = derived_curve(an, d, np.full(int(keep.sum()), step), level)
+        for i, (e, l_) in enumerate(zip(starts[keep], lat[keep])):
+            rows.append([round(float(e), digits), round(float(l_), digits),
+                         _step_value(step, d.definition), 100 * float(full.risk[i]),
+                         100 * float(full.lower[i]), 100 * float(full.upper[i]), 100 * float(own.risk[i])])
+    return rows
+
+
+def compare_curves(an: Analysis, d: DerivedTest, level: float) -> Compare:
+    """The data of the figure setting the derived model's risk beside the model of both values."""
+    dv = d.definition.value(an.latest, an.earlier)
+    grid = np.linspace(*np.quantile(dv, END_QUANTILES), 80)
+    own = derived_curve(an, d, grid, level)
+    lo_l, hi_l = float(np.min(an.latest)), float(np.max(an.latest))
+    starts = []
+    for q in (0.10, 0.50, 0.90):
+        start = float(np.quantile(an.earlier, q))
+        lat = d.definition.latest_from(np.full(len(grid), start), grid)
+        band = full_curve(an, lat, np.full(len(grid), start), level)
+        inside = (lat >= lo_l) & (lat <= hi_l)
+        starts.append((start, np.where(inside, band.risk, np.nan)))
+    return Compare(dv, Curve(grid, own), starts)
+
+
+def reported(an: Analysis) -> Reported:
+    """Every number the wording prints that the tests above do not already hold, at ``an.level``."""
+    level = an.level
+    digits = display_digits(an.latest, an.earlier)
+    med_e, med_l = float(np.median(an.earlier)), float(np.median(an.latest))
+    band = full_curve(an, [an.lowest.at], [med_e], level)
+    m, turning = an.shape.minimum, an.turning
+    xl = np.linspace(np.min(an.latest), np.max(an.latest), 120)
+    xe = np.linspace(np.min(an.earlier), np.max(an.earlier), 120)
+    base = an.full.aic
+    shown = an.shown
+    return Reported(
+        digits, med_e, med_l, (float(band.risk[0]), float(band.lower[0]), float(band.upper[0])),
+        end_odds_ratios(turning, level) if turning is not None else None,
+        end_odds_ratios(m, level) if m.interior else None,
+        an.same_value.interval(level),
+        {LATEST: an.partition.share(LATEST), EARLIER: an.partition.share(EARLIER)},
+        partition_shares(an.partition), [f.aic - base for _, f in an.models()],
+        same_change_rows(an, shown, digits, level) if shown is not None else [],
+        Curve(xl, full_curve(an, xl, np.full(len(xl), med_e), level)),
+        Curve(xe, full_curve(an, np.full(len(xe), med_l), xe, level)),
+        compare_curves(an, shown, level) if shown is not None else None)
 
 
 # ---------------------------------------------------------------------------------- check inputs
@@ -641,8 +792,8 @@ class _View:
         self.an, self.spec, self.inputs, self.level = an, spec, inputs, level
         self.arm = inputs.arm_adjusted
         self.verdicts = finding_verdicts(an)
-        sd = float(np.std(np.concatenate([an.latest, an.earlier])))
-        self.digits = max(0, min(4, 1 - math.floor(math.log10(sd)))) if sd > 0 else 2
+        self.numbers = an.reported
+        self.digits = self.numbers.digits
         self.unit = spec.unit
         self.endpoint = spec.risk_endpoint_label or spec.risk_endpoint
         """The event as sentences name it: the declared label, else the endpoint's code."""
@@ -692,8 +843,8 @@ class _View:
         return subs
 
     def _ends(self, t: ExtremumTest) -> str:
-        """The consequence of a turning point: odds at each end against it, with intervals."""
-        (a, ra, la, ua), (b, rb, lb, ub) = end_odds_ratios(t, self.level)
+        """The consequence of the supported turning point ``t``: odds at each end against it, with intervals."""
+        (a, ra, la, ua), (b, rb, lb, ub) = self.numbers.turning_ends
         if t.kind == "minimum":
             return (f"the odds of {self.endpoint} are {self.odds_ci(ra, la, ua)} as high at the 5th percentile "
                     f"({self.x(a)}) and {self.odds_ci(rb, lb, ub)} as high at the 95th ({self.x(b)}) as at "
@@ -736,9 +887,10 @@ class _View:
     def _earlier_finding(self) -> SubFinding:
         p = self.an.partition
         lt, et = p.total[LATEST], p.total[EARLIER]
-        ev = (f"latest value given the earlier: {self.chi(lt)}, {fmt(100 * p.share(LATEST), 0)}% of the "
+        shares = self.numbers.shares
+        ev = (f"latest value given the earlier: {self.chi(lt)}, {fmt(100 * shares[LATEST], 0)}% of the "
               f"chi-square of both values; earlier given the latest: {self.chi(et)}, "
-              f"{fmt(100 * p.share(EARLIER), 0)}%")
+              f"{fmt(100 * shares[EARLIER], 0)}%")
         q = "Does the earlier value add information once the latest is known, as a change definition needs?"
         v = self.verdicts["earlier-informative"]
         if p.joint.p_value >= ALPHA:
@@ -753,7 +905,7 @@ class _View:
 
     def _same_value_phrase(self) -> str:
         sv = self.an.same_value
-        o, lo, hi = sv.interval(self.level)
+        o, lo, hi = self.numbers.same_value
         return (f"participants whose value did not change have {self.odds_ci(o, lo, hi)} the odds of "
                 f"{self.endpoint} when they start at the 90th percentile of the earlier value ({self.x(sv.high)}) "
                 f"as when they start at the 10th ({self.x(sv.low)})")
@@ -779,7 +931,7 @@ class _View:
     def _information_finding(self, d: DerivedTest) -> SubFinding:
         label = d.definition.label
         ev = (f"the model in the {label} alone against the model of both values it is nested in: "
-              f"{self.chi(d.information)}; AIC {fmt(d.fit.aic - d.encompassing.aic, 1)} against it")
+              f"{self.chi(d.information)}; AIC {fmt(d.aic_gap, 1)} against it")
         return self._definition_finding(d, "information", d.information, ev,
                                         f"Does a {label}-based definition keep the risk information in the two values?",
                                         "It loses information", "No evidence that it loses information")
@@ -811,8 +963,9 @@ class _View:
         """Consequence with its interval first, then the evidence, then what it means for the declared
         definition (or that none is declared)."""
         an = self.an
-        share = (f"the latest value carries {fmt(100 * an.partition.share(LATEST), 0)}% of the chi-square of "
-                 f"both values (the earlier {fmt(100 * an.partition.share(EARLIER), 0)}%)")
+        shares = self.numbers.shares
+        share = (f"the latest value carries {fmt(100 * shares[LATEST], 0)}% of the chi-square of "
+                 f"both values (the earlier {fmt(100 * shares[EARLIER], 0)}%)")
         judged = an.judged
         if judged is None:
             parts = [self._shape_phrase(), share]
@@ -827,7 +980,7 @@ class _View:
             t = judged.information
             parts = ([self._shape_phrase()] if an.turning is not None else []) + [self._same_value_phrase()]
             parts.append(f"the declared {label}-based definition loses {self.chi(t)} against the model of both "
-                         f"values (AIC {fmt(judged.fit.aic - judged.encompassing.aic, 1)} against it)")
+                         f"values (AIC {fmt(judged.aic_gap, 1)} against it)")
             if an.turning is None:
                 parts.append(self._shape_phrase())
             parts.append(share)
@@ -874,23 +1027,21 @@ class _View:
                                              f"not fitted); searched between the 5th and 95th percentiles"
                                              if low.resamples else "searched between the 5th and 95th percentiles"),
                             by_arm=arm, key="later-risk.lowest-risk-value"))
-        band = full_curve(an, [low.at], [float(np.median(an.earlier))], self.level)
-        out.append(estimate("Modelled risk at that value", 100 * float(band.risk[0]), 100 * float(band.lower[0]),
-                            100 * float(band.upper[0]), unit="%",
+        risk, lower, upper = self.numbers.lowest_risk
+        out.append(estimate("Modelled risk at that value", 100 * risk, 100 * lower, 100 * upper, unit="%",
                             note="earlier value at its median, covariates at their means", by_arm=arm,
                             key="later-risk.lowest-risk"))
         m = an.shape.minimum
         if m.interior:
-            z = stats.norm.ppf(0.5 + self.level / 2)
-            for name, e in (("5th", m.low_end), ("95th", m.high_end)):
+            ends = zip(("5th", "95th"), (m.low_end, m.high_end), self.numbers.minimum_ends)
+            for name, e, (_, ratio, lo, hi) in ends:
                 out.append(estimate(f"Odds ratio of the event, latest value at its {name} percentile "
-                                    f"({self.x(e.at)}) against the lowest point", math.exp(e.difference),
-                                    math.exp(e.difference - z * e.se), math.exp(e.difference + z * e.se),
-                                    e.p_adjusted, note=f"one-sided p adjusted for the choice of the lowest "
-                                                       f"point (pointwise {fmt_p(e.p_value)})", by_arm=arm,
+                                    f"({self.x(e.at)}) against the lowest point", ratio, lo, hi, e.p_adjusted,
+                                    note=f"one-sided p adjusted for the choice of the lowest point (pointwise "
+                                         f"{fmt_p(e.p_value)})", by_arm=arm,
                                     key=f"later-risk.odds-ratio-vs-lowest.p{name[:-2]}"))
         sv = an.same_value
-        o, lo, hi = sv.interval(self.level)
+        o, lo, hi = self.numbers.same_value
         out.append(estimate(f"Odds ratio of the event with no change, starting at the 90th ({self.x(sv.high)}) "
                             f"against the 10th ({self.x(sv.low)}) percentile of the earlier value", o, lo, hi,
                             note="model of both values; a change- or ratio-based definition assumes 1",
@@ -898,7 +1049,7 @@ class _View:
         p = an.partition
         for block, what in ((LATEST, "latest"), (EARLIER, "earlier")):
             out.append(estimate(f"Share of the explainable chi-square carried by the {what} value alone",
-                                100 * p.share(block), p=p.total[block].p_value, unit="%",
+                                100 * self.numbers.shares[block], p=p.total[block].p_value, unit="%",
                                 note=f"partial chi-square {fmt(p.total[block].statistic, 1)} on "
                                      f"{p.total[block].df} df over the {fmt(p.joint.statistic, 1)} of both",
                                 by_arm=arm, key=f"later-risk.chi-square-share.{what}"))
@@ -927,22 +1078,15 @@ class _View:
         return out
 
     def _partition_table(self) -> Table:
-        p = self.an.partition
-        joint = p.joint.statistic
-
-        def row(label, t: LRTest, share=True):
-            return [label, t.statistic, t.df, t.p_value, 100 * t.statistic / joint if share and joint > 0 else None]
-
-        rows = [row("Latest value, all its terms, given the earlier", p.total[LATEST])]
-        if LATEST in p.nonlinear:
-            rows.append(row("Latest value, nonlinear terms", p.nonlinear[LATEST]))
-        rows.append(row("Earlier value, all its terms, given the latest", p.total[EARLIER]))
-        if EARLIER in p.nonlinear:
-            rows.append(row("Earlier value, nonlinear terms", p.nonlinear[EARLIER]))
-        rows.append(row("Both values together", p.joint))
-        if p.adjustment is not None:
-            rows.append(row("Adjustment (" + ", ".join(self._adjust_labels()) + ")", p.adjustment, share=False))
-        rows.append(row("Whole model, against no predictor", p.whole, share=False))
+        labels = {LATEST: "Latest value, all its terms, given the earlier",
+                  f"{LATEST}, nonlinear part": "Latest value, nonlinear terms",
+                  EARLIER: "Earlier value, all its terms, given the latest",
+                  f"{EARLIER}, nonlinear part": "Earlier value, nonlinear terms",
+                  "all blocks together": "Both values together",
+                  "adjustment": "Adjustment (" + ", ".join(self._adjust_labels()) + ")",
+                  "whole model": "Whole model, against no predictor"}
+        rows = [[labels[r.name], r.test.statistic, r.test.df, r.test.p_value, r.share]
+                for r in self.numbers.partition]
         return Table("chi-square-partition", "Likelihood-ratio chi-square of the model of both values, by source",
                      ["Source", "LR chi-square", "df", "p", "% of the chi-square of both values"], rows,
                      note="Partial chi-squares of correlated values need not add to the joint one; the "
@@ -953,31 +1097,15 @@ class _View:
         return covs + (["arm"] if self.arm else [])
 
     def _model_table(self) -> Table:
-        models = self.an.models()
-        base = self.an.full.aic
-        rows = [[name, f.n_params, f.loglik, f.aic, f.aic - base] for name, f in models]
+        rows = [[name, f.n_params, f.loglik, f.aic, gap]
+                for (name, f), gap in zip(self.an.models(), self.numbers.aic_gaps)]
         return Table("model-aic", "Models of the event: fit and AIC",
                      ["Model", "Parameters", "Log-likelihood", "AIC", "AIC minus that of both values"], rows,
                      note="Each measurement or derived value enters as a restricted cubic spline; lower AIC "
                           "is better, and a difference above 2 is usually taken as meaningful.", by_arm=self.arm)
 
     def _same_change_table(self, d: DerivedTest) -> Table:
-        an = self.an
-        starts = np.quantile(an.earlier, [0.10, 0.25, 0.50, 0.75, 0.90])
-        values = _typical_steps(d.definition.value(an.latest, an.earlier), d.definition)
-        lo_l, hi_l = float(np.min(an.latest)), float(np.max(an.latest))
-        rows = []
-        for step in values:
-            lat = d.definition.latest_from(starts, np.full(len(starts), step))
-            keep = (lat >= lo_l) & (lat <= hi_l)
-            if keep.sum() < 2:
-                continue
-            full = full_curve(an, lat[keep], starts[keep], self.level)
-            own = derived_curve(an, d, np.full(int(keep.sum()), step), self.level)
-            for i, (e, l_) in enumerate(zip(starts[keep], lat[keep])):
-                rows.append([round(float(e), self.digits), round(float(l_), self.digits),
-                             _step_value(step, d.definition), 100 * float(full.risk[i]),
-                             100 * float(full.lower[i]), 100 * float(full.upper[i]), 100 * float(own.risk[i])])
+        rows = self.numbers.same_change_rows
         label = d.definition.label
         return Table("same-change", f"Participants with the same {label} but different starting points",
                      ["Earlier value", "Latest value",
@@ -993,12 +1121,11 @@ class _View:
     # -- figures
 
     def figures(self):
-        an, arm = self.an, self.arm
+        an, arm, numbers = self.an, self.arm, self.numbers
         ylabel = f"Modelled risk of {self.endpoint}"
         name = self.spec.display_name
-        med_e, med_l = float(np.median(an.earlier)), float(np.median(an.latest))
-        xl = np.linspace(np.min(an.latest), np.max(an.latest), 120)
-        bl = full_curve(an, xl, np.full(len(xl), med_e), self.level)
+        med_e, med_l = numbers.median_earlier, numbers.median_latest
+        xl, bl = numbers.latest_curve.x, numbers.latest_curve.band
         vlines = [{"x": an.lowest.at}] if an.shape.flagged == "U-shaped" else []
         figs = [Figure("risk-latest", "curve_band", f"{name}: modelled risk against the latest value",
                        {"curves": [_curve_data(xl, bl)], "rug": sorted(an.latest.tolist()), "vlines": vlines,
@@ -1007,8 +1134,7 @@ class _View:
                                f"at their means; band: pointwise {level_label(self.level)} interval; ticks: observed "
                                f"latest values" + ("; dotted line: the lowest point." if vlines else "."),
                        by_arm=arm)]
-        xe = np.linspace(np.min(an.earlier), np.max(an.earlier), 120)
-        be = full_curve(an, np.full(len(xe), med_l), xe, self.level)
+        xe, be = numbers.earlier_curve.x, numbers.earlier_curve.band
         figs.append(Figure("risk-earlier", "curve_band", f"{name}: modelled risk against the earlier value",
                            {"curves": [_curve_data(xe, be)], "rug": sorted(an.earlier.tolist()), "vlines": [],
                             "xlabel": self.axis("Earlier value"), "ylabel": ylabel},
@@ -1020,19 +1146,12 @@ class _View:
         return figs
 
     def _compare_figure(self, d: DerivedTest, ylabel: str) -> Figure:
-        an = self.an
-        dv = d.definition.value(an.latest, an.earlier)
-        grid = np.linspace(*np.quantile(dv, END_QUANTILES), 80)
-        own = derived_curve(an, d, grid, self.level)
-        curves = [{**_curve_data(grid, own), "label": f"{d.definition.label.capitalize()} alone", "style": "dashed",
-                   "color": "#222222"}]
-        lo_l, hi_l = float(np.min(an.latest)), float(np.max(an.latest))
-        for i, q in enumerate((0.10, 0.50, 0.90)):
-            start = float(np.quantile(an.earlier, q))
-            lat = d.definition.latest_from(np.full(len(grid), start), grid)
-            band = full_curve(an, lat, np.full(len(grid), start), self.level)
-            inside = (lat >= lo_l) & (lat <= hi_l)
-            curves.append({"x": grid.tolist(), "y": np.where(inside, band.risk, np.nan).tolist(),
+        c = self.numbers.compare
+        dv, grid = c.values, c.own.x
+        curves = [{**_curve_data(grid, c.own.band), "label": f"{d.definition.label.capitalize()} alone",
+                   "style": "dashed", "color": "#222222"}]
+        for i, (start, risk) in enumerate(c.starts):
+            curves.append({"x": grid.tolist(), "y": risk.tolist(),
                            "label": f"Both values, earlier = {self.x(start)}", "style": "solid", "palette": i})
         label = d.definition.label
         return Figure(f"risk-{_key(d)}", "risk_compare",

@@ -70,14 +70,16 @@ class ArmCorrelation:
 @dataclass(frozen=True)
 class Analysis:
     """The numbers the check reports, before any wording: the complete pairs and arms, the pooled
-    Pearson and Spearman correlations, the arm-adjusted slope (estimate, lower, upper, p) and the
-    within-arm correlations (arms with at least 4 pairs)."""
+    Pearson and Spearman correlations, the arm-adjusted slope (estimate, lower, upper, p), the
+    within-arm correlations (arms with at least 4 pairs) and the pooled LOWESS smooth of follow-up on
+    baseline that the figure draws (grid and fitted values; both empty when it cannot be drawn)."""
     df: object
     arms: list
     pearson: object
     spearman: object
     slope: tuple
     by_arm: list
+    smooth: tuple[list[float], list[float]]
 
 
 def analyse(data, ctx: CheckContext) -> Analysis:
@@ -92,7 +94,8 @@ def analyse(data, ctx: CheckContext) -> Analysis:
         if len(sub) >= 4:
             by_arm.append(ArmCorrelation(arm, len(sub), pearson(sub["baseline"], sub["followup"], ctx.level),
                                          spearman(sub["baseline"], sub["followup"], ctx.level)))
-    return Analysis(df, arms, pearson(b, f, ctx.level), spearman(b, f, ctx.level), slope, by_arm)
+    return Analysis(df, arms, pearson(b, f, ctx.level), spearman(b, f, ctx.level), slope, by_arm,
+                    smooth_curve(b, f))
 
 
 def _scatter(data, an: Analysis, seed) -> Figure:
@@ -103,7 +106,7 @@ def _scatter(data, an: Analysis, seed) -> Figure:
                    "y": shown.loc[shown["arm"] == a, "followup"].tolist()} for a in arms]
     else:
         groups = [{"label": "All participants", "x": shown["baseline"].tolist(), "y": shown["followup"].tolist()}]
-    sx, sy = smooth_curve(df["baseline"].to_numpy(), df["followup"].to_numpy())
+    sx, sy = an.smooth
     return Figure("prepost-scatter", "scatter_identity",
                   f"{data.spec.display_name}: follow-up against baseline",
                   {"groups": groups, "smooth": {"x": sx, "y": sy},

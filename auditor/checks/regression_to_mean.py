@@ -718,9 +718,11 @@ def _unit_label(spec, visit) -> str:
 # ----------------------------------------------------------------------------- sections
 
 
-def selection_section(sel, finds, n_kept, n_excluded, out: Sections, share_out: float | None = None) -> None:
-    """The selection sub-finding (and the criterion-honoured one); ``share_out`` is the fitted
-    population share on the excluded side of the cutoff, when known."""
+def selection_section(sel, finds, counts: "EntryCounts | None", out: Sections,
+                      share_out: float | None = None) -> None:
+    """The selection sub-finding (and the criterion-honoured one); ``counts`` are the entry readings
+    kept and left out (None with no selection), ``share_out`` the fitted population share on the
+    excluded side of the cutoff, when known."""
     q = "Were participants selected on this outcome?"
     tests = "; ".join(f"{f.visit}{f.scale_note}: edge LR {fmt(f.test.statistic)}, "
                       f"{fmt_p(f.test.p_value)}, {f.test.edge_side} edge at {fmt(f.edge)}" for f in finds)
@@ -747,26 +749,26 @@ def selection_section(sel, finds, n_kept, n_excluded, out: Sections, share_out: 
     else:
         ev = f"no entry criterion declared, but {tests}"
     out.sub("selection", q, verdict, ev)
+    n_kept, n_excluded = counts.kept, counts.excluded
     out.estimates.append(estimate(f"Participants with the entry reading ({sel.visit}) meeting the cutoff",
                                   float(n_kept), key="regression-to-mean.entry-met"))
     if n_excluded:
-        share = n_excluded / (n_excluded + n_kept)
         out.estimates.append(estimate("Entry readings on the excluded side of the cutoff (left out)",
                                       float(n_excluded), key="regression-to-mean.entry-excluded"))
         out.sub("criterion-honoured", "Do the entry readings honour the criterion?",
-                Verdict.CAUTION if share > VIOLATION_SHARE else Verdict.SOUND,
-                f"{n_excluded} of {n_excluded + n_kept} ({share:.0%}) lie on the excluded side; they are left "
-                f"out of this check")
+                Verdict.CAUTION if counts.share_excluded > VIOLATION_SHARE else Verdict.SOUND,
+                f"{n_excluded} of {counts.total} ({counts.share_excluded:.0%}) lie on the excluded side; they are "
+                f"left out of this check")
 
 
-def population_section(spec, scale, sel, out: Sections, level: float = 0.95) -> None:
-    fit = scale.fit
-    _, lo, hi = fit.ci("mu", level)
-    _, s_lo, s_hi = fit.ci("sigma", level)
+def population_section(spec, an: "Analysis", out: Sections, level: float = 0.95) -> None:
+    scale, fit = an.scale, an.scale.fit
+    _, lo, hi = an.population.mu_ci
+    _, s_lo, s_hi = an.population.sigma_ci
     if scale.log:
         out.estimates += [
-            estimate("Geometric mean of the unselected population (truncated-normal MLE)", math.exp(fit.mu),
-                     math.exp(lo), math.exp(hi), unit=spec.unit, note=interval_words("Wald", level) + " on the log scale",
+            estimate("Geometric mean of the unselected population (truncated-normal MLE)",
+                     *an.population.geometric, unit=spec.unit, note=interval_words("Wald", level) + " on the log scale",
                      key="regression-to-mean.population-geometric-mean"),
             estimate("SD of log values in the unselected population", fit.sigma, s_lo, s_hi,
                      key="regression-to-mean.population-log-sd")]
@@ -777,7 +779,7 @@ def population_section(spec, scale, sel, out: Sections, level: float = 0.95) -> 
             estimate("SD of the unselected population", fit.sigma, s_lo, s_hi, unit=spec.unit,
                      key="regression-to-mean.population-sd")]
     out.estimates.append(estimate("Share of the unselected population meeting the cutoff (fitted)",
-                                  100 * (1 - excluded_share(scale, sel)), unit="%",
+                                  100 * an.population.share_meeting, unit="%",
                                   key="regression-to-mean.population-share-meeting"))
     out.sub("scale", "On which scale is the reading close to normal?", Verdict.SOUND,
             f"{'log' if scale.log else 'raw'} scale: {scale.reason}")
@@ -799,7 +801,8 @@ def reliability_section(spec, rel: Reliability, out: Sections) -> None:
             rel.evidence, by_arm=rel.by_arm)
 
 
-def expected_section(spec, scale, rtm, rel, sel, out: Sections, level: float = 0.95) -> None:
+def expected_section(spec, scale, rtm, rel, ratio: Interval | None, declared_change: float | None,
+                     out: Sections, level: float = 0.95) -> None:
     unit = "" if scale.log else spec.unit
     out.estimates.append(estimate(f"Expected change from regression to the mean "
                                   f"({'log scale' if scale.log else 'analysis scale'})", rtm.estimate, rtm.lower,
@@ -807,29 +810,22 @@ def expected_section(spec, scale, rtm, rel, sel, out: Sections, level: float = 0
                                   note=f"Barnett et al. formula; {interval_words('parametric bootstrap', level, noun='')}, "
                                        f"{rtm.n_draws} draws, seed {rtm.seed}",
                                   by_arm=rel.by_arm, key="regression-to-mean.expected-change"))
-    if scale.log:
+    if ratio is not None:
         out.estimates.append(estimate("Expected ratio later / entry reading from regression to the mean",
-                                      math.exp(rtm.estimate), math.exp(rtm.lower), math.exp(rtm.upper),
+                                      ratio.estimate, ratio.lower, ratio.upper,
                                       note=f"{_pct(rtm.estimate):+.1f}% on the original scale", by_arm=rel.by_arm,
                                       key="regression-to-mean.expected-ratio"))
-    if spec.reliability is not None and rel.source != "declared" and sel.is_window:
-        alt = -(1 - float(spec.reliability)) * float(window_mean_shift(scale.fit.mu, scale.fit.sigma,
-                                                                      scale.fit.lower, scale.fit.upper))
+    if declared_change is not None:
         out.estimates.append(estimate("Expected change with the declared reliability instead (sensitivity)",
-                                      alt, unit=unit, key="regression-to-mean.expected-change-declared-reliability"))
-    elif spec.reliability is not None and rel.source != "declared":
-        alt = expected_rtm(scale.fit.mu, scale.fit.sigma, float(spec.reliability), float(scale.to(sel.cutoff)),
-                           sel.direction)
-        out.estimates.append(estimate("Expected change with the declared reliability instead (sensitivity)",
-                                      alt, unit=unit, key="regression-to-mean.expected-change-declared-reliability"))
+                                      declared_change, unit=unit,
+                                      key="regression-to-mean.expected-change-declared-reliability"))
 
 
-def shrinkage_section(spec, rd, scale, rho, sel, rel, out: Sections) -> None:
+def shrinkage_section(spec, scale, rho, sel, rel, shrink: "Shrinkage", out: Sections) -> None:
     """Shrunk entry readings ``mu + rho (x - mu)`` (Kelley 1947); their mean shift is the expected RTM."""
-    x = np.sort(scale.to(rd.present(sel.column)))
-    shrunk = shrunk_values(x, scale.fit.mu, rho)
+    x, shrunk = shrink.observed, shrink.shrunk
     out.estimates.append(estimate("Mean shrinkage of the entry reading toward the population mean",
-                                  float(np.mean(shrunk - x)), unit="" if scale.log else spec.unit,
+                                  shrink.mean_shift, unit="" if scale.log else spec.unit,
                                   note="equals the expected change at the maximum-likelihood fit",
                                   by_arm=rel.by_arm, key="regression-to-mean.mean-shrinkage"))
     label = _unit_label(spec, sel.visit)
@@ -846,25 +842,16 @@ def shrinkage_section(spec, rd, scale, rho, sel, rel, out: Sections) -> None:
         by_arm=rel.by_arm))
 
 
-def pairs_figure(spec, rd, scale, sel, rel) -> Figure | None:
+def pairs_figure(spec, pairs: "Pairs | None", scale, sel, rel) -> Figure | None:
     """Screening against baseline with the cutoff, when the entry reading is one of them."""
-    if not rd.has("screening") or sel.column not in ("screening", "baseline"):
+    if pairs is None:
         return None
-    xs, ys = rd.complete("screening", "baseline")
-    if len(xs) < MIN_PAIRS:
-        return None
-    order = np.lexsort((ys, xs))
-    xs, ys = scale.to(xs[order]), scale.to(ys[order])
-    data = {"x": xs.tolist(), "y": ys.tolist(), "cutoff": float(scale.to(sel.cutoff)),
+    data = {"x": pairs.x.tolist(), "y": pairs.y.tolist(), "cutoff": float(scale.to(sel.cutoff)),
             **({"upper": float(scale.to(sel.upper))} if sel.is_window else {}),
             "cutoff_axis": "x" if sel.column == "screening" else "y", "log": scale.log,
             "xlabel": _unit_label(spec, spec.screening_visit), "ylabel": _unit_label(spec, spec.baseline_visit)}
-    if rel.other in ("screening", "baseline"):
-        s, o = (xs, ys) if sel.column == "screening" else (ys, xs)
-        grid = np.array([s.min(), s.max()])
-        fitted = float(np.mean(o)) + rel.value * (grid - float(np.mean(s)))
-        line_x, line_y = (grid, fitted) if sel.column == "screening" else (fitted, grid)
-        data["line"] = {"x": line_x.tolist(), "y": line_y.tolist(),
+    if pairs.line_x is not None:
+        data["line"] = {"x": pairs.line_x.tolist(), "y": pairs.line_y.tolist(),
                         "label": f"regression on {sel.visit} (slope {fmt(rel.value)})"}
     return Figure("rtm-screening-baseline", "rtm_pairs",
                   f"{spec.display_name}: {spec.baseline_visit} against {spec.screening_visit}", data,
@@ -874,11 +861,11 @@ def pairs_figure(spec, rd, scale, sel, rel) -> Figure | None:
                           f"the other.")
 
 
-def truncation_figure(spec, rd, scale, sel) -> Figure:
-    v = np.sort(scale.to(rd.present(sel.column)))
+def truncation_figure(spec, entry: np.ndarray, scale, sel) -> Figure:
+    """The entry readings (``entry``: sorted, analysis scale) with the fitted truncated normal."""
     return Figure("rtm-entry-distribution", "rtm_truncation",
                   f"{spec.display_name}: distribution of the entry reading ({sel.visit})",
-                  {"values": v.tolist(), "mu": scale.fit.mu, "sigma": scale.fit.sigma,
+                  {"values": entry.tolist(), "mu": scale.fit.mu, "sigma": scale.fit.sigma,
                    "cutoff": float(scale.to(sel.cutoff)), "direction": sel.direction, "log": scale.log,
                    **({"upper": float(scale.to(sel.upper))} if sel.is_window else {}),
                    "xlabel": _unit_label(spec, sel.visit)},
@@ -913,8 +900,9 @@ def figure_rows(sel, rtm, target, obs, pre) -> list[dict]:
     return rows
 
 
-def observed_section(spec, scale, target: Interval, obs: Change, pre, by_arm, ctx, out: Sections) -> None:
+def observed_section(spec, an: "Analysis", ctx, out: Sections) -> None:
     """The observed mean change beside the change expected in it, their difference and the share."""
+    scale, target, obs, pre, by_arm = an.scale, an.target, an.obs, an.pre, an.by_arm
     what = "pooled over arms (blinded)" if ctx.blinded and obs.where == "in both arms pooled" else obs.where
     unit = "" if scale.log else spec.unit
     log = " (log scale)" if scale.log else ""
@@ -925,16 +913,14 @@ def observed_section(spec, scale, target: Interval, obs: Change, pre, by_arm, ct
         out.estimates.append(estimate(f"Observed mean {pre.where}{log} (before treatment)", pre.mean, pre.lower,
                                       pre.upper, unit=unit, note=f"{pre.n} participants; {interval_words('t', ctx.level)}",
                                       key="regression-to-mean.observed-pre-treatment"))
-    q = stats.norm.ppf(0.5 + ctx.level / 2)
-    diff = obs.mean - target.estimate
-    se = math.hypot(obs.se, (target.upper - target.lower) / (2 * q))
-    out.estimates.append(estimate(f"Observed change {what} not explained by regression to the mean", diff,
-                                  diff - q * se, diff + q * se, unit=unit,
+    gap = an.unexplained
+    out.estimates.append(estimate(f"Observed change {what} not explained by regression to the mean", gap.estimate,
+                                  gap.lower, gap.upper, unit=unit,
                                   note=interval_words("normal-approximation", ctx.level, "normal approximation"),
                                   by_arm=by_arm, key="regression-to-mean.unexplained-change"))
-    if obs.mean != 0:
+    if an.share_explained is not None:
         out.estimates.append(estimate(f"Share of the observed change {what} that regression to the mean "
-                                      f"predicts", 100 * target.estimate / obs.mean, unit="%", by_arm=by_arm,
+                                      f"predicts", an.share_explained, unit="%", by_arm=by_arm,
                                       key="regression-to-mean.share-explained"))
     within = target.lower <= obs.mean <= target.upper
 
@@ -1013,14 +999,14 @@ def decide(design, material: bool, no_one_out: bool = False) -> Verdict:
     return Verdict.CAUTION if material else Verdict.SOUND
 
 
-def sd_text(target: Interval, sigma: float, log: bool = False) -> str:
-    """'0.46 SD (0.38 to 0.55)': the size of a shift in SDs of the unselected population."""
-    a, b = sorted((abs(target.lower), abs(target.upper)))
+def sd_text(shift_sd: Interval, log: bool = False) -> str:
+    """'0.46 SD (0.38 to 0.55)': the size of a shift already in SDs of the unselected population
+    (:attr:`Analysis.shift_sd`)."""
+    a, b = sorted((abs(shift_sd.lower), abs(shift_sd.upper)))
     unit = "SD of log values" if log else "SD"
-    if target.lower <= 0 <= target.upper:
-        return (f"{target.estimate / sigma:+.2f} {unit} ({target.lower / sigma:+.2f} to "
-                f"{target.upper / sigma:+.2f})")
-    return f"{abs(target.estimate) / sigma:.2f} {unit} ({a / sigma:.2f} to {b / sigma:.2f})"
+    if shift_sd.lower <= 0 <= shift_sd.upper:
+        return f"{shift_sd.estimate:+.2f} {unit} ({shift_sd.lower:+.2f} to {shift_sd.upper:+.2f})"
+    return f"{abs(shift_sd.estimate):.2f} {unit} ({a:.2f} to {b:.2f})"
 
 
 def material_rule(design, material_sd: float = MATERIAL_SD) -> str:
@@ -1033,12 +1019,12 @@ def material_rule(design, material_sd: float = MATERIAL_SD) -> str:
     return f"{rule}; randomised parallel design: it affects both arms alike, so caution at most"
 
 
-def bias_sub(spec, design, sel, target: Interval, sigma: float, scale, material: bool, verdict: Verdict,
+def bias_sub(spec, design, sel, target: Interval, shift_sd: Interval, scale, material: bool, verdict: Verdict,
              by_arm: bool, out: Sections, material_sd: float = MATERIAL_SD) -> None:
     def t(v):
         return value_text(v, scale, spec.unit)
 
-    size = f"{t(target.estimate)} ({t(target.lower)} to {t(target.upper)}), {sd_text(target, sigma, scale.log)}"
+    size = f"{t(target.estimate)} ({t(target.lower)} to {t(target.upper)}), {sd_text(shift_sd, scale.log)}"
     judged = f"{'material' if material else 'not material'} ({material_rule(design, material_sd)})"
     if sel.column == "baseline":
         out.sub("bias", "Is the analysis baseline the reading that decided entry?", verdict,
@@ -1050,9 +1036,10 @@ def bias_sub(spec, design, sel, target: Interval, sigma: float, scale, material:
                 f"of the change {size}: {judged}", by_arm=by_arm)
 
 
-def share_clause(value: float, obs: Change) -> str:
-    """'64% of the fall seen on Placebo' (for an observed change of the same sign as ``value``)."""
-    return f"{100 * value / obs.mean:.0f}% of the {'fall' if obs.mean < 0 else 'rise'} seen {obs.where}"
+def share_clause(share: float, obs: Change) -> str:
+    """'64% of the fall seen on Placebo': ``share`` (:attr:`Analysis.share_explained`, in percent) of an
+    observed change of the same sign."""
+    return f"{share:.0f}% of the {'fall' if obs.mean < 0 else 'rise'} seen {obs.where}"
 
 
 def recommendation(design, second_share: float | None) -> str:
@@ -1096,14 +1083,14 @@ def share_text(share: float) -> str:
     return f"{pct:.1f}%" if pct >= 0.05 or pct == 0 else "less than 0.1%"
 
 
-def consequence(spec, design, sel, scale, target: Interval, sigma: float, material: bool,
+def consequence(spec, design, sel, scale, target: Interval, shift_sd: Interval, material: bool,
                 material_sd: float = MATERIAL_SD) -> str:
     """The first sentence of the headline: the expected shift in the analysed change with its interval,
     its size in SDs, and what it does and does not bias in this design."""
     size = amount(target.estimate, target.lower, target.upper, scale, spec.unit)
     where = ("the change from baseline" if sel.column == "baseline" else
              f"the change from baseline ({spec.baseline_visit}, after entry was decided at {sel.visit})")
-    lead = f"Regression to the mean alone is expected to shift {where} by {size}, {sd_text(target, sigma, scale.log)}"
+    lead = f"Regression to the mean alone is expected to shift {where} by {size}, {sd_text(shift_sd, scale.log)}"
     beyond = (f"wholly beyond the {material_sd:g} SD threshold of materiality" if material else
               f"not wholly beyond the {material_sd:g} SD threshold of materiality")
     if design == WITHIN_ARM_EFFECT:
@@ -1126,9 +1113,10 @@ def consequence(spec, design, sel, scale, target: Interval, sigma: float, materi
     return f"{lead}, {beyond}; the randomised comparison between arms is not biased by it in any case."
 
 
-def evidence(spec, design, sel, finds, scale, rtm, target, obs, second, ctx) -> str:
+def evidence(spec, design, sel, finds, scale, rtm, target, obs, second, ctx, share: float | None) -> str:
     """The second part of the headline: the selection, the expected change from the entry reading when
-    it is not the baseline, the share of the observed change, and what would reduce the shift."""
+    it is not the baseline, the share ``share`` of the observed change (:attr:`Analysis.share_explained`),
+    and what would reduce the shift."""
     lead = _criterion_text(spec, sel, finds)
     inside = "inside" if target.lower <= obs.mean <= target.upper else "outside"
     seen = ("blinded audit: " if ctx.blinded else "") + value_text(obs.mean, scale, spec.unit)
@@ -1139,16 +1127,16 @@ def evidence(spec, design, sel, finds, scale, rtm, target, obs, second, ctx) -> 
     if obs.mean == 0 or np.sign(obs.mean) != np.sign(target.estimate):
         parts.append(f"the change seen {obs.where} went the other way ({seen}, {inside} its interval)")
     else:
-        parts.append(f"the expected shift is {share_clause(target.estimate, obs)} ({seen}, {inside} its interval)")
+        parts.append(f"the expected shift is {share_clause(share, obs)} ({seen}, {inside} its interval)")
     advice = recommendation(design, second)
     return "Evidence: " + "; ".join(parts) + (f". {advice[0].upper()}{advice[1:]}." if advice else ".")
 
 
-def headline(spec, design, sel, finds, scale, rtm, target, obs, second, ctx, sigma, material,
-             material_sd: float = MATERIAL_SD) -> str:
+def headline(spec, design, sel, finds, scale, rtm, target, obs, second, ctx, shift_sd, material,
+             material_sd: float = MATERIAL_SD, share: float | None = None) -> str:
     """Consequence first, with its interval; then the evidence."""
-    return (f"{consequence(spec, design, sel, scale, target, sigma, material, material_sd)} "
-            f"{evidence(spec, design, sel, finds, scale, rtm, target, obs, second, ctx)}")
+    return (f"{consequence(spec, design, sel, scale, target, shift_sd, material, material_sd)} "
+            f"{evidence(spec, design, sel, finds, scale, rtm, target, obs, second, ctx, share)}")
 
 
 def caveats(ctx, rel, out: Sections) -> None:
@@ -1188,6 +1176,129 @@ def no_selection_result(check, data, finds, out: Sections, level: float = 0.95):
                   references=cite(["barnett-2005"]), method=method_text(level))
 
 
+# ----------------------------------------------------------------------------- reported quantities
+
+
+@dataclass(frozen=True)
+class EntryCounts:
+    """Entry readings on the kept side of the cutoff and on the excluded side (left out)."""
+
+    kept: int
+    excluded: int
+
+    @property
+    def total(self) -> int:
+        return self.kept + self.excluded
+
+    @property
+    def share_excluded(self) -> float:
+        """Share of the entry readings on the excluded side: the criterion not honoured when above
+        VIOLATION_SHARE."""
+        return self.excluded / (self.excluded + self.kept)
+
+
+@dataclass(frozen=True)
+class Population:
+    """The fitted unselected population: (estimate, lower, upper) of its mean and SD (Wald, at the
+    audit's level), on the log scale also the geometric mean (exp of the mean and its interval), and
+    the share of it meeting the cutoff (``1 - share_out``)."""
+
+    mu_ci: tuple[float, float, float]
+    sigma_ci: tuple[float, float, float]
+    share_meeting: float
+    geometric: tuple[float, float, float] | None = None
+
+
+def population(scale: Scale, share_out: float, level: float) -> Population:
+    fit = scale.fit
+    mu_ci = fit.ci("mu", level)
+    geometric = (math.exp(fit.mu), math.exp(mu_ci[1]), math.exp(mu_ci[2])) if scale.log else None
+    return Population(mu_ci, fit.ci("sigma", level), 1 - share_out, geometric)
+
+
+def expected_ratio(rtm, scale: Scale) -> Interval | None:
+    """On the log scale, the expected ratio later / entry reading: exp of the expected change and its
+    interval (None on the raw scale)."""
+    if not scale.log:
+        return None
+    return Interval(math.exp(rtm.estimate), math.exp(rtm.lower), math.exp(rtm.upper))
+
+
+@dataclass(frozen=True)
+class Shrinkage:
+    """The entry readings in order of value (analysis scale), their shrunk values
+    ``mu + rho (x - mu)`` (Kelley 1947) and the mean of ``shrunk - observed``, which equals the
+    expected change at the maximum-likelihood fit."""
+
+    observed: np.ndarray
+    shrunk: np.ndarray
+    mean_shift: float
+
+
+def shrinkage(rd: Readings, scale: Scale, sel: Selection, rho: float) -> Shrinkage:
+    x = np.sort(scale.to(rd.present(sel.column)))
+    shrunk = shrunk_values(x, scale.fit.mu, rho)
+    return Shrinkage(x, shrunk, float(np.mean(shrunk - x)))
+
+
+def declared_reliability_change(spec, scale: Scale, sel: Selection, rel: Reliability) -> float | None:
+    """The expected change with the reliability declared in study.toml in place of the one estimated
+    (a sensitivity; None when none is declared or the declared one is the one used): Barnett et al.
+    (2005), or ``-(1 - rho) E[X - mu | a <= X <= b]`` for a window, at the same fitted mean and SD."""
+    if spec.reliability is None or rel.source == "declared":
+        return None
+    fit = scale.fit
+    if sel.is_window:
+        return -(1 - float(spec.reliability)) * float(window_mean_shift(fit.mu, fit.sigma, fit.lower, fit.upper))
+    return expected_rtm(fit.mu, fit.sigma, float(spec.reliability), float(scale.to(sel.cutoff)), sel.direction)
+
+
+def unexplained_change(obs: Change, target: Interval, level: float) -> Interval:
+    """Observed minus expected change, with a normal interval whose SE combines the observed change's
+    SE with the expected change's, recovered from its interval's half-width: ``hypot(se_obs,
+    (upper - lower) / (2 z))``."""
+    q = stats.norm.ppf(0.5 + level / 2)
+    diff = obs.mean - target.estimate
+    se = math.hypot(obs.se, (target.upper - target.lower) / (2 * q))
+    return Interval(diff, diff - q * se, diff + q * se)
+
+
+def share_explained(target: Interval, obs: Change) -> float | None:
+    """The expected change as a percentage of the observed one (None when nothing changed)."""
+    return 100 * target.estimate / obs.mean if obs.mean != 0 else None
+
+
+@dataclass(frozen=True)
+class Pairs:
+    """Screening and baseline of the participants with both (analysis scale, sorted by screening then
+    baseline) and, when the reliability is their slope, the fitted regression line of the other
+    reading on the entry reading through the two means, as (x, y) end points on the plot's axes."""
+
+    x: np.ndarray
+    y: np.ndarray
+    line_x: np.ndarray | None = None
+    line_y: np.ndarray | None = None
+
+
+def pairs(rd: Readings, scale: Scale, sel: Selection, rel: Reliability) -> Pairs | None:
+    """The screening-baseline pairs, when the entry reading is one of them (None otherwise or with
+    fewer than MIN_PAIRS)."""
+    if not rd.has("screening") or sel.column not in ("screening", "baseline"):
+        return None
+    xs, ys = rd.complete("screening", "baseline")
+    if len(xs) < MIN_PAIRS:
+        return None
+    order = np.lexsort((ys, xs))
+    xs, ys = scale.to(xs[order]), scale.to(ys[order])
+    if rel.other not in ("screening", "baseline"):
+        return Pairs(xs, ys)
+    s, o = (xs, ys) if sel.column == "screening" else (ys, xs)
+    grid = np.array([s.min(), s.max()])
+    fitted = float(np.mean(o)) + rel.value * (grid - float(np.mean(s)))
+    line_x, line_y = (grid, fitted) if sel.column == "screening" else (fitted, grid)
+    return Pairs(xs, ys, line_x, line_y)
+
+
 @dataclass(frozen=True)
 class Analysis:
     """Every number the check judges by, before any wording: the selection found or declared and
@@ -1195,7 +1306,11 @@ class Analysis:
     criterion leaves out, the reliability (and the value used, capped), the expected regression to
     the mean, the observed and pre-treatment changes, the change expected in the analysed change
     from baseline (``target``, with the group a residual bias was estimated in), the second-baseline
-    shares, and whether the expected shift is material for the design as judged."""
+    shares, and whether the expected shift is material for the design as judged; and what the report
+    shows of them: the entry counts, the fitted population's intervals, the shrunk entry readings,
+    the expected ratio (log scale), the change with the declared reliability instead, the change not
+    explained by regression to the mean and the share it explains, the shift in SDs and the
+    screening-baseline pairs."""
 
     sel: Selection
     finds: list
@@ -1215,10 +1330,24 @@ class Analysis:
     second: SecondBaseline | None
     design: str
     material_sd: float
+    counts: EntryCounts
+    population: Population
+    shrinkage: Shrinkage
+    ratio: Interval | None
+    declared_change: float | None
+    unexplained: Interval
+    share_explained: float | None
+    pairs: Pairs | None
 
     @property
     def sigma(self) -> float:
         return self.scale.fit.sigma
+
+    @property
+    def shift_sd(self) -> Interval:
+        """The change expected in the analysed change, in SDs of the unselected population."""
+        t, sigma = self.target, self.sigma
+        return Interval(t.estimate / sigma, t.lower / sigma, t.upper / sigma)
 
     @property
     def material(self) -> bool:
@@ -1249,7 +1378,11 @@ def analyse(data, ctx: CheckContext, everyone: Readings, sel: Selection, finds) 
     second = second_baseline(data, ctx, rd, scale, sel, rel, rho)
     return Analysis(sel, finds, rd, n_excluded, scale, share_out, selects_no_one(sel, share_out), rel, rho, rtm,
                     obs, pre, target, target_by_arm, group, second, judged_design(data),
-                    ctx.thresholds.rtm_shift_sd)
+                    ctx.thresholds.rtm_shift_sd, EntryCounts(len(rd.present(sel.column)), n_excluded),
+                    population(scale, share_out, ctx.level), shrinkage(rd, scale, sel, rho),
+                    expected_ratio(rtm, scale),
+                    declared_reliability_change(spec, scale, sel, rel), unexplained_change(obs, target, ctx.level),
+                    share_explained(target, obs), pairs(rd, scale, sel, rel))
 
 
 @register(CHECK_ID, TITLE, _applies, order=30, needs_arms=False,
@@ -1266,37 +1399,39 @@ def run(data, ctx: CheckContext):
     everyone = Readings.of(data, ctx)
     sel, finds = find_selection(spec, everyone, ctx)
     if sel is None:
-        selection_section(None, finds, 0, 0, out)
+        selection_section(None, finds, None, out)
         return no_selection_result(check, data, finds, out, ctx.level)
     an = analyse(data, ctx, everyone, sel, finds)
-    rd, scale, rel, rho, rtm, target = an.rd, an.scale, an.rel, an.rho, an.rtm, an.target
-    obs, pre, sigma, material, material_sd, design = an.obs, an.pre, an.sigma, an.material, an.material_sd, an.design
+    scale, rel, rho, rtm, target = an.scale, an.rel, an.rho, an.rtm, an.target
+    obs, pre, material, material_sd, design = an.obs, an.pre, an.material, an.material_sd, an.design
     share_out, no_one_out, target_by_arm, by_arm = an.share_out, an.no_one_out, an.target_by_arm, an.by_arm
-    selection_section(sel, finds, len(rd.present(sel.column)), an.n_excluded, out, share_out)
-    population_section(spec, scale, sel, out, ctx.level)
+    selection_section(sel, finds, an.counts, out, share_out)
+    population_section(spec, an, out, ctx.level)
     reliability_section(spec, rel, out)
     capped_caveat(rel, out)
-    expected_section(spec, scale, rtm, rel, sel, out, ctx.level)
+    expected_section(spec, scale, rtm, rel, an.ratio, an.declared_change, out, ctx.level)
     residual_bias_section(spec, scale, sel, target, an.residual_group, out)
-    observed_section(spec, scale, target, obs, pre, by_arm, ctx, out)
+    observed_section(spec, an, ctx, out)
     model_check_sub(spec, scale, rtm, pre, out)
-    shrinkage_section(spec, rd, scale, rho, sel, rel, out)
+    shrinkage_section(spec, scale, rho, sel, rel, an.shrinkage, out)
     second = second_baseline_section(an.second, sel, rho, out)
     verdict = decide(design, material, no_one_out)
+    shift_sd = an.shift_sd
     out.estimates.append(estimate("Expected shift in the analysed change, in SDs of the unselected population",
-                                  target.estimate / sigma, target.lower / sigma, target.upper / sigma,
+                                  shift_sd.estimate, shift_sd.lower, shift_sd.upper,
                                   note=f"material when the whole interval lies beyond {material_sd:g} SD "
                                        f"(rtm_shift_sd; default a convention of this tool)", by_arm=target_by_arm,
                                   key="regression-to-mean.shift-sd"))
-    bias_sub(spec, design, sel, target, sigma, scale, material, verdict, target_by_arm, out, material_sd)
-    figures = [f for f in (pairs_figure(spec, rd, scale, sel, rel), truncation_figure(spec, rd, scale, sel)) if f]
+    bias_sub(spec, design, sel, target, shift_sd, scale, material, verdict, target_by_arm, out, material_sd)
+    figures = [f for f in (pairs_figure(spec, an.pairs, scale, sel, rel),
+                           truncation_figure(spec, an.shrinkage.observed, scale, sel)) if f]
     out.figures = figures + out.figures + [
         comparison_figure(spec, scale, figure_rows(sel, rtm, target, obs, pre), by_arm, ctx.level)]
     caveats(ctx, rel, out)
     further_conditions_caveat(spec, out)
     text = (no_one_out_headline(spec, sel, finds, scale, rtm, target, share_out) if no_one_out and not material
-            else headline(spec, design, sel, finds, scale, rtm, target, obs, second, ctx, sigma, material,
-                          material_sd))
+            else headline(spec, design, sel, finds, scale, rtm, target, obs, second, ctx, shift_sd, material,
+                          material_sd, an.share_explained))
     return result(check, data, verdict, text,
                   subfindings=out.subfindings, estimates=out.estimates, figures=out.figures, caveats=out.caveats,
                   recommendation=recommended_analysis(data.design, verdict, second),

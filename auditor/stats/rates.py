@@ -55,6 +55,26 @@ def time_spread(t) -> TimeSpread:
 
 
 @dataclass(frozen=True)
+class GroupTimes:
+    """Observation times of one group (an arm) set against the pooled median time."""
+
+    n: int
+    median: float
+    lower_quartile: float
+    upper_quartile: float
+    share_short: float
+    """Share of the group observed for less than 80% of the pooled median time."""
+
+
+def group_times(t, pooled_median: float) -> GroupTimes:
+    """Median and quartiles of one group's times ``t`` (numpy's linear-interpolation percentiles) and
+    the share below 80% of ``pooled_median``, the threshold :func:`time_spread` uses for everyone."""
+    t = np.asarray(t, dtype=float)
+    return GroupTimes(len(t), float(np.median(t)), float(np.percentile(t, 25)), float(np.percentile(t, 75)),
+                      float(np.mean(t < 0.8 * pooled_median)))
+
+
+@dataclass(frozen=True)
 class LogLinearFit(FitRecord):
     """A Poisson log-linear fit with robust standard errors (normal-theory Wald inference at ``level``)."""
 
