@@ -597,9 +597,11 @@ def compare_curves(an: Analysis, d: DerivedTest, level: float) -> Compare:
     for q in (0.10, 0.50, 0.90):
         start = float(np.quantile(an.earlier, q))
         lat = d.definition.latest_from(np.full(len(grid), start), grid)
-        band = full_curve(an, lat, np.full(len(grid), start), level)
         inside = (lat >= lo_l) & (lat <= hi_l)
-        starts.append((start, np.where(inside, band.risk, np.nan)))
+        risk = np.full(len(grid), np.nan)
+        if inside.any():  # the model is evaluated only where the latest value was observed
+            risk[inside] = full_curve(an, lat[inside], np.full(int(inside.sum()), start), level).risk
+        starts.append((start, risk))
     return Compare(dv, Curve(grid, own), starts)
 
 
