@@ -842,7 +842,7 @@ def _ci_from_r(level: float) -> str:
 
 def efficiency_part(eff: Efficiency, level: float) -> Part:
     """The trial's own cost of change against ANCOVA (variance-aware Frison-Pocock ratio) and its CI,
-    graded against the study's sample-size threshold (``ctx.thresholds.sample_size_ratio``)."""
+    graded against the study's sample-size threshold the analysis carries (``sample_size_ratio``)."""
     material_ratio, r, cost = eff.material_ratio, eff.r, eff.cost
     eq, change_vs_fu = eff.equal_variance, eff.versus_followup
     q = f"What does subtracting baseline cost against ANCOVA (material above {_pct(material_ratio)} more participants)?"
@@ -1174,6 +1174,6 @@ def run(data, ctx: CheckContext):
                          "(15% threshold); the trial's own sample-size ratio of change to ANCOVA, "
                          "var(change) / residual variance of ANCOVA within arm (Frison and Pocock 1992), with a "
                          f"{interval_words('delta-method', ctx.level, 'delta-method CI')}, material above "
-                         f"{_pct(ctx.thresholds.sample_size_ratio)} more participants (sample_size_ratio "
-                         f"{ctx.thresholds.sample_size_ratio:g}; study.toml [thresholds], default a convention of "
+                         f"{_pct(an.efficiency.material_ratio)} more participants (sample_size_ratio "
+                         f"{an.efficiency.material_ratio:g}; study.toml [thresholds], default a convention of "
                          "this tool); the four analyses fitted on the same participants.")
