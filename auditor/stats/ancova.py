@@ -86,6 +86,18 @@ def linearity_test(baseline, followup, other_columns: dict, plan: SplinePlan):
     return f_test(lin, flex), lin, flex
 
 
+def categorical_linearity_test(baseline, followup, other_columns: dict, category_cols: dict):
+    """F test of baseline entered as categories against the linear term, other terms kept.
+
+    ``category_cols``: the columns of :func:`.diagnostics.category_columns` (the linear term and one
+    indicator a level from the third on). Returns (test, flexible fit); the test is None when they are
+    the linear term alone (two levels: the line fits each level exactly, so the models coincide)."""
+    b = np.asarray(baseline, dtype=float)
+    lin = fit_ols(followup, {"baseline": b, **other_columns})
+    flex = fit_ols(followup, {**category_cols, **other_columns})
+    return (f_test(lin, flex) if len(category_cols) > 1 else None), flex
+
+
 def interaction_test(baseline, followup, arm, arms, control):
     """Treatment-by-baseline interaction in the ANCOVA: F test of arm x baseline product terms."""
     b = np.asarray(baseline, dtype=float)

@@ -72,6 +72,12 @@ def compare_with_ci(planned: str, reference: str, rho: float, rho_lower: float, 
                                 ends[0], ends[1])
 
 
+def ancova_saving(rho: float) -> float:
+    """The share of participants ANCOVA saves against the follow-up-only analysis for the same power:
+    1 - (1 - rho^2) = rho^2 (equal variances; Frison and Pocock 1992)."""
+    return rho ** 2
+
+
 def empirical_ratio(se_planned: float, se_reference: float) -> float:
     """Sample-size ratio implied by two fitted analyses on the same data: (SE_planned / SE_reference)^2."""
     return float((se_planned / se_reference) ** 2)
@@ -101,6 +107,12 @@ class OwnCost:
     sd_followup: float
     n: int
     level: float
+
+    @property
+    def variance_ratio(self) -> float:
+        """var(follow-up) / var(baseline) within arm: the equal-variance ratio 2/(1 + r) holds only
+        when this is 1."""
+        return (self.sd_followup / self.sd_baseline) ** 2
 
 
 def _delta(m):

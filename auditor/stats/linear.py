@@ -55,6 +55,14 @@ def fit_ols(y, columns: dict[str, np.ndarray], intercept: bool = True) -> Linear
                      float(res.llf))
 
 
+def predict(fit: LinearFit, columns: dict[str, np.ndarray]) -> np.ndarray:
+    """The fitted mean at new rows: the intercept plus each named column (in the fit's order) times
+    its coefficient, X b. ``columns`` names every covariate of ``fit``; extra names are ignored."""
+    n = len(next(iter(columns.values())))
+    X = np.column_stack([np.ones(n)] + [columns[k] for k in fit.names[1:]])
+    return X @ fit.params
+
+
 @dataclass(frozen=True)
 class NestedTest:
     statistic: float

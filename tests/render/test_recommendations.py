@@ -14,26 +14,26 @@ from auditor.results import Verdict
 S, C, U = Verdict.SOUND, Verdict.CAUTION, Verdict.UNSUPPORTED
 
 
-def parts(interval=S, phrase="", bounds=S, scale=S):
-    part = lambda v, p="": NS(sub=NS(verdict=v), phrase=p)  # noqa: E731
-    return {"interval": part(interval, phrase), "bounds": part(bounds), "scale": part(scale)}
+def flags(ordinal=False, awkward=False):
+    """An ordinal scale (an ordinal interval finding is also a departure), or a bound, interval or scale departure."""
+    return {"ordinal": ordinal, "awkward": awkward or ordinal}
 
 
 @pytest.mark.parametrize("planned, verdict, p, expected", [
-    ("change", S, parts(), "the planned change-from-baseline analysis"),
-    ("change", U, parts(), "ANCOVA on follow-up with a flexible (spline) baseline"),
-    ("change", U, parts(C, "the scale is ordinal (declared ordinal)"),
+    ("change", S, flags(), "the planned change-from-baseline analysis"),
+    ("change", U, flags(), "ANCOVA on follow-up with a flexible (spline) baseline"),
+    ("change", U, flags(ordinal=True),
      "ANCOVA on follow-up with a flexible (spline) baseline, or a proportional-odds ANCOVA"),
-    ("change", C, parts(), "ANCOVA on follow-up with a flexible (spline) baseline; or the planned analysis with its "
+    ("change", C, flags(), "ANCOVA on follow-up with a flexible (spline) baseline; or the planned analysis with its "
                            "cost stated"),
-    ("follow-up-only", C, parts(), "ANCOVA on follow-up adjusted for baseline"),
-    ("follow-up-only", S, parts(), "the planned follow-up-only analysis"),
-    ("follow-up-adjusted", S, parts(), "the planned baseline-adjusted analysis (ANCOVA)"),
-    ("follow-up-adjusted", C, parts(scale=C),
+    ("follow-up-only", C, flags(), "ANCOVA on follow-up adjusted for baseline"),
+    ("follow-up-only", S, flags(), "the planned follow-up-only analysis"),
+    ("follow-up-adjusted", S, flags(), "the planned baseline-adjusted analysis (ANCOVA)"),
+    ("follow-up-adjusted", C, flags(awkward=True),
      "ANCOVA on follow-up with a flexible (spline) baseline, or a proportional-odds ANCOVA"),
 ])
 def test_change_score_recommendation(planned, verdict, p, expected):
-    assert change_score.recommended_analysis(planned, verdict, p) == expected
+    assert change_score.recommended_analysis(planned, verdict, **p) == expected
 
 
 def test_count_time_recommendation():
