@@ -434,17 +434,6 @@ def declared_criterion_reach(data, ctx) -> float:
 # ----------------------------------------------------------------------------- reliability
 
 
-def slope(y, x, level: float = 0.95) -> tuple[float, float, float, float, int]:
-    """Least-squares slope of ``y`` on ``x``: (estimate, SE, lower, upper, n), t-based interval at ``level``.
-
-    Under a bivariate normal with equal SDs the slope of one reading on another is their correlation,
-    and selection on the regressor leaves the regression of the other reading on it unchanged
-    (Pearson 1903), so the slope is an unbiased reliability even in a selected sample, where the
-    correlation itself is attenuated.
-    """
-    return slope_with_se(y, x, level)
-
-
 def other_reading(rd: Readings, sel: Selection) -> str | None:
     """A pre-treatment reading other than the one that decided entry, nearest the analysis baseline."""
     order = {"baseline": ("screening",), "screening": ("baseline",), "entry_value": ("baseline", "screening")}
@@ -466,8 +455,13 @@ def comparison_group(data, ctx, rd: Readings) -> Group:
 
 
 def _pair_reliability(rd, scale, sel, other, spec, level) -> Reliability:
+    """The reliability as the slope of the other pre-treatment reading on the entry reading.
+
+    Under a bivariate normal with equal SDs that slope is the correlation, and selection on the
+    regressor leaves the regression of the other reading on it unchanged (Pearson 1903), so the slope
+    is unbiased in a selected sample where the correlation itself is attenuated."""
     s, o = (scale.to(v) for v in rd.complete(sel.column, other))
-    est, se, lo, hi, n = slope(o, s, level)
+    est, se, lo, hi, n = slope_with_se(o, s, level)
     icc = icc_oneway(s, o, level=level)
     evidence = (f"slope of {_visit_of(spec, other)} on {sel.visit} in {n} selected participants "
                 f"{fmt(est)} ({fmt(lo)} to {fmt(hi)}), unbiased under selection on {sel.visit}; "
@@ -482,7 +476,7 @@ def _followup_reliability(data, ctx, rd, scale, sel) -> Reliability:
     if len(s) < MIN_PAIRS:
         raise NotAssessable(f"no second pre-treatment reading, no declared reliability, and only {len(s)} "
                             f"participants {group.where} with a follow-up value to estimate it from")
-    est, se, lo, hi, n = slope(scale.to(f), scale.to(s), ctx.level)
+    est, se, lo, hi, n = slope_with_se(scale.to(f), scale.to(s), ctx.level)
     extra = "" if group.by_arm else " and any variation between participants in the response to treatment"
     evidence = (f"slope of follow-up on {sel.visit} {group.where} ({n} participants) {fmt(est)} ({fmt(lo)} to "
                 f"{fmt(hi)}): a lower bound for the reliability, since it also includes true change over "
@@ -580,11 +574,6 @@ def pre_treatment_change(rd, scale, sel, rel, spec, level) -> Change | None:
     return mean_change(scale.to(o) - scale.to(s), f"{_visit_of(spec, rel.other)} minus {sel.visit}", False, level)
 
 
-def selection_shift_se(fit, cutoff_t: float, direction: str) -> tuple[float, float]:
-    """``e = E[S - mu | selected]`` and its delta-method SE (:func:`auditor.stats.rtm.selection_shift_with_se`)."""
-    return selection_shift_with_se(fit, cutoff_t, direction)
-
-
 def residual_bias(data, ctx, rd, scale, sel) -> tuple[Interval, Group]:
     """Expected bias of change from a baseline taken after the entry reading S.
 
@@ -598,10 +587,10 @@ def residual_bias(data, ctx, rd, scale, sel) -> tuple[Interval, Group]:
     if len(s) < MIN_PAIRS:
         raise NotAssessable(f"only {len(s)} participants {group.where} have the entry reading, a baseline and a "
                             f"follow-up value (at least {MIN_PAIRS} are needed)")
-    rho_sb, rho_sf = slope(b, s)[0], slope(f, s)[0]
-    diff, diff_se = slope(f - b, s)[:2]
+    rho_sb, rho_sf = slope_with_se(b, s)[0], slope_with_se(f, s)[0]
+    diff, diff_se = slope_with_se(f - b, s)[:2]
     fit, cut = scale.fit, float(scale.to(sel.cutoff))
-    e, e_se = selection_shift_se(fit, cut, sel.direction)
+    e, e_se = selection_shift_with_se(fit, cut, sel.direction)
     if sel.is_window:  # the same relation, (rho_SF - rho_SB) e, with e the doubly truncated mean shift
         bias = float((np.clip(rho_sf, -1, 1) - np.clip(rho_sb, -1, 1)) * e)
     else:
@@ -643,7 +632,7 @@ def second_baseline(data, ctx, rd, scale, sel, rel, rho) -> SecondBaseline | Non
     group = comparison_group(data, ctx, rd)
     b, f = rd.complete("baseline", "followup", rows=group.rows)
     if not rel.lower_bound and len(b) >= MIN_PAIRS:
-        rho_bf = slope(scale.to(f), scale.to(b))[0]
+        rho_bf = slope_with_se(scale.to(f), scale.to(b))[0]
         if 0 < rho_bf < rho:
             decay = bias_after_second_baseline(fit.mu, fit.sigma, cut, rho_screen_second=rho,
                                                rho_screen_followup=rho_bf, direction=sel.direction)
