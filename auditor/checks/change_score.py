@@ -1031,7 +1031,6 @@ def _figures(spec, an: Analysis, seed):
                                    {"title": "Change", "values": (f - b).tolist(), "markers": []}]},
                        caption="Dotted lines: the scale's declared bounds."))
     return figs
-    return figs
 
 
 def _groups(df, arms, xcol, ycol):
@@ -1042,8 +1041,6 @@ def _groups(df, arms, xcol, ycol):
 
 
 # ----------------------------------------------------------------------------- verdict
-
-
 
 
 CHANGE_PLANS = ("change", "responder", "repeated-with-baseline-response")

@@ -84,7 +84,6 @@ def _worst(*verdicts: Verdict) -> Verdict:
     return max(verdicts, key=_VERDICT_ORDER.index)
 
 
-
 @dataclass
 class _Collect(Sections):
     """What the sections of the check accumulate, and the headline phrases they contribute."""
