@@ -342,12 +342,16 @@ class Heterogeneity:
     control: str
 
     @property
+    def control_r(self):
+        """The control arm's correlation of change with baseline (None when it has fewer than 10 pairs)."""
+        return next((r for arm, _, r in self.rows if arm == self.control), None)
+
+    @property
     def regression_artefact(self) -> bool:
         """Change correlates negatively with baseline in the control arm (p below ALPHA) while the
         interaction test finds nothing: the pattern regression to the mean alone produces."""
-        ctrl = next((row for row in self.rows if row[0] == self.control), None)
-        return (ctrl is not None and ctrl[2].p_value < ALPHA and ctrl[2].r < 0
-                and self.interaction.p_value >= ALPHA)
+        ctrl = self.control_r
+        return ctrl is not None and ctrl.p_value < ALPHA and ctrl.r < 0 and self.interaction.p_value >= ALPHA
 
 
 @dataclass(frozen=True)
@@ -362,6 +366,11 @@ class Comparison:
     ratio_vs_followup: float
     ordinal: OrdinalAlternative | None
     heterogeneity: Heterogeneity
+
+
+def awkward_scale(bounds: Bounds, levels: Levels, scale: ScaleTests) -> bool:
+    """A bound, interval or scale departure (:attr:`Analysis.awkward`), read before the analysis is whole."""
+    return bounds.flagged or levels.flagged or scale.flagged
 
 
 @dataclass(frozen=True)
@@ -395,7 +404,7 @@ class Analysis:
     @property
     def awkward(self) -> bool:
         """A bound, interval or scale departure: the baseline-adjusted alternative needs care."""
-        return self.bounds.flagged or self.levels.flagged or self.scale.flagged
+        return awkward_scale(self.bounds, self.levels, self.scale)
 
     def flagged(self, key: str) -> bool:
         """Whether the assumption ``key`` (a sub-finding id) shows a departure."""
@@ -490,14 +499,14 @@ def bound_rows(df, spec) -> Bounds:
     return Bounds(tuple(rows), worst, at, spec.lower_bound is not None or spec.upper_bound is not None)
 
 
-def fit_ordinal_alternative(df, arms, control, model: BaselineModel, level: float = 0.95) -> OrdinalAlternative:
+def fit_ordinal_alternative(df, arms, coding: ArmCoding, model: BaselineModel,
+                            level: float = 0.95) -> OrdinalAlternative:
     """Proportional-odds ANCOVA of follow-up on the flexible baseline plus arm (McCullagh 1980), with
     its translations at the median baseline: mean and median follow-up by arm, the probability of
     exceeding the follow-up quartiles, the concordance probability, and the descriptive
     proportional-odds check against binary fits at cut points."""
     from ..stats import ordinal as po
 
-    coding = arm_coding(df["arm"].to_numpy(), arms, control)
     cols = {**model.columns(df["baseline"].to_numpy()), **coding.columns}
     names = list(cols)
     X = np.column_stack([cols[k] for k in names])
@@ -563,14 +572,15 @@ def heterogeneity(df, arms, control, level: float = 0.95) -> Heterogeneity:
     return Heterogeneity(tuple(rows), inter, control)
 
 
-def compare_analyses(data, df, arms, control, model: BaselineModel, awkward: bool, level: float) -> Comparison:
+def compare_analyses(data, df, arms, control, coding: ArmCoding, model: BaselineModel, awkward: bool,
+                     level: float) -> Comparison:
     """The analyses side by side, the proportional-odds alternative when the scale is ordinal or
     awkward (a bound, interval or scale departure, or follow-up skewed beyond SKEW_FOR_LOG), and the
     heterogeneity on change."""
     effects = _analyses(df, arms, control, model, level)
     contrast, ratio_anc, ratio_fu = empirical_ratios(effects)
     awkward = awkward or abs(skewness(df["followup"])) > SKEW_FOR_LOG
-    ordinal = (fit_ordinal_alternative(df, arms, control, model, level)
+    ordinal = (fit_ordinal_alternative(df, arms, coding, model, level)
                if awkward or data.spec.scale == "ordinal" else None)
     return Comparison(tuple(effects), contrast, ratio_anc, ratio_fu, ordinal, heterogeneity(df, arms, control, level))
 
@@ -627,8 +637,8 @@ def analyse(data, ctx: CheckContext) -> Analysis:
     levels = Levels(granularity(np.concatenate([b, f])), spec.scale == "ordinal")
     comparison = None
     if len(arms) > 1:
-        awkward = bounds.flagged or levels.flagged or scale.flagged
-        comparison = compare_analyses(data, df, arms, control, model, awkward, ctx.level)
+        comparison = compare_analyses(data, df, arms, control, coding, model, awkward_scale(bounds, levels, scale),
+                                      ctx.level)
     repeated = None
     if spec.planned_analysis == "repeated-with-baseline-response" and len(arms) > 1:
         visits = [c for c in data.frame.columns if c.startswith("fu:")]
@@ -959,8 +969,7 @@ def heterogeneity_words(het: Heterogeneity):
                     key="change-score.arm-interaction.f")]
     caveat = ""
     if het.regression_artefact:
-        ctrl = next(r for arm, _, r in het.rows if arm == het.control)
-        caveat = (f"Change correlates with baseline even in the control arm (r {fmt(ctrl.r)}), while the "
+        caveat = (f"Change correlates with baseline even in the control arm (r {fmt(het.control_r.r)}), while the "
                   f"ANCOVA shows no arm x baseline interaction ({fmt_p(inter.p_value)}): an apparent "
                   f"'those who start worse benefit more' on the change scale is regression to the mean, "
                   f"not a larger treatment effect.")
