@@ -1183,7 +1183,7 @@ class EntryCounts:
     def share_excluded(self) -> float:
         """Share of the entry readings on the excluded side: the criterion not honoured when above
         VIOLATION_SHARE."""
-        return self.excluded / (self.excluded + self.kept)
+        return self.excluded / self.total
 
 
 @dataclass(frozen=True)
@@ -1304,7 +1304,6 @@ class Analysis:
     sel: Selection
     finds: list
     rd: Readings
-    n_excluded: int
     scale: Scale
     share_out: float
     no_one_out: bool
@@ -1365,7 +1364,7 @@ def analyse(data, ctx: CheckContext, everyone: Readings, sel: Selection, finds) 
     pre = pre_treatment_change(rd, scale, sel, rel, spec, ctx.level)
     target, target_by_arm, group = expected_in_change(data, ctx, rd, scale, sel, rtm, rel)
     second = second_baseline(data, ctx, rd, scale, sel, rel, rho)
-    return Analysis(sel, finds, rd, n_excluded, scale, share_out, selects_no_one(sel, share_out), rel, rho, rtm,
+    return Analysis(sel, finds, rd, scale, share_out, selects_no_one(sel, share_out), rel, rho, rtm,
                     obs, pre, target, target_by_arm, group, second, judged_design(data),
                     ctx.thresholds.rtm_shift_sd, EntryCounts(len(rd.present(sel.column)), n_excluded),
                     population(scale, share_out, ctx.level), shrinkage(rd, scale, sel, rho),
