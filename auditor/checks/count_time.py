@@ -145,22 +145,17 @@ class ExpectedCounts:
 
 
 def expected_counts(df, fit, arms, cols, coding: ArmCoding, points: int = 40) -> list[ExpectedCounts]:
-    """Each arm's expected count over ``points`` observation times from the shortest to the longest."""
+    """Each arm's expected count over ``points`` observation times from the shortest to the longest:
+    the rate model ``fit``'s rate for the arm at the median log baseline rate, times each time."""
     grid = np.linspace(float(df["followup_time"].min()), float(df["followup_time"].max()), points)
-    return [ExpectedCounts(r["label"], r["rate"], grid, grid * r["rate"])
-            for r in _expected_rates(fit, arms, cols, coding)]
-
-
-def _expected_rates(fit, arms, cols, coding: ArmCoding) -> list[dict]:
-    """Per arm, the rate at the median baseline rate under the rate model ``fit`` (for the figure)."""
     base = float(np.median(cols["log baseline rate"])) if "log baseline rate" in cols else 0.0
     coef = dict(zip(fit.names, fit.params))
     lin0 = coef["intercept"] + coef.get("log baseline rate", 0.0) * base
-    labels = arms if arms else ["all participants"]
     out = []
-    for a in labels:
+    for a in (arms if arms else ["all participants"]):
         column = coding.column_of(a)
-        out.append({"label": a, "rate": math.exp(lin0 + (coef[column] if column is not None else 0.0))})
+        rate = math.exp(lin0 + (coef[column] if column is not None else 0.0))
+        out.append(ExpectedCounts(a, rate, grid, grid * rate))
     return out
 
 
@@ -184,9 +179,12 @@ class TimesByArm:
     p: float
     differs: bool
     """Times differ between arms (p below ARM_TIME_ALPHA) and are unequal at all."""
-    df: int
     arms: list
     """(arm, :class:`auditor.stats.rates.GroupTimes`) for each arm."""
+
+    @property
+    def df(self) -> int:
+        return len(self.arms) - 1
 
 
 @dataclass(frozen=True)
@@ -253,8 +251,7 @@ def analyse(data, ctx: CheckContext) -> Analysis:
     times_by_arm, comparisons = None, []
     if len(arms) > 1:
         h, p = times_differ_by_arm(df["followup_time"], df["arm"])
-        times_by_arm = TimesByArm(h, p, p < ARM_TIME_ALPHA and not spread.equal, len(arms) - 1,
-                                  arm_times(df, arms))
+        times_by_arm = TimesByArm(h, p, p < ARM_TIME_ALPHA and not spread.equal, arm_times(df, arms))
         comparisons, count_notes = _comparisons(df, coding, cols, rate, ctx)
         notes += count_notes
     return Analysis(df, arms, with_baseline, spread, rate, cols, coding, ctx.thresholds.count_ratio,
@@ -416,8 +413,7 @@ def _verdict(spread, spread_text, arm_differs, material, largest, scale_ok,
                                "compares rates.")
     tail = "" if scale_ok else "; the count does not grow in proportion to time, so read rates with care"
     if largest is not None:
-        c = largest
-        s = c["shift"]
+        c, s = largest, largest["shift"]
         lead = (f"Ignoring observation time moves the treatment comparison ({c['name']}) by a factor of "
                 f"{_shift_text(s)}: count ratio {fmt(c['count'][0])} against rate ratio {fmt_ci(*c['rate'][:3])}")
         times = ("observation time differs between arms" if arm_differs else
