@@ -564,6 +564,12 @@ def partition_shares(p: ChiSquarePartition) -> list[PartitionShare]:
                            if r.name not in UNSHARED and joint > 0 else None) for r in p.rows()]
 
 
+def observed_latest(an: Analysis, latest) -> np.ndarray:
+    """Where ``latest`` lies within the observed range of the latest value: the model of both values is
+    evaluated only there."""
+    return (latest >= float(np.min(an.latest))) & (latest <= float(np.max(an.latest)))
+
+
 def same_change_rows(an: Analysis, d: DerivedTest, digits: int, level: float) -> list[list]:
     """Participants with the same derived value (none, and a rise of one SD) starting at the 10th, 25th,
     50th, 75th and 90th percentiles of the earlier value: (earlier, latest, derived value as stated,
@@ -571,11 +577,10 @@ def same_change_rows(an: Analysis, d: DerivedTest, digits: int, level: float) ->
     latest value leaves the observed range are left out."""
     starts = np.quantile(an.earlier, [0.10, 0.25, 0.50, 0.75, 0.90])
     values = _typical_steps(d.definition.value(an.latest, an.earlier), d.definition)
-    lo_l, hi_l = float(np.min(an.latest)), float(np.max(an.latest))
     rows = []
     for step in values:
         lat = d.definition.latest_from(starts, np.full(len(starts), step))
-        keep = (lat >= lo_l) & (lat <= hi_l)
+        keep = observed_latest(an, lat)
         if keep.sum() < 2:
             continue
         full = full_curve(an, lat[keep], starts[keep], level)
@@ -592,14 +597,13 @@ def compare_curves(an: Analysis, d: DerivedTest, level: float) -> Compare:
     dv = d.definition.value(an.latest, an.earlier)
     grid = np.linspace(*np.quantile(dv, END_QUANTILES), 80)
     own = derived_curve(an, d, grid, level)
-    lo_l, hi_l = float(np.min(an.latest)), float(np.max(an.latest))
     starts = []
     for q in (0.10, 0.50, 0.90):
         start = float(np.quantile(an.earlier, q))
         lat = d.definition.latest_from(np.full(len(grid), start), grid)
-        inside = (lat >= lo_l) & (lat <= hi_l)
+        inside = observed_latest(an, lat)
         risk = np.full(len(grid), np.nan)
-        if inside.any():  # the model is evaluated only where the latest value was observed
+        if inside.any():
             risk[inside] = full_curve(an, lat[inside], np.full(int(inside.sum()), start), level).risk
         starts.append((start, risk))
     return Compare(dv, Curve(grid, own), starts)
