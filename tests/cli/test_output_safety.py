@@ -11,7 +11,6 @@ from __future__ import annotations
 import errno
 import json
 import os
-import signal
 import subprocess
 import sys
 import textwrap
