@@ -19,8 +19,8 @@ import numpy as np
 from ..references import add_reference, cite
 from ..results import Figure, SubFinding, Table, Verdict, interval_words
 from ..stats.effects import NO_ARMS, ArmCoding, arm_coding
-from ..stats.rates import (coefficient_shift, fit_log_linear, group_times, log_baseline_rate, time_spread,
-                           times_differ_by_arm)
+from ..stats.rates import (TimeSpread, coefficient_shift, fit_log_linear, group_times, log_baseline_rate,
+                           time_spread, times_differ_by_arm)
 from .common import arms_present, estimate, fmt, fmt_ci, fmt_p, result, thin
 from .registry import CheckContext, NotAssessable, register
 
@@ -81,10 +81,10 @@ def _scaling(df, cols, ctx):
                           level=ctx.level)
 
 
-def arm_times(df, arms) -> list[tuple[str, object]]:
-    """Each arm's observation times (:func:`auditor.stats.rates.group_times`) against the pooled median."""
-    pooled = np.median(df["followup_time"])
-    return [(a, group_times(df.loc[df["arm"] == a, "followup_time"].to_numpy(), pooled)) for a in arms]
+def arm_times(df, arms, pooled_median: float) -> list[tuple[str, object]]:
+    """Each arm's observation times (:func:`auditor.stats.rates.group_times`) against the pooled median
+    (:attr:`auditor.stats.rates.TimeSpread.median`)."""
+    return [(a, group_times(df.loc[df["arm"] == a, "followup_time"].to_numpy(), pooled_median)) for a in arms]
 
 
 def _time_table(times: list[tuple[str, object]]) -> Table:
@@ -144,10 +144,11 @@ class ExpectedCounts:
     count: np.ndarray
 
 
-def expected_counts(df, fit, arms, cols, coding: ArmCoding, points: int = 40) -> list[ExpectedCounts]:
-    """Each arm's expected count over ``points`` observation times from the shortest to the longest:
-    the rate model ``fit``'s rate for the arm at the median log baseline rate, times each time."""
-    grid = np.linspace(float(df["followup_time"].min()), float(df["followup_time"].max()), points)
+def expected_counts(spread: TimeSpread, fit, arms, cols, coding: ArmCoding, points: int = 40) -> list[ExpectedCounts]:
+    """Each arm's expected count over ``points`` observation times from the shortest to the longest
+    (``spread``'s range): the rate model ``fit``'s rate for the arm at the median log baseline rate,
+    times each time."""
+    grid = np.linspace(spread.minimum, spread.maximum, points)
     base = float(np.median(cols["log baseline rate"])) if "log baseline rate" in cols else 0.0
     coef = dict(zip(fit.names, fit.params))
     lin0 = coef["intercept"] + coef.get("log baseline rate", 0.0) * base
@@ -251,12 +252,12 @@ def analyse(data, ctx: CheckContext) -> Analysis:
     times_by_arm, comparisons = None, []
     if len(arms) > 1:
         h, p = times_differ_by_arm(df["followup_time"], df["arm"])
-        times_by_arm = TimesByArm(h, p, p < ARM_TIME_ALPHA and not spread.equal, arm_times(df, arms))
+        times_by_arm = TimesByArm(h, p, p < ARM_TIME_ALPHA and not spread.equal, arm_times(df, arms, spread.median))
         comparisons, count_notes = _comparisons(df, coding, cols, rate, ctx)
         notes += count_notes
     return Analysis(df, arms, with_baseline, spread, rate, cols, coding, ctx.thresholds.count_ratio,
                     proportionality, times_by_arm, comparisons, tuple(notes),
-                    expected_counts(df, rate, arms, cols, coding))
+                    expected_counts(spread, rate, arms, cols, coding))
 
 
 def _spread_estimates(spread, unit) -> list:
