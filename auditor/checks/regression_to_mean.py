@@ -1199,6 +1199,8 @@ class Population:
 
 
 def population(scale: Scale, share_out: float, level: float) -> Population:
+    """The truncated-normal fit's Wald intervals of the mean and SD at ``level`` (the geometric mean
+    their back-transform on the log scale) and the share meeting the cutoff, ``1 - share_out``."""
     fit = scale.fit
     mu_ci = fit.ci("mu", level)
     geometric = (math.exp(fit.mu), math.exp(mu_ci[1]), math.exp(mu_ci[2])) if scale.log else None
@@ -1225,6 +1227,7 @@ class Shrinkage:
 
 
 def shrinkage(rd: Readings, scale: Scale, sel: Selection, rho: float) -> Shrinkage:
+    """The entry readings sorted on the analysis scale, shrunk toward the fitted mean by ``rho``."""
     x = np.sort(scale.to(rd.present(sel.column)))
     shrunk = shrunk_values(x, scale.fit.mu, rho)
     return Shrinkage(x, shrunk, float(np.mean(shrunk - x)))
