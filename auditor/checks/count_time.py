@@ -188,6 +188,12 @@ class TimesByArm:
         return len(self.arms) - 1
 
 
+def moves(shift, threshold: float) -> bool:
+    """A count-over-rate ratio that matters short of materiality: its interval excludes 1, or its
+    estimate reaches ``threshold`` or its inverse."""
+    return shift.detectable or max(shift.estimate, 1 / shift.estimate) >= threshold
+
+
 @dataclass(frozen=True)
 class Analysis:
     """Every number the check judges by, before any wording: the participants and arms analysed, the
@@ -224,9 +230,7 @@ class Analysis:
     @property
     def detectable(self) -> bool:
         """Some comparison moves detectably, or by the threshold at its estimate (unequal times only)."""
-        return not self.spread.equal and any(
-            c["shift"].detectable or max(c["shift"].estimate, 1 / c["shift"].estimate) >= self.threshold
-            for c in self.comparisons)
+        return not self.spread.equal and any(moves(c["shift"], self.threshold) for c in self.comparisons)
 
     @property
     def scale_ok(self) -> bool:
@@ -423,7 +427,7 @@ def _verdict(spread, spread_text, arm_differs, material, largest, scale_ok,
             return Verdict.UNSUPPORTED, (f"{lead}, wholly beyond the materiality threshold ({threshold:g} or "
                                          f"1/{threshold:g}); {times} ({spread_text}): analyse rates (log time as "
                                          f"offset){tail}.")
-        if s.detectable or max(s.estimate, 1 / s.estimate) >= threshold:
+        if moves(s, threshold):
             return Verdict.CAUTION, (f"{lead}, a shift that is detectable or large at its estimate but not wholly "
                                      f"beyond the materiality threshold ({threshold:g} or 1/{threshold:g}); "
                                      f"{times} ({spread_text}): analyse rates (log time as offset){tail}.")
