@@ -848,10 +848,10 @@ class _View:
             subs.append(self._weights_finding(d))
         return subs
 
-    def _ends(self, t: ExtremumTest) -> str:
-        """The consequence of the supported turning point ``t``: odds at each end against it, with intervals."""
+    def _ends(self) -> str:
+        """The consequence of the supported turning point: odds at each end against it, with intervals."""
         (a, ra, la, ua), (b, rb, lb, ub) = self.numbers.turning_ends
-        if t.kind == "minimum":
+        if self.an.turning.kind == "minimum":
             return (f"the odds of {self.endpoint} are {self.odds_ci(ra, la, ua)} as high at the 5th percentile "
                     f"({self.x(a)}) and {self.odds_ci(rb, lb, ub)} as high at the 95th ({self.x(b)}) as at "
                     f"the lowest point")
@@ -866,7 +866,7 @@ class _View:
         if kind:
             t = self.an.turning
             word = "lowest" if t.kind == "minimum" else "highest"
-            ev = (f"{self._ends(t)} ({word} point {self.x(t.at)}); nonlinear terms {self.chi(sh.nonlinear)}; "
+            ev = (f"{self._ends()} ({word} point {self.x(t.at)}); nonlinear terms {self.chi(sh.nonlinear)}; "
                   f"one-sided {fmt_p(t.low_end.p_adjusted)} and {fmt_p(t.high_end.p_adjusted)} for the two "
                   f"ends, adjusted for the choice of that point")
             plain = ("risk rises on both sides of that point, so a rule that treats only high (or only low) "
@@ -1006,10 +1006,10 @@ class _View:
         low = an.lowest
         ci = (f", {self.ci} {self.x(low.lower)} to {self.x(low.upper)}{unit}" if low.lower is not None else unit)
         if sh.flagged == "U-shaped":
-            return f"risk is U-shaped in the latest value, lowest near {self.x(low.at)}{ci}: {self._ends(an.turning)}"
+            return f"risk is U-shaped in the latest value, lowest near {self.x(low.at)}{ci}: {self._ends()}"
         if sh.flagged:
             return (f"risk is highest at an interior latest value, near {self.x(sh.maximum.at)}{unit}: "
-                    f"{self._ends(an.turning)}")
+                    f"{self._ends()}")
         if sh.suggested is not None:
             word = "lowest" if sh.suggested.kind == "minimum" else "highest"
             return (f"risk may be {word} at an interior latest value (near {self.x(sh.suggested.at)}{unit}), "
