@@ -47,5 +47,6 @@ def test_smooth_matches_statsmodels_lowess_on_noisy_data():
 
 
 def test_no_smooth_with_fewer_than_four_distinct_baselines():
+    # Four distinct baselines is the least the smooth is drawn from: a convention of this tool, no source.
     b = np.tile([1.0, 2.0, 3.0], 20)
     assert analyse(_data(b, b + np.random.default_rng(5).normal(0, 1, 60)), CTX).smooth == ([], [])
