@@ -16,7 +16,8 @@ docs/methods/later-risk.md.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
+from functools import cached_property
 from typing import Callable
 
 import numpy as np
@@ -327,12 +328,17 @@ class Analysis:
     level: float = 0.95
     material_odds_ratio: float = MATERIAL_ODDS_RATIO
     """The odds ratio a consequence must clear to be material (study.toml ``odds_ratio``)."""
-    reported: "Reported | None" = None
-    """What the report shows beyond the tests: curves, odds ratios, shares, table rows (:func:`reported`)."""
 
     @property
     def full(self) -> LogisticFit:
         return self.partition.full
+
+    @cached_property
+    def reported(self) -> "Reported":
+        """What the report shows beyond the tests: curves, odds ratios, shares, table rows
+        (:func:`reported_numbers`). Worked out from this analysis when first read, so a copy made with
+        ``dataclasses.replace`` works out its own, and callers that only judge do not pay for it."""
+        return reported_numbers(self)
 
     @property
     def events(self) -> int:
@@ -424,9 +430,8 @@ def analyse(y, latest, earlier, adjust: dict[str, np.ndarray] | None = None, log
                 raise NotAssessable(f"the declared {kind.label} model cannot be fitted ({exc})") from exc
             skipped.append(f"The {kind.label} model could not be fitted ({exc}).")
     same = same_value_contrast(partition.full, lt, et, earlier)
-    an = Analysis(y, latest, earlier, adjust, log, reason, lt, et, partition, shape, lowest, same, derived,
-                  skipped, definition, level, material_odds_ratio)
-    return replace(an, reported=reported(an))
+    return Analysis(y, latest, earlier, adjust, log, reason, lt, et, partition, shape, lowest, same, derived,
+                    skipped, definition, level, material_odds_ratio)
 
 
 def same_value_contrast(full: LogisticFit, lt: Term, et: Term, earlier) -> SameValue:
@@ -609,7 +614,7 @@ def compare_curves(an: Analysis, d: DerivedTest, level: float) -> Compare:
     return Compare(dv, Curve(grid, own), starts)
 
 
-def reported(an: Analysis) -> Reported:
+def reported_numbers(an: Analysis) -> Reported:
     """Every number the wording prints that the tests above do not already hold, at ``an.level``."""
     level = an.level
     digits = display_digits(an.latest, an.earlier)
