@@ -19,13 +19,13 @@ from __future__ import annotations
 
 import argparse
 import os
-import platform
 import sys
 import tempfile
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from bench_speed import EXAMPLE, ROOT, alternate, best_and_median, export_revision  # noqa: E402
+from bench_speed import (EXAMPLE, ROOT, alternate, best_and_median, export_revision,  # noqa: E402
+                         machine_line)
 
 _WORKER = (
     "import hashlib, json, os, sys, time\n"
@@ -67,8 +67,7 @@ def main() -> None:
     ap.add_argument("--study", default=str(EXAMPLE))
     ap.add_argument("--write", default="", help="write each tree's PNGs to WRITE-before/ and WRITE-after/")
     args = ap.parse_args()
-    print(f"machine: {platform.platform()}; {os.cpu_count()} cores; Python {platform.python_version()}; "
-          f"load average before {os.getloadavg()[0]:.1f}")
+    print(machine_line())
     with tempfile.TemporaryDirectory() as tmp:
         old = export_revision(args.baseline, Path(tmp) / "old")
         trees = {"before": (old, old / "example_study"), "after": (ROOT, Path(args.study))}

@@ -18,13 +18,13 @@ from __future__ import annotations
 
 import argparse
 import os
-import platform
 import sys
 import tempfile
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from bench_speed import EXAMPLE, ROOT, alternate, best_and_median, export_revision  # noqa: E402
+from bench_speed import (EXAMPLE, ROOT, alternate, best_and_median, export_revision,  # noqa: E402
+                         machine_line)
 
 _WORKER = (
     "import hashlib, json, resource, sys, time\n"
@@ -52,8 +52,7 @@ def main() -> None:
     ap.add_argument("--repeats", type=int, default=5)
     ap.add_argument("--study", default=str(EXAMPLE))
     args = ap.parse_args()
-    print(f"machine: {platform.platform()}; {os.cpu_count()} cores; Python {platform.python_version()}; "
-          f"load average before {os.getloadavg()[0]:.1f}")
+    print(machine_line())
     with tempfile.TemporaryDirectory() as tmp:
         trees = {"before": export_revision(args.baseline, Path(tmp) / "old"), "after": ROOT}
         heads, runs = alternate({name: (tree, _WORKER, str(Path(args.study))) for name, tree in trees.items()},

@@ -174,6 +174,13 @@ def make_many_outcomes(folder: Path, n_outcomes: int, n: int = 30, seed: int = 1
         'analysis_date = 2026-01-01\n\n[files]\nvisits = "data/visits.csv"\n\n' + "\n".join(blocks))
 
 
+def machine_line() -> str:
+    """The first line every benchmark prints: machine, cores, Python and the load average before the run
+    (the ratios below it are read against this)."""
+    return (f"machine: {platform.platform()}; {os.cpu_count()} cores; Python {platform.python_version()}; "
+            f"load average before {os.getloadavg()[0]:.1f}")
+
+
 def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--baseline", default="edc2959", help="git revision to compare against")
@@ -181,8 +188,7 @@ def main() -> None:
     ap.add_argument("--outcomes", type=int, default=0, help="also time N and 2N outcomes x 30 participants")
     ap.add_argument("--validate-only", action="store_true", help="time only validate (part 1) and stop")
     args = ap.parse_args()
-    print(f"machine: {platform.platform()}; {os.cpu_count()} cores; Python {platform.python_version()}; "
-          f"load average before {os.getloadavg()[0]:.1f}")
+    print(machine_line())
     with tempfile.TemporaryDirectory() as tmp:
         tmp = Path(tmp)
         old = export_revision(args.baseline, tmp / "old")
